@@ -1,0 +1,61 @@
+"""Command line: ``edgefit <command> ...``.
+
+Each command lives in its own module in this package and exposes
+``add_parser(subparsers)`` (which registers the sub-command and sets
+``func``) .  Any :class:`~edgefit.errors.EdgefitError` (and OS-level file
+errors) becomes one line on stderr and exit status 2; a traceback is shown
+only with ``--debug``.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from ..errors import EdgefitError
+
+#: Modules of edgefit.cli that define sub-commands, in help order.
+COMMAND_MODULES = ["inspect", "fit", "demo", "dust_tables", "batch"]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from .. import __version__
+
+    parser = argparse.ArgumentParser(
+        prog="edgefit",
+        description="Gas and dust absorption edges in X-ray grating spectra.")
+    parser.add_argument("--version", action="version", version=f"edgefit {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMAND_MODULES:
+        try:
+            mod = importlib.import_module(f"{__name__}.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"{__name__}.{name}":
+                continue  # command not written yet
+            raise
+        mod.add_parser(sub)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 1
+    try:
+        return int(args.func(args) or 0)
+    except (EdgefitError, OSError) as exc:
+        if args.debug:
+            raise
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        print(f"edgefit {args.command}: error: {msg}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("edgefit: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""edgefit.dust: X-ray optical constants, Mie/ADT efficiencies, size distributions, dust tables."""

@@ -1,0 +1,360 @@
+"""Building blocks of sightline models.
+
+A model is a tree of :class:`Component` leaves joined by ``*`` and ``+``:
+
+* a **multiplicative** component returns a transmission (dimensionless,
+  between 0 and 1 for absorbers) evaluated for each bin of an
+  :class:`EnergyGrid`;
+* an **additive** component returns a photon flux integrated over each bin,
+  in photons cm^-2 s^-1 per bin.
+
+``multiplicative * multiplicative`` is multiplicative,
+``multiplicative * additive`` is additive, ``additive + additive`` is
+additive; every other combination is refused.  Each component has a name
+(a Python identifier, unique in the model); its parameters appear in the
+model as ``<component name>_<parameter name>``.  Two components that would
+produce the same full parameter name are refused.
+
+Components declare their parameters once, as a tuple of :class:`Param`,
+with unit, bounds and description.  Their numerics live in pure functions
+elsewhere (``edgefit.physics``, ``edgefit.dust``); a component only wires
+parameter values to those functions.  Anything that depends only on the
+energy grid (interpolated cross sections, cached tables) is computed once
+per grid in :meth:`Component.precompute` and cached on the instance, keyed
+by the grid's content hash, so repeated evaluation in a fit is cheap.
+Components and models are picklable (no closures, no open files).
+"""
+from __future__ import annotations
+
+import hashlib
+import keyword
+import math
+from dataclasses import dataclass
+from typing import Any, ClassVar, Mapping
+
+import numpy as np
+from astropy import units as u
+
+from ..errors import ModelError, ParameterClashError, UnknownParameterError
+from .._units import as_kev
+
+__all__ = ["EnergyGrid", "Param", "ModelNode", "Component", "CompositeModel",
+           "COMPONENTS", "register_component", "MULTIPLICATIVE", "ADDITIVE"]
+
+MULTIPLICATIVE = "multiplicative"
+ADDITIVE = "additive"
+
+#: Registry of component classes by their ``registry_name``; used by the
+#: generic tests and by the safe configuration-file parser.
+COMPONENTS: dict[str, type["Component"]] = {}
+
+
+class EnergyGrid:
+    """Bins in energy (keV) on which a model is evaluated.
+
+    Parameters
+    ----------
+    lo, hi : array_like or Quantity
+        Lower and upper bin edges; any spectral unit is converted to keV.
+        Bins must be positive, finite, non-empty and strictly increasing.
+    """
+
+    __slots__ = ("lo", "hi", "mid", "width", "key")
+
+    def __init__(self, lo, hi):
+        lo = np.atleast_1d(np.asarray(as_kev(lo, "energy_lo"), dtype=float))
+        hi = np.atleast_1d(np.asarray(as_kev(hi, "energy_hi"), dtype=float))
+        if lo.shape != hi.shape or lo.ndim != 1:
+            raise ModelError("energy grid: lo and hi must be 1-d arrays of equal length")
+        if lo.size and (lo[0] > lo[-1]):  # wavelength order given; flip
+            lo, hi = hi[::-1].copy(), lo[::-1].copy()
+        if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
+            raise ModelError("energy grid: edges must be finite")
+        if np.any(lo <= 0) or np.any(hi <= lo) or np.any(np.diff(lo) <= 0):
+            raise ModelError("energy grid: bins must be positive, non-empty and increasing")
+        self.lo = lo
+        self.hi = hi
+        self.mid = 0.5 * (lo + hi)
+        self.width = hi - lo
+        for arr in (self.lo, self.hi, self.mid, self.width):
+            arr.setflags(write=False)
+        h = hashlib.blake2b(digest_size=16)
+        h.update(lo.tobytes())
+        h.update(hi.tobytes())
+        self.key = h.hexdigest()
+
+    @classmethod
+    def from_edges(cls, edges):
+        """Grid from n+1 contiguous edges."""
+        e = np.asarray(as_kev(edges, "edges"), dtype=float)
+        return cls(e[:-1], e[1:])
+
+    @classmethod
+    def linear(cls, emin, emax, n):
+        """``n`` equal bins from ``emin`` to ``emax`` (keV or Quantity)."""
+        return cls.from_edges(np.linspace(as_kev(emin), as_kev(emax), n + 1))
+
+    def __len__(self):
+        return self.lo.size
+
+    def __eq__(self, other):
+        return isinstance(other, EnergyGrid) and other.key == self.key
+
+    def __hash__(self):
+        return hash(self.key)
+
+    def __repr__(self):
+        if len(self) == 0:
+            return "EnergyGrid(empty)"
+        return f"EnergyGrid({len(self)} bins, {self.lo[0]:.4g}-{self.hi[-1]:.4g} keV)"
+
+
+@dataclass(frozen=True)
+class Param:
+    """Declaration of one component parameter.
+
+    ``unit`` is the unit the number is expressed in (an astropy unit
+    string, e.g. ``"1e22 cm-2"``, ``"keV"``, ``"um"``; empty for
+    dimensionless).  ``vary`` is whether the parameter is free by default.
+    """
+
+    name: str
+    default: float
+    min: float = -math.inf
+    max: float = math.inf
+    unit: str = ""
+    description: str = ""
+    vary: bool = True
+
+    def convert(self, value, component: str = "") -> float:
+        """A number in this parameter's unit from a number or Quantity."""
+        if isinstance(value, u.Quantity):
+            unit = u.Unit(self.unit) if self.unit else u.dimensionless_unscaled
+            try:
+                return float(value.to_value(unit, equivalencies=u.spectral()))
+            except u.UnitConversionError as exc:
+                raise ModelError(f"{component}.{self.name}: cannot convert {value.unit} "
+                                 f"to {self.unit or 'dimensionless'}") from exc
+        return float(value)
+
+
+def _check_identifier(name: str, what: str):
+    if not isinstance(name, str) or not name.isidentifier() or keyword.iskeyword(name):
+        raise ModelError(f"{what} {name!r} is not a valid identifier")
+
+
+class ModelNode:
+    """Common interface of components and composite models."""
+
+    kind: str = MULTIPLICATIVE
+
+    # -- structure -----------------------------------------------------
+    def components(self) -> list["Component"]:
+        raise NotImplementedError
+
+    def parameters(self) -> dict[str, tuple["Component", Param]]:
+        """Full parameter name -> (component, declaration), in model order."""
+        out: dict[str, tuple[Component, Param]] = {}
+        for comp in self.components():
+            for p in comp.params:
+                out[f"{comp.name}_{p.name}"] = (comp, p)
+        return out
+
+    def default_values(self) -> dict[str, float]:
+        """Full parameter name -> current value stored on the components."""
+        return {full: comp.values[p.name] for full, (comp, p) in self.parameters().items()}
+
+    def component(self, name: str) -> "Component":
+        for comp in self.components():
+            if comp.name == name:
+                return comp
+        raise UnknownParameterError(f"no component named {name!r}; have "
+                                    f"{[c.name for c in self.components()]}")
+
+    def make_params(self):
+        """An :class:`lmfit.Parameters` with every parameter of the model,
+        its current value, bounds and whether it varies."""
+        import lmfit
+
+        params = lmfit.Parameters()
+        for full, (comp, p) in self.parameters().items():
+            params.add(full, value=comp.values[p.name], min=p.min, max=p.max,
+                       vary=p.vary and p.name not in comp.fixed)
+        return params
+
+    # -- evaluation ----------------------------------------------------
+    def evaluate(self, grid: EnergyGrid, values: Mapping[str, float] | None = None) -> np.ndarray:
+        """Evaluate on ``grid`` with ``values`` (full names; missing ones take
+        the components' stored values).  Unknown names are refused."""
+        raise NotImplementedError
+
+    def __call__(self, grid, values: Mapping[str, float] | None = None, **kw):
+        if not isinstance(grid, EnergyGrid):
+            grid = EnergyGrid.from_edges(grid)
+        vals = dict(values or {})
+        vals.update(kw)
+        unknown = set(vals) - set(self.parameters())
+        if unknown:
+            raise UnknownParameterError(f"unknown parameter(s) {sorted(unknown)}; model has "
+                                        f"{list(self.parameters())}")
+        return self.evaluate(grid, vals)
+
+    # -- composition ---------------------------------------------------
+    def __mul__(self, other):
+        if not isinstance(other, ModelNode):
+            return NotImplemented
+        return CompositeModel(self, "*", other)
+
+    def __add__(self, other):
+        if not isinstance(other, ModelNode):
+            return NotImplemented
+        return CompositeModel(self, "+", other)
+
+
+class Component(ModelNode):
+    """A leaf of a model.  Subclasses set ``kind``, ``params``,
+    ``default_name`` and ``registry_name`` and implement :meth:`_evaluate`
+    (and optionally :meth:`precompute`).
+
+    Parameters
+    ----------
+    name : str, optional
+        Identifier used as the prefix of this component's parameters.
+    fixed : iterable of str, optional
+        Parameter names (short) to hold fixed by default.
+    **values
+        Initial values, as numbers in each parameter's unit or Quantities.
+    """
+
+    params: ClassVar[tuple[Param, ...]] = ()
+    default_name: ClassVar[str] = "comp"
+    registry_name: ClassVar[str | None] = None
+    #: Maximum number of energy grids whose precomputation is cached.
+    cache_size: ClassVar[int] = 32
+
+    def __init_subclass__(cls, **kw):
+        super().__init_subclass__(**kw)
+        if cls.registry_name:
+            register_component(cls)
+
+    def __init__(self, name: str | None = None, *, fixed=(), **values):
+        self.name = name or self.default_name
+        _check_identifier(self.name, "component name")
+        names = [p.name for p in self.params]
+        self.values: dict[str, float] = {p.name: p.default for p in self.params}
+        self.fixed = set(fixed)
+        for key in self.fixed:
+            if key not in names:
+                raise UnknownParameterError(f"{type(self).__name__} has no parameter {key!r}")
+        for key, val in values.items():
+            if key not in names:
+                raise UnknownParameterError(f"{type(self).__name__} has no parameter {key!r}; "
+                                            f"it has {names}")
+            self.values[key] = self.param(key).convert(val, self.name)
+        self._cache: dict[str, Any] = {}
+
+    def param(self, short_name: str) -> Param:
+        for p in self.params:
+            if p.name == short_name:
+                return p
+        raise UnknownParameterError(f"{type(self).__name__} has no parameter {short_name!r}")
+
+    def components(self):
+        return [self]
+
+    # subclasses -------------------------------------------------------
+    def precompute(self, grid: EnergyGrid) -> Any:
+        """Anything that depends on the grid only; cached per grid."""
+        return None
+
+    def _evaluate(self, grid: EnergyGrid, pre: Any, **values) -> np.ndarray:
+        raise NotImplementedError
+
+    # ------------------------------------------------------------------
+    def prepared(self, grid: EnergyGrid):
+        try:
+            return self._cache[grid.key]
+        except KeyError:
+            pre = self.precompute(grid)
+            if len(self._cache) >= self.cache_size:
+                self._cache.pop(next(iter(self._cache)))
+            self._cache[grid.key] = pre
+            return pre
+
+    def evaluate(self, grid, values=None):
+        own = dict(self.values)
+        if values:
+            prefix = self.name + "_"
+            for key, val in values.items():
+                if key.startswith(prefix) and key[len(prefix):] in own:
+                    own[key[len(prefix):]] = float(val)
+        return self._evaluate(grid, self.prepared(grid), **own)
+
+    def __getstate__(self):
+        state = self.__dict__.copy()
+        state["_cache"] = {}  # grids are re-prepared after unpickling
+        return state
+
+    def __repr__(self):
+        vals = ", ".join(f"{k}={v:.4g}" for k, v in self.values.items())
+        return f"{type(self).__name__}({self.name!r}, {vals})"
+
+
+class CompositeModel(ModelNode):
+    """Product or sum of two model nodes (built with ``*`` and ``+``)."""
+
+    def __init__(self, left: ModelNode, op: str, right: ModelNode):
+        if op not in "*+":
+            raise ModelError(f"unknown operator {op!r}")
+        if op == "*":
+            if left.kind == ADDITIVE and right.kind == ADDITIVE:
+                raise ModelError("cannot multiply two additive models")
+            kind = ADDITIVE if ADDITIVE in (left.kind, right.kind) else MULTIPLICATIVE
+        else:
+            if left.kind != right.kind:
+                raise ModelError("cannot add a multiplicative and an additive model")
+            kind = left.kind
+            if kind == MULTIPLICATIVE:
+                raise ModelError("adding two multiplicative models has no meaning; "
+                                 "multiply them, or add additive ones")
+        self.left, self.op, self.right, self.kind = left, op, right, kind
+        seen: dict[str, Component] = {}
+        for comp in left.components() + right.components():
+            if comp.name in seen and seen[comp.name] is not comp:
+                raise ParameterClashError(f"two components are named {comp.name!r}; "
+                                          "give one of them another name")
+            seen[comp.name] = comp
+        full: dict[str, str] = {}
+        for comp in seen.values():
+            for p in comp.params:
+                key = f"{comp.name}_{p.name}"
+                if key in full and full[key] != comp.name:
+                    raise ParameterClashError(f"parameter name {key!r} would be defined by "
+                                              f"{full[key]!r} and {comp.name!r}")
+                full[key] = comp.name
+
+    def components(self):
+        out, seen = [], set()
+        for comp in self.left.components() + self.right.components():
+            if id(comp) not in seen:
+                seen.add(id(comp))
+                out.append(comp)
+        return out
+
+    def evaluate(self, grid, values=None):
+        a = self.left.evaluate(grid, values)
+        b = self.right.evaluate(grid, values)
+        return a * b if self.op == "*" else a + b
+
+    def __repr__(self):
+        return f"({self.left!r} {self.op} {self.right!r})"
+
+
+def register_component(cls):
+    """Add a component class to :data:`COMPONENTS` under its registry name."""
+    name = cls.registry_name
+    if name in COMPONENTS and COMPONENTS[name] is not cls:
+        raise ModelError(f"component registry name {name!r} is taken by "
+                         f"{COMPONENTS[name].__qualname__}")
+    COMPONENTS[name] = cls
+    return cls

@@ -1,0 +1,1 @@
+"""edgefit.plotting"""
