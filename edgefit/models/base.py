@@ -270,6 +270,30 @@ class Component(ModelNode):
     def _evaluate(self, grid: EnergyGrid, pre: Any, **values) -> np.ndarray:
         raise NotImplementedError
 
+    def optical_depth(self, energy_kev, **values) -> np.ndarray:
+        """Optical depth at the given energies (keV) for multiplicative
+        absorbers, with ``values`` by short parameter name (missing ones take
+        the stored values).  Used for derived quantities such as the gas and
+        dust optical depth just above an edge.  Not defined for additive
+        components."""
+        raise NotImplementedError(f"{type(self).__name__} does not define an optical depth")
+
+    def derived(self, **values) -> dict[str, tuple[float, str]]:
+        """Component-specific derived quantities for parameter ``values``
+        (short names; missing ones take the stored values): a dict
+        name -> (value, unit string), e.g. the element column in dust, the
+        grain column density or the self-shielding ratio.  Must be pure and
+        cheap enough to call for every posterior sample."""
+        return {}
+
+    def _merged(self, values) -> dict[str, float]:
+        own = dict(self.values)
+        for key, val in values.items():
+            if key not in own:
+                raise UnknownParameterError(f"{type(self).__name__} has no parameter {key!r}")
+            own[key] = float(val)
+        return own
+
     # ------------------------------------------------------------------
     def prepared(self, grid: EnergyGrid):
         try:
