@@ -1,0 +1,195 @@
+"""Low-level, validated access to FITS files (private helpers for ogip.py).
+
+Everything a reader needs to turn astropy's view of a file into plain
+NumPy arrays, and to turn every way a file can be broken into one of
+edgefit's :mod:`edgefit.errors` classes with the file's path in the
+message.
+"""
+from __future__ import annotations
+
+import os
+import warnings
+
+import numpy as np
+from astropy.io import fits
+
+from ..errors import (InputFileError, MissingColumnError, MissingExtensionError,
+                      NotFITSError, TruncatedFileError)
+
+__all__ = ["open_fits", "find_hdu", "Table"]
+
+_FITS_BLOCK = 2880
+
+
+def _data_bytes(header) -> int:
+    """Bytes of the data unit (without padding) implied by a header
+    (FITS standard 4.0, eq. 2: |BITPIX|/8 x GCOUNT x (PCOUNT + NAXIS1 x ... x NAXISn))."""
+    naxis = int(header.get("NAXIS", 0))
+    if naxis == 0:
+        return 0
+    size = 1
+    for k in range(1, naxis + 1):
+        size *= int(header.get(f"NAXIS{k}", 0))
+    gcount = int(header.get("GCOUNT", 1))
+    pcount = int(header.get("PCOUNT", 0))
+    return abs(int(header.get("BITPIX", 8))) // 8 * gcount * (pcount + size)
+
+
+def open_fits(path):
+    """Open ``path`` with astropy, reading every header and data unit into
+    memory, and close the file.
+
+    Returns an :class:`astropy.io.fits.HDUList` whose data are loaded.
+
+    Raises
+    ------
+    FileNotFoundError
+        The file does not exist (an ``OSError``; the command line turns it
+        into one line).
+    NotFITSError
+        The file does not begin with a FITS primary header.
+    TruncatedFileError
+        A header or data unit ends before the headers say it should.
+    """
+    path = os.fspath(path)
+    if not os.path.isfile(path):
+        raise FileNotFoundError(f"{path}: no such file")
+    size = os.path.getsize(path)
+    with open(path, "rb") as fh:
+        head = fh.read(80)
+    if not head.startswith(b"SIMPLE  =") or size < _FITS_BLOCK:
+        if head.startswith(b"SIMPLE  ="):
+            raise TruncatedFileError(path, f"file is only {size} bytes, shorter than one "
+                                           "FITS header block (2880 bytes)")
+        raise NotFITSError(path, "not a FITS file (it does not start with a SIMPLE card)")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # astropy's own truncation warnings: we check
+            hdul = fits.open(path, memmap=False, lazy_load_hdus=False)
+            for i, hdu in enumerate(hdul):
+                info = hdul.fileinfo(i)
+                if info["datLoc"] + _data_bytes(hdu.header) > size:
+                    raise TruncatedFileError(
+                        path, f"file is truncated: HDU {i} ({hdu.name or 'PRIMARY'}) needs "
+                              f"{info['datLoc'] + _data_bytes(hdu.header)} bytes, file has {size}")
+                if hdu.data is not None and isinstance(hdu, fits.BinTableHDU):
+                    _ = hdu.data[:0]  # touch the table so that errors surface here
+            hdul.close()
+    except InputFileError:
+        raise
+    except (OSError, ValueError, TypeError, IndexError, KeyError) as exc:
+        raise TruncatedFileError(path, f"cannot read the FITS structure ({exc}); the file "
+                                       "is probably truncated or corrupt") from exc
+    return hdul
+
+
+def find_hdu(hdul, path, extnames=(), hduclas=(), what="extension"):
+    """First binary-table HDU whose EXTNAME is in ``extnames`` or whose
+    HDUCLAS1/HDUCLAS2 value is in ``hduclas``; MissingExtensionError if none."""
+    hdu = find_hdu_or_none(hdul, extnames, hduclas)
+    if hdu is None:
+        names = [h.name for h in hdul[1:]] or ["none"]
+        raise MissingExtensionError(
+            path, f"no {what} extension (looked for EXTNAME {'/'.join(extnames)}); the "
+                  f"file has extensions: {', '.join(names)}")
+    return hdu
+
+
+def find_hdu_or_none(hdul, extnames=(), hduclas=()):
+    ext = {e.upper() for e in extnames}
+    cls = {c.upper() for c in hduclas}
+    for hdu in hdul[1:]:
+        if not isinstance(hdu, fits.BinTableHDU):
+            continue
+        if hdu.name.upper() in ext:
+            return hdu
+        for key in ("HDUCLAS1", "HDUCLAS2"):
+            if str(hdu.header.get(key, "")).strip().upper() in cls:
+                return hdu
+    return None
+
+
+class Table:
+    """A binary table with case-insensitive columns and keyword fallback.
+
+    OGIP lets many quantities be given either as a keyword (one value for
+    the whole spectrum) or as a column (one value per row, or per
+    channel).  :meth:`get` looks for a column first, then a keyword.
+    """
+
+    def __init__(self, hdu, path):
+        self.hdu = hdu
+        self.header = hdu.header
+        self.path = os.fspath(path)
+        self.data = hdu.data
+        names = list(hdu.columns.names) if hdu.columns is not None else []
+        self._names = {n.upper(): n for n in names}
+        self._index = {n.upper(): i + 1 for i, n in enumerate(names)}
+        self.nrows = 0 if self.data is None else len(self.data)
+
+    def has_column(self, name):
+        return name.upper() in self._names
+
+    def has(self, name):
+        return self.has_column(name) or name.upper() in self.header
+
+    def column(self, name, required=True):
+        key = name.upper()
+        if key not in self._names:
+            if required:
+                raise MissingColumnError(self.path, f"extension {self.hdu.name} has no "
+                                                    f"{name} column")
+            return None
+        return self.data[self._names[key]]
+
+    def tlmin(self, name, default=None):
+        idx = self._index.get(name.upper())
+        if idx is None:
+            return default
+        val = self.header.get(f"TLMIN{idx}")
+        return default if val is None else int(val)
+
+    def tunit(self, name):
+        idx = self._index.get(name.upper())
+        return "" if idx is None else str(self.header.get(f"TUNIT{idx}", "")).strip()
+
+    def keyword(self, name, default=None):
+        val = self.header.get(name.upper(), default)
+        return default if val is None else val
+
+    def get(self, name, row=None, default=None, required=False):
+        """Column value (for ``row`` if given) or keyword, else ``default``."""
+        col = self.column(name, required=False)
+        if col is not None:
+            return col if row is None else col[row]
+        if name.upper() in self.header:
+            return self.header[name.upper()]
+        if required:
+            raise MissingColumnError(self.path, f"extension {self.hdu.name} has neither a "
+                                                f"{name} column nor a {name} keyword")
+        return default
+
+
+def as_str(value):
+    """A FITS string value stripped, or None for empty/'NONE'."""
+    if value is None:
+        return None
+    if isinstance(value, bytes):
+        value = value.decode("ascii", "replace")
+    value = str(value).strip()
+    if not value or value.upper() == "NONE":
+        return None
+    return value
+
+
+def energy_scale(unit: str) -> float:
+    """Factor to keV from a TUNIT string (keV assumed when empty)."""
+    unit = unit.strip().lower()
+    return {"": 1.0, "kev": 1.0, "ev": 1e-3, "mev": 1e3}.get(unit, 1.0)
+
+
+def to_float_array(values, path, what) -> np.ndarray:
+    try:
+        return np.asarray(values, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise InputFileError(path, f"{what} is not numeric ({exc})") from exc
