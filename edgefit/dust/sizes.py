@@ -1,0 +1,414 @@
+"""Grain size distributions and their normalisation by an element's column.
+
+Sizes are grain radii in micrometres (µm); a Quantity of length is
+accepted wherever a size is given.  A distribution is a shape n(a) per µm
+on a support [amin, amax]; it is used normalised to one grain,
+p(a) = n(a) / ∫ n da.
+
+Families (``FAMILIES``, by name):
+
+``powerlaw``  n ∝ a^-q on [amin, amax] -- MRN (Mathis, Rumpl & Nordsieck
+              1977, ApJ 217, 425: q = 3.5, 0.005-0.25 µm) is the default.
+``single``    all grains of one radius.
+``lognormal`` n ∝ a^-1 exp(−ln²(a/a0) / 2w²) on [amin, amax].
+``cutoff``    n ∝ a^-q for a ≤ a_t and a^-q exp(−[(a − a_t)/a_c]³) above,
+              on [amin, amax]: the large-size cut-off form of Weingartner &
+              Draine 2001 (ApJ 548, 296, eq. 4-5) without their curvature
+              factor F(a; β, a_t).
+``table``     a user table of n(a), interpolated linearly in log n − log a.
+
+Normalisation by the element locked in grains (column N_Z,dust of element
+Z in dust, cm^-2): one grain of radius a holds
+N_Z(a) = (4π/3) a³ ρ N_A c_Z / M atoms (c_Z atoms of Z per formula unit of
+mass M g/mol, ρ g cm^-3), so the grain column is
+N_grains = N_Z,dust / ⟨N_Z(a)⟩ and the dust mass column is
+N_Z,dust M / (N_A c_Z), independent of the sizes.
+
+Integration over sizes at fit time uses :class:`SizeGrid`: a table quantity
+g(a) known at the grid's sizes is interpolated by a cubic spline in ln a of
+g(a)/a^p and integrated against the distribution with Gauss–Legendre nodes
+on every grid interval (cut at the support's ends), so the weighted sum is
+a smooth function of the distribution's parameters (continuous
+derivatives in amax, q, a single size ...), as a fit needs.
+"""
+from __future__ import annotations
+
+import math
+from typing import ClassVar
+
+import numpy as np
+from astropy import units as u
+from scipy.interpolate import CubicSpline
+
+from .._units import to_value
+from ..errors import PhysicsDataError
+from ..physics import atomic
+
+__all__ = ["SizeDistribution", "PowerLaw", "SingleSize", "LogNormal", "CutoffPowerLaw",
+           "TabulatedSizes", "MRN", "FAMILIES", "make_distribution", "SizeGrid",
+           "as_um", "grain_column", "dust_mass_column", "mean_atoms_per_grain",
+           "read_size_table"]
+
+
+def as_um(value, name="size"):
+    """Grain size in µm from a number (µm) or a length Quantity."""
+    return to_value(value, u.um, name)
+
+
+_GL_X, _GL_W = np.polynomial.legendre.leggauss(6)
+
+
+class SizeDistribution:
+    """Base class: subclasses define ``family``, ``PARAMS`` and :meth:`shape`.
+
+    ``PARAMS`` is a tuple of (name, default, min, max, unit, description,
+    vary) used by the dust component to declare fit parameters.
+    """
+
+    family: ClassVar[str] = ""
+    PARAMS: ClassVar[tuple] = ()
+
+    def __init__(self, **values):
+        names = [p[0] for p in self.PARAMS]
+        vals = {p[0]: p[1] for p in self.PARAMS}
+        for k, v in values.items():
+            if k not in names:
+                raise PhysicsDataError(f"{self.family} size distribution has no parameter "
+                                       f"{k!r}; it has {names}")
+            vals[k] = float(as_um(v, k)) if (len(self.PARAMS) and self._is_size(k)) else float(v)
+        self.values = vals
+        self._check()
+
+    def _is_size(self, name):
+        return next(p for p in self.PARAMS if p[0] == name)[4] == "um"
+
+    def _check(self):
+        lo, hi = self.support()
+        if not (0 < lo < hi and np.isfinite(hi)):
+            raise PhysicsDataError(f"{self!r}: need 0 < amin < amax")
+
+    def __getattr__(self, name):
+        values = self.__dict__.get("values")
+        if values is not None and name in values:
+            return values[name]
+        raise AttributeError(name)
+
+    def __getstate__(self):
+        return self.__dict__
+
+    def __setstate__(self, state):
+        self.__dict__.update(state)
+
+    def support(self) -> tuple[float, float]:
+        """(amin, amax) in µm."""
+        return self.values["amin"], self.values["amax"]
+
+    def shape(self, a_um):
+        """Unnormalised n(a), per µm, on the support (vectorised)."""
+        raise NotImplementedError
+
+    def pdf(self, a_um):
+        """Normalised p(a) (per µm); zero outside the support."""
+        a = np.asarray(as_um(a_um), dtype=float)
+        lo, hi = self.support()
+        inside = (a >= lo) & (a <= hi)
+        out = np.where(inside, self.shape(np.clip(a, lo, hi)), 0.0) / self.moment(0, raw=True)
+        return float(out) if out.ndim == 0 else out
+
+    def _nodes(self, lo=None, hi=None, n_per_decade=40):
+        """Gauss-Legendre nodes (a, weight for ∫ da) on the support."""
+        lo = self.support()[0] if lo is None else lo
+        hi = self.support()[1] if hi is None else hi
+        nseg = max(4, int(math.ceil(n_per_decade * math.log10(hi / lo))))
+        edges = np.linspace(math.log(lo), math.log(hi), nseg + 1)
+        half = 0.5 * np.diff(edges)
+        uu = (edges[:-1] + half)[:, None] + half[:, None] * _GL_X
+        a = np.exp(uu).ravel()
+        w = (half[:, None] * _GL_W).ravel() * a  # da = a du
+        return a, w
+
+    def moment(self, k: float, raw: bool = False) -> float:
+        """⟨a^k⟩ (µm^k) over the normalised distribution; with ``raw`` the
+        unnormalised ∫ a^k n(a) da.  Numerical (Gauss–Legendre in ln a,
+        40 intervals per decade, 6 nodes each)."""
+        a, w = self._nodes()
+        val = float(np.sum(w * a ** k * self.shape(a)))
+        if raw:
+            return val
+        return val / float(np.sum(w * self.shape(a)))
+
+    def mean_volume(self) -> float:
+        """Mean grain volume (4π/3)⟨a³⟩, µm³."""
+        return 4.0 * math.pi / 3.0 * self.moment(3)
+
+    def __repr__(self):
+        vals = ", ".join(f"{k}={v:.4g}" for k, v in self.values.items())
+        return f"{type(self).__name__}({vals})"
+
+
+_AMIN = ("amin", 0.005, 0.001, 1.0, "um", "smallest grain radius", False)
+_AMAX = ("amax", 0.25, 0.006, 5.0, "um", "largest grain radius", True)
+
+
+class PowerLaw(SizeDistribution):
+    """n(a) ∝ a^-q on [amin, amax] (Mathis, Rumpl & Nordsieck 1977)."""
+
+    family = "powerlaw"
+    PARAMS = (_AMIN, _AMAX,
+              ("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False))
+
+    def __init__(self, index=3.5, amin=0.005, amax=0.25):
+        super().__init__(index=index, amin=amin, amax=amax)
+
+    def shape(self, a_um):
+        a = np.asarray(a_um, dtype=float)
+        return a ** (-self.values["index"])
+
+
+#: The default: MRN, q = 3.5 from 0.005 to 0.25 µm (Mathis, Rumpl & Nordsieck 1977).
+MRN = PowerLaw(3.5, 0.005, 0.25)
+
+
+class SingleSize(SizeDistribution):
+    """All grains have radius ``size`` (µm)."""
+
+    family = "single"
+    PARAMS = (("size", 0.1, 0.001, 5.0, "um", "grain radius", True),)
+
+    def __init__(self, size=0.1):
+        super().__init__(size=size)
+
+    def _check(self):
+        if not self.values["size"] > 0:
+            raise PhysicsDataError("single grain size must be positive")
+
+    def support(self):
+        s = self.values["size"]
+        return s, s
+
+    def shape(self, a_um):  # pragma: no cover - a delta function has no density
+        raise PhysicsDataError("a single size has no density n(a)")
+
+    def moment(self, k, raw=False):
+        return self.values["size"] ** k
+
+
+class LogNormal(SizeDistribution):
+    """n(a) ∝ a^-1 exp(−ln²(a/a0) / (2 w²)) on [amin, amax]."""
+
+    family = "lognormal"
+    PARAMS = (("center", 0.1, 0.002, 3.0, "um", "median radius a0", True),
+              ("width", 0.4, 0.05, 2.0, "", "width w in ln a", False),
+              ("amin", 0.001, 0.001, 1.0, "um", "smallest grain radius", False),
+              ("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
+
+    def __init__(self, center=0.1, width=0.4, amin=0.001, amax=5.0):
+        super().__init__(center=center, width=width, amin=amin, amax=amax)
+
+    def shape(self, a_um):
+        a = np.asarray(a_um, dtype=float)
+        z = np.log(a / self.values["center"]) / self.values["width"]
+        return np.exp(-0.5 * z * z) / a
+
+
+class CutoffPowerLaw(SizeDistribution):
+    """n ∝ a^-q, times exp(−[(a − a_t)/a_c]³) above a_t (Weingartner &
+    Draine 2001, ApJ 548, 296, eqs. 4-5, without the curvature factor)."""
+
+    family = "cutoff"
+    PARAMS = (_AMIN,
+              ("index", 3.5, 1.0, 6.0, "", "power-law index q", False),
+              ("atrans", 0.2, 0.005, 3.0, "um", "transition radius a_t", False),
+              ("acut", 0.1, 0.005, 3.0, "um", "cut-off scale a_c", True),
+              ("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
+
+    def __init__(self, index=3.5, amin=0.005, atrans=0.2, acut=0.1, amax=5.0):
+        super().__init__(index=index, amin=amin, atrans=atrans, acut=acut, amax=amax)
+
+    def shape(self, a_um):
+        a = np.asarray(a_um, dtype=float)
+        v = self.values
+        z = np.maximum(a - v["atrans"], 0.0) / v["acut"]
+        return a ** (-v["index"]) * np.exp(-np.minimum(z ** 3, 700.0))
+
+
+class TabulatedSizes(SizeDistribution):
+    """A user table n(a): radii (µm) and n (any positive scale), linear
+    interpolation in log n − log a; zero outside the table."""
+
+    family = "table"
+    PARAMS = ()
+
+    def __init__(self, a_um, n, source="<memory>"):
+        a = np.asarray(as_um(a_um, "size"), dtype=float)
+        n = np.asarray(n, dtype=float)
+        if a.ndim != 1 or a.shape != n.shape or a.size < 2:
+            raise PhysicsDataError(f"{source}: size table needs >= 2 (a, n) pairs")
+        order = np.argsort(a)
+        a, n = a[order], n[order]
+        if np.any(np.diff(a) <= 0) or np.any(a <= 0) or np.any(n <= 0) or \
+                not np.all(np.isfinite(n)):
+            raise PhysicsDataError(f"{source}: sizes must be positive and distinct, n "
+                                   "positive and finite")
+        self.values = {}
+        self.a, self.n, self.source = a, n, source
+        self._la, self._ln = np.log(a), np.log(n)
+
+    def support(self):
+        return float(self.a[0]), float(self.a[-1])
+
+    def shape(self, a_um):
+        return np.exp(np.interp(np.log(np.asarray(a_um, dtype=float)), self._la, self._ln))
+
+    def __repr__(self):
+        return f"TabulatedSizes({self.a.size} rows, {self.a[0]:.3g}-{self.a[-1]:.3g} um)"
+
+
+def read_size_table(path):
+    """Read a user size distribution: two whitespace/comma columns, radius
+    (µm) and n(a) (any scale), ``#`` comments.  Errors name the file."""
+    import os
+
+    from ..errors import InputFileError
+
+    path = os.fspath(path)
+    rows = []
+    with open(path, encoding="utf-8") as fh:
+        for lineno, line in enumerate(fh, 1):
+            text = line.split("#", 1)[0].strip()
+            if not text:
+                continue
+            parts = text.replace(",", " ").split()
+            try:
+                rows.append((float(parts[0]), float(parts[1])))
+            except (IndexError, ValueError):
+                raise InputFileError(path, f"line {lineno}: expected two numbers (radius "
+                                     f"in um, n), got {text[:60]!r}") from None
+    try:
+        a, n = np.array(rows).T
+        return TabulatedSizes(a, n, source=path)
+    except (ValueError, PhysicsDataError) as exc:
+        raise InputFileError(path, str(exc).replace(f"{path}: ", "")) from None
+
+
+FAMILIES: dict[str, type[SizeDistribution]] = {
+    c.family: c for c in (PowerLaw, SingleSize, LogNormal, CutoffPowerLaw)}
+
+
+def make_distribution(family: str, **values) -> SizeDistribution:
+    """A distribution of ``family`` (see ``FAMILIES``) with parameter values."""
+    try:
+        cls = FAMILIES[family]
+    except KeyError:
+        raise PhysicsDataError(f"unknown size distribution {family!r}; have "
+                               f"{', '.join(FAMILIES)} (or pass a TabulatedSizes)") from None
+    return cls(**values)
+
+
+# ---------------------------------------------------------------------------
+# normalisation by the element column
+# ---------------------------------------------------------------------------
+def mean_atoms_per_grain(dist: SizeDistribution, material, element) -> float:
+    """⟨N_Z(a)⟩ = (4π/3) ⟨a³⟩ ρ N_A c_Z / M (a in cm), atoms per grain."""
+    return 4.0 * math.pi / 3.0 * dist.moment(3) * 1e-12 * material.atoms_per_cm3(element)
+
+
+def grain_column(n_element_dust, dist: SizeDistribution, material, element) -> float:
+    """Grains per cm² holding a column ``n_element_dust`` (cm^-2) of
+    ``element``: N_grains = N_Z,dust / ⟨N_Z(a)⟩."""
+    n = to_value(n_element_dust, u.cm ** -2, "column")
+    return n / mean_atoms_per_grain(dist, material, element)
+
+
+def dust_mass_column(n_element_dust, material, element) -> float:
+    """Dust mass per cm² (g cm^-2): N_Z,dust M / (N_A c_Z)."""
+    n = to_value(n_element_dust, u.cm ** -2, "column")
+    return n * material.formula_mass / (atomic.AVOGADRO * material.count(element))
+
+
+# ---------------------------------------------------------------------------
+# integration over a size grid
+# ---------------------------------------------------------------------------
+class SizeGrid:
+    """Increasing grain radii (µm) on which cross sections are tabulated,
+    with the machinery to integrate tabulated quantities over a
+    distribution.
+
+    A quantity g_i = g(a_i) is represented by the not-a-knot cubic spline
+    in u = ln a of s(u) = g / a^p (p = 3 by default: cross sections of
+    small grains scale as a³, so s is nearly flat there), and
+
+    .. math:: \\langle g \\rangle = \\int p(a)\\, a^p\\, s(\\ln a)\\, da
+              = \\sum_i W_i\\, g_i ,
+
+    with p(a) the normalised distribution, integrated by 6-point
+    Gauss–Legendre on every grid interval inside the support.
+    """
+
+    def __init__(self, sizes_um, power: float = 3.0):
+        a = np.asarray(as_um(sizes_um, "size"), dtype=float)
+        if a.ndim != 1 or a.size < 4 or np.any(np.diff(a) <= 0) or a[0] <= 0:
+            raise PhysicsDataError("size grid: need >= 4 positive, increasing radii")
+        self.a = a
+        self.u = np.log(a)
+        self.power = float(power)
+        self._coef = CubicSpline(self.u, np.eye(a.size), axis=0).c  # (4, M-1, M)
+
+    @classmethod
+    def log(cls, amin=0.001, amax=5.0, n=160):
+        """``n`` radii spaced evenly in ln a from ``amin`` to ``amax`` (µm)."""
+        return cls(np.geomspace(as_um(amin), as_um(amax), int(n)))
+
+    def __len__(self):
+        return self.a.size
+
+    def _check_range(self, lo, hi):
+        tol = 1e-9
+        if lo < self.a[0] * (1 - tol) or hi > self.a[-1] * (1 + tol):
+            raise PhysicsDataError(
+                f"size distribution spans {lo:.4g}-{hi:.4g} um but the cross-section "
+                f"table covers {self.a[0]:.4g}-{self.a[-1]:.4g} um; build a table with a "
+                "wider size grid or narrow the distribution")
+
+    def basis(self, a_um):
+        """Spline basis rows B (n × M) so that s(a) = B @ s_i."""
+        uu = np.log(np.atleast_1d(np.asarray(a_um, dtype=float)))
+        k = np.clip(np.searchsorted(self.u, uu, side="right") - 1, 0, self.a.size - 2)
+        t = (uu - self.u[k])[:, None]
+        c = self._coef
+        return ((c[0, k] * t + c[1, k]) * t + c[2, k]) * t + c[3, k]
+
+    def weights(self, dist: SizeDistribution) -> np.ndarray:
+        """W (length M) with ⟨g⟩ = Σ W_i g_i over the normalised ``dist``."""
+        a_p = self.a ** self.power
+        if isinstance(dist, SingleSize):
+            s = dist.values["size"]
+            self._check_range(s, s)
+            return self.basis(s)[0] * s ** self.power / a_p
+        lo, hi = dist.support()
+        self._check_range(lo, hi)
+        ulo, uhi = math.log(lo), math.log(hi)
+        k0 = int(np.clip(np.searchsorted(self.u, ulo, side="right") - 1, 0, self.a.size - 2))
+        k1 = int(np.clip(np.searchsorted(self.u, uhi, side="left") - 1, 0, self.a.size - 2))
+        ks = np.arange(k0, k1 + 1)
+        left = np.maximum(self.u[ks], ulo)
+        right = np.minimum(self.u[ks + 1], uhi)
+        keep = right > left
+        ks, left, right = ks[keep], left[keep], right[keep]
+        half = 0.5 * (right - left)
+        uu = (left + half)[:, None] + half[:, None] * _GL_X      # (nk, 6)
+        a = np.exp(uu)
+        n = dist.shape(a)
+        gw = half[:, None] * _GL_W * a                           # ∫ da = ∫ a du
+        norm = float(np.sum(gw * n))
+        f = gw * n * a ** self.power / norm                      # integrand weight for s
+        t = uu - self.u[ks][:, None]
+        # moments of t^(3-p) per interval, then contract with spline coefficients
+        mom = np.stack([np.sum(f * t ** 3, axis=1), np.sum(f * t ** 2, axis=1),
+                        np.sum(f * t, axis=1), np.sum(f, axis=1)])   # (4, nk)
+        w = np.einsum("pk,pkm->m", mom, self._coef[:, ks, :])
+        return w / a_p
+
+    def average(self, values, dist: SizeDistribution):
+        """⟨g⟩ over ``dist`` for tabulated ``values`` (..., M) (last axis = size)."""
+        return np.asarray(values) @ self.weights(dist)
