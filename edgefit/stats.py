@@ -151,8 +151,10 @@ def c_statistic_expectation(mu):
     var = np.empty_like(mu)
     for i, m in enumerate(mu):
         m = max(m, MODEL_FLOOR)
+        # the Poisson mass outside m +- (12 sqrt(m) + 30) is < 1e-30
+        nmin = max(0, int(m - 12.0 * np.sqrt(m) - 30))
         nmax = int(m + 12.0 * np.sqrt(m) + 30)
-        n = np.arange(nmax + 1, dtype=float)
+        n = np.arange(nmin, nmax + 1, dtype=float)
         logp = xlogy(n, m) - m - gammaln(n + 1)
         p = np.exp(logp)
         c = 2.0 * (m - n + xlogy(n, n) - xlogy(n, m))

@@ -551,8 +551,9 @@ def _open_pha(path):
     return Table(find_hdu(hdul, path, SPECTRUM_EXT, ("SPECTRUM",), "SPECTRUM (PHA)"), path)
 
 
-def read_pha_rows(path, attach=True) -> list[Spectrum]:
-    """Every spectrum in a PHA file: one for type I, one per row for type II.
+def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spectrum]:
+    """Every spectrum in a PHA file: one for type I, one per row for type II
+    (optionally only the rows matching ``row``/``order``/``arm``).
 
     Parameters
     ----------
@@ -560,13 +561,18 @@ def read_pha_rows(path, attach=True) -> list[Spectrum]:
     attach : bool
         Attach the response (RESPFILE with ANCRFILE) and background
         (BACKFILE) named in the file when those files exist next to it.
+    row, order, arm : optional
+        Keep only matching rows (as in :func:`read_pha`); MissingRowError
+        if none match.
     """
     t = _open_pha(path)
     if not _is_type2(t):
-        return [_attach_companions(_spectrum_from_row(t, path, None, False), path,
-                                   None, None, None, attach)]
+        if row is None and order is None and arm is None:
+            return [_attach_companions(_spectrum_from_row(t, path, None, False), path,
+                                       None, None, None, attach)]
+        return [read_pha(path, row=row, order=order, arm=arm, attach=attach)]
     out, cache = [], {}
-    for i in range(t.nrows):
+    for i in _select_rows(t, path, row, order, arm):
         s = _spectrum_from_row(t, path, i, True)
         out.append(_attach_companions(s, path, i, s.meta["order"], s.meta["arm"], attach,
                                       cache))
@@ -966,7 +972,7 @@ def _wave_range(emin, emax):
             HC_KEV_ANGSTROM / lo if lo > 0 else np.inf)
 
 
-def describe_file(path) -> list[dict]:
+def describe_file(path, row=None, order=None, arm=None) -> list[dict]:
     """What an OGIP FITS file holds, as one dict per spectrum/response part.
 
     Keys: ``file``, ``kind`` ('PHA I', 'PHA II', 'ARF', 'RMF', 'RSP',
@@ -974,6 +980,7 @@ def describe_file(path) -> list[dict]:
     ``energy_kev`` (min, max), ``wavelength_a`` (min, max), ``exposure_s``,
     ``counts``, ``note``.  Spectra are read with their companion files
     (RESPFILE/ANCRFILE/BACKFILE), so problems in those are reported too.
+    ``row``/``order``/``arm`` restrict a PHA file to the matching rows.
     """
     hdul = open_fits(path)
     kinds = _kind_of(hdul)
@@ -990,7 +997,7 @@ def describe_file(path) -> list[dict]:
         if kind == "pha":
             t = Table(_hdu, path)
             label = "PHA II" if _is_type2(t) else "PHA I"
-            for s in read_pha_rows(path):
+            for s in read_pha_rows(path, row=row, order=order, arm=arm):
                 d = dict(base, kind=label, row=s.meta.get("row"), order=s.meta.get("order"),
                          arm=s.meta.get("arm"), channels=s.n_channels,
                          exposure_s=s.exposure, counts=float(np.sum(s.counts)))
