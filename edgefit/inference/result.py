@@ -1,0 +1,383 @@
+"""The result of a sightline fit: numbers, a readable summary, tables, JSON.
+
+:class:`FitResult` collects the best fit (values, covariance errors,
+statistic, degrees of freedom, convergence flags), and whatever later steps
+add: profile-likelihood intervals (:mod:`.intervals`), MCMC posteriors
+(:mod:`.mcmc`), goodness of fit (:mod:`.goodness`) and derived quantities
+(:mod:`.derived`).  It does no file I/O except in the explicit
+``write_*`` methods and no plotting (see :mod:`edgefit.plotting.fit_plots`).
+
+Tables
+------
+:meth:`FitResult.parameter_table` has one row per parameter (a ``unit``
+string column, since units differ between rows); :meth:`FitResult.to_table`
+has **one row** for the sightline and one column per quantity, each column
+carrying its astropy unit, so that several sightlines stack into one table.
+"""
+from __future__ import annotations
+
+import json
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+from astropy import units as u
+
+__all__ = ["FitResult", "Interval", "level_label"]
+
+
+def level_label(level: float) -> str:
+    """Short label of a confidence level: 0.683 -> '68', 0.9 -> '90'."""
+    pct = 100.0 * level
+    return f"{pct:.0f}" if abs(pct - round(pct)) < 0.35 else f"{pct:.1f}".replace(".", "p")
+
+
+@dataclass
+class Interval:
+    """A profile-likelihood interval at one confidence level.
+
+    ``lower``/``upper`` are None when not found; ``lower_at_bound`` /
+    ``upper_at_bound`` say the profile did not reach the threshold before
+    the parameter's bound (then the bound is a limit, not an interval end).
+    """
+
+    name: str
+    level: float
+    delta_stat: float
+    best: float
+    lower: float | None
+    upper: float | None
+    lower_at_bound: bool = False
+    upper_at_bound: bool = False
+    notes: list = field(default_factory=list)
+
+    def as_dict(self):
+        return {k: getattr(self, k) for k in ("name", "level", "delta_stat", "best", "lower",
+                                              "upper", "lower_at_bound", "upper_at_bound",
+                                              "notes")}
+
+
+def _unit(unit_str):
+    if not unit_str:
+        return u.dimensionless_unscaled
+    try:
+        return u.Unit(unit_str)
+    except ValueError:
+        return None
+
+
+def _fmt(x, err=None):
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "--"
+    if err is None or not math.isfinite(err) or err <= 0:
+        return f"{x:.5g}"
+    return f"{x:.5g} +/- {err:.2g}"
+
+
+class FitResult:
+    """Outcome of :func:`~edgefit.inference.fit.fit_sightline` and the
+    uncertainty steps run on it."""
+
+    def __init__(self, likelihood, params, statistic, covariance, covariance_names, flags,
+                 method, nfev=0):
+        self.likelihood = likelihood
+        self.params = params
+        self.statistic = float(statistic)
+        self.covariance = covariance
+        self.covariance_names = list(covariance_names)
+        self.flags = list(flags)
+        self.method = method
+        self.nfev = nfev
+        self.goodness: dict | None = None
+        self.intervals: dict[str, dict[float, Interval]] = {}
+        self.mcmc = None
+        self.derived = None
+        self.ppc: dict | None = None
+        self.meta: dict = {}
+
+    # -- basic numbers ---------------------------------------------------
+    @property
+    def model(self):
+        return self.likelihood.model
+
+    @property
+    def datasets(self):
+        return self.likelihood.datasets
+
+    @property
+    def statistic_name(self):
+        return self.likelihood.statistic_name
+
+    @property
+    def free_names(self):
+        return [n for n, p in self.params.items() if p.vary and not p.expr]
+
+    @property
+    def n_bins(self):
+        return self.likelihood.n_bins
+
+    @property
+    def n_free(self):
+        return len(self.free_names)
+
+    @property
+    def dof(self):
+        return self.n_bins - self.n_free
+
+    @property
+    def converged(self):
+        """True when no convergence flag was raised."""
+        return not self.flags
+
+    @property
+    def values(self):
+        return {n: float(p.value) for n, p in self.params.items()}
+
+    def error(self, name):
+        """Covariance (1 sigma) error of a free parameter, or None."""
+        if self.covariance is None or name not in self.covariance_names:
+            return None
+        i = self.covariance_names.index(name)
+        return float(math.sqrt(self.covariance[i, i]))
+
+    def unit(self, name):
+        pars = self.model.parameters()
+        if name in pars:
+            return pars[name][1].unit
+        return ""
+
+    def description(self, name):
+        pars = self.model.parameters()
+        if name in pars:
+            return pars[name][1].description
+        return "cross-normalisation constant of dataset " + name.rsplit("_", 1)[-1]
+
+    # -- summary ----------------------------------------------------------
+    def summary(self) -> str:
+        lines = []
+        title = self.meta.get("sightline", "sightline fit")
+        lines.append(f"== {title} ==")
+        lines.append(f"model: {self.model!r}")
+        for i, ds in enumerate(self.datasets):
+            lines.append(f"data {i + 1}: {ds!r}")
+        stat = "C (Poisson deviance)" if self.statistic_name == "cstat" else "chi-square"
+        lines.append(f"statistic {stat} = {self.statistic:.3f} for {self.n_bins} bins, "
+                     f"{self.n_free} free parameters, dof = {self.dof}")
+        if self.goodness:
+            g = self.goodness
+            lines.append(f"goodness: expected C = {g['expected']:.2f} +/- "
+                         f"{math.sqrt(g['variance']):.2f}, z = {g['z']:.2f}, "
+                         f"p = {g['p_value']:.3g}")
+        if self.ppc:
+            lines.append(f"posterior predictive check: p = {self.ppc['p_value']:.3g} "
+                         f"({self.ppc['n_draws']} draws)")
+        lines.append("convergence: " + ("ok" if self.converged else
+                                        "DOUBTFUL (" + ", ".join(self.flags) + ")"))
+        lines.append("")
+        hdr = f"{'parameter':<28}{'value':>26}  {'unit':<18}{'status':<10}"
+        lines.append(hdr)
+        lines.append("-" * len(hdr))
+        for n, p in self.params.items():
+            status = "tied" if p.expr else ("free" if p.vary else "fixed")
+            lines.append(f"{n:<28}{_fmt(p.value, self.error(n)):>26}  {self.unit(n):<18}"
+                         f"{status:<10}")
+        if self.intervals:
+            lines.append("")
+            lines.append("profile-likelihood intervals")
+            for n, by_level in self.intervals.items():
+                for lev, iv in sorted(by_level.items()):
+                    lo = _fmt(iv.lower) + (" (bound)" if iv.lower_at_bound else "")
+                    hi = _fmt(iv.upper) + (" (bound)" if iv.upper_at_bound else "")
+                    lines.append(f"  {n:<26} {level_label(lev):>4}%: [{lo}, {hi}]  "
+                                 f"dStat = {iv.delta_stat:.3f}"
+                                 + (f"  note: {'; '.join(iv.notes)}" if iv.notes else ""))
+        if self.mcmc is not None:
+            lines.append("")
+            lines.append(self.mcmc.summary())
+        if self.derived is not None:
+            lines.append("")
+            lines.append(self.derived.summary())
+        return "\n".join(lines)
+
+    def __str__(self):
+        return self.summary()
+
+    def __repr__(self):
+        return (f"FitResult({self.statistic_name}={self.statistic:.4g}, dof={self.dof}, "
+                f"converged={self.converged})")
+
+    # -- tables -------------------------------------------------------------
+    def parameter_table(self):
+        """One row per parameter: value, covariance error, profile and
+        posterior intervals; ``unit`` is a string column."""
+        from astropy.table import Table
+
+        rows = []
+        levels = sorted({lev for d in self.intervals.values() for lev in d})
+        for n, p in self.params.items():
+            row = {"name": n, "unit": self.unit(n), "value": float(p.value),
+                   "error": self.error(n) if self.error(n) is not None else np.nan,
+                   "status": "tied" if p.expr else ("free" if p.vary else "fixed"),
+                   "min": float(p.min), "max": float(p.max)}
+            for lev in levels:
+                iv = self.intervals.get(n, {}).get(lev)
+                lab = level_label(lev)
+                row[f"profile_lo{lab}"] = iv.lower if iv and iv.lower is not None else np.nan
+                row[f"profile_hi{lab}"] = iv.upper if iv and iv.upper is not None else np.nan
+            if self.mcmc is not None and n in self.mcmc.names:
+                med, lo, hi = self.mcmc.quantiles(n, 0.683)
+                row.update(posterior_median=med, posterior_lo68=lo, posterior_hi68=hi)
+            rows.append(row)
+        keys = []
+        for r in rows:
+            for k in r:
+                if k not in keys:
+                    keys.append(k)
+        data = {k: [r.get(k, np.nan) for r in rows] for k in keys}
+        t = Table(data)
+        t.meta.update(self._meta_dict())
+        return t
+
+    def _meta_dict(self):
+        meta = {"statistic": self.statistic_name, "stat_value": self.statistic,
+                "n_bins": self.n_bins, "n_free": self.n_free, "dof": self.dof,
+                "converged": self.converged, "flags": ",".join(self.flags) or "none",
+                "method": self.method}
+        if self.goodness:
+            meta.update({f"gof_{k}": v for k, v in self.goodness.items()})
+        if self.ppc:
+            meta["ppc_p_value"] = self.ppc["p_value"]
+        meta.update({k: v for k, v in self.meta.items() if isinstance(v, (str, int, float))})
+        return meta
+
+    def to_table(self):
+        """One-row astropy Table: a column per parameter (with its unit),
+        ``<name>_err`` (covariance), ``<name>_lo<L>``/``_hi<L>`` (profile),
+        ``<name>_med``/``_plo68``/``_phi68`` (posterior) and derived
+        quantities (median and 68 % bounds), plus statistic columns."""
+        from astropy.table import QTable
+
+        cols = {}
+
+        def put(key, value, unit):
+            val = np.nan if value is None else float(value)
+            cols[key] = [val] * (unit if unit is not None else u.dimensionless_unscaled)
+
+        put("stat", self.statistic, None)
+        put("dof", self.dof, None)
+        for n, p in self.params.items():
+            un = _unit(self.unit(n))
+            put(n, p.value, un)
+            put(n + "_err", self.error(n), un)
+            for lev, iv in sorted(self.intervals.get(n, {}).items()):
+                lab = level_label(lev)
+                put(f"{n}_lo{lab}", iv.lower, un)
+                put(f"{n}_hi{lab}", iv.upper, un)
+            if self.mcmc is not None and n in self.mcmc.names:
+                med, lo, hi = self.mcmc.quantiles(n, 0.683)
+                put(n + "_med", med, un)
+                put(n + "_plo68", lo, un)
+                put(n + "_phi68", hi, un)
+        if self.derived is not None:
+            for q in self.derived.quantities:
+                un = _unit(q.unit)
+                put(q.name, q.median, un)
+                put(q.name + "_lo68", q.lower(0.683), un)
+                put(q.name + "_hi68", q.upper(0.683), un)
+        t = QTable(cols)
+        t.meta.update(self._meta_dict())
+        return t
+
+    def to_dict(self):
+        """JSON-ready dictionary of everything in the result."""
+        d = {"meta": self._meta_dict(), "flags": self.flags,
+             "datasets": [{"label": ds.label, "n_groups": ds.n_groups,
+                           "n_channels": ds.n_channels_used,
+                           "ranges_kev": ds.ranges_kev, "exposure_s": ds.exposure,
+                           "background": ds.has_background} for ds in self.datasets],
+             "parameters": []}
+        for n, p in self.params.items():
+            entry = {"name": n, "value": float(p.value), "error": self.error(n),
+                     "unit": self.unit(n), "min": _json_num(p.min), "max": _json_num(p.max),
+                     "status": "tied" if p.expr else ("free" if p.vary else "fixed"),
+                     "description": self.description(n)}
+            if p.expr:
+                entry["tie"] = p.expr
+            if n in self.intervals:
+                entry["profile"] = [iv.as_dict() for iv in self.intervals[n].values()]
+            if self.mcmc is not None and n in self.mcmc.names:
+                med, lo, hi = self.mcmc.quantiles(n, 0.683)
+                entry["posterior"] = {"median": med, "lo68": lo, "hi68": hi}
+            d["parameters"].append(entry)
+        if self.covariance is not None:
+            d["covariance"] = {"names": self.covariance_names,
+                               "matrix": np.asarray(self.covariance).tolist()}
+        if self.goodness:
+            d["goodness"] = self.goodness
+        if self.ppc:
+            d["posterior_predictive"] = {k: v for k, v in self.ppc.items()
+                                         if not isinstance(v, np.ndarray)}
+        if self.mcmc is not None:
+            d["mcmc"] = self.mcmc.to_dict()
+        if self.derived is not None:
+            d["derived"] = self.derived.to_dict()
+        return d
+
+    def to_json(self, **kw):
+        return json.dumps(_jsonable(self.to_dict()), indent=kw.pop("indent", 2), **kw)
+
+    # -- writing (explicit file I/O only here) --------------------------------
+    def write(self, folder, stem="fit"):
+        """Write ``<stem>.ecsv`` (one-row table), ``<stem>_parameters.ecsv``,
+        ``<stem>.fits``, ``<stem>.json`` and ``<stem>_summary.txt`` into
+        ``folder``; returns the list of paths."""
+        from pathlib import Path
+
+        folder = Path(folder)
+        folder.mkdir(parents=True, exist_ok=True)
+        paths = []
+        table = self.to_table()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", u.UnitsWarning)
+            p = folder / f"{stem}.ecsv"
+            table.write(p, format="ascii.ecsv", overwrite=True)
+            paths.append(p)
+            p = folder / f"{stem}_parameters.ecsv"
+            self.parameter_table().write(p, format="ascii.ecsv", overwrite=True)
+            paths.append(p)
+            p = folder / f"{stem}.fits"
+            fits_table = table.copy()
+            fits_table.meta = {k[:8].upper(): v for k, v in table.meta.items()
+                               if isinstance(v, (int, float, str, bool))}
+            fits_table.write(p, format="fits", overwrite=True)
+            paths.append(p)
+        p = folder / f"{stem}.json"
+        p.write_text(self.to_json())
+        paths.append(p)
+        p = folder / f"{stem}_summary.txt"
+        p.write_text(self.summary() + "\n")
+        paths.append(p)
+        return paths
+
+
+def _json_num(x):
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, (np.floating, float)):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    return obj
