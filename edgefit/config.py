@@ -1,0 +1,427 @@
+"""Sightline configuration files (TOML) -> data, model and fit settings.
+
+The file format is documented in ``examples/CONFIG.md``.  Parsing is safe:
+TOML is read with :mod:`tomllib`; component types are looked up in
+:data:`edgefit.models.base.COMPONENTS`; the model recipe is a small
+expression of component names, ``*``, ``+`` and parentheses, read by the
+recursive-descent parser :func:`parse_recipe` below (no ``eval`` anywhere);
+parameter ties are limited to ``factor x other_parameter`` and are handed
+to lmfit as a generated expression of one validated name and one number.
+
+Every error is a :class:`~edgefit.errors.ConfigError` naming the file and
+the offending key, e.g. ``sightline.toml: model.components.pl.type:
+unknown component type 'powerlaw'``.
+"""
+from __future__ import annotations
+
+import importlib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from astropy import units as u
+
+from .errors import ConfigError, EdgefitError, InputFileError
+
+__all__ = ["SightlineConfig", "load_config", "parse_recipe", "tokenize_recipe",
+           "build_model", "apply_parameter_settings", "load_component_modules"]
+
+#: Modules whose import registers component types (absent ones are skipped).
+COMPONENT_MODULES = ("edgefit.models.continuum", "edgefit.models.absorption",
+                     "edgefit.models.dust")
+
+_TOP_KEYS = {"sightline", "spectrum", "model", "fit", "errors", "mcmc", "derived",
+             "goodness", "plots"}
+_SPECTRUM_KEYS = {"label", "pha", "rmf", "arf", "background", "row", "order", "arm", "range",
+                  "range_unit", "group_min_counts", "grouping", "channels_per_group"}
+_PARAM_KEYS = {"value", "min", "max", "fixed", "tie", "factor", "unit"}
+
+
+def load_component_modules():
+    """Import the modules that define components so they register."""
+    for name in COMPONENT_MODULES:
+        try:
+            importlib.import_module(name)
+        except ModuleNotFoundError as exc:
+            if exc.name != name:
+                raise
+
+
+# ---------------------------------------------------------------------------
+# recipe grammar:  sum := product ('+' product)* ; product := atom ('*' atom)* ;
+#                  atom := NAME | '(' sum ')'
+def tokenize_recipe(text, path=None, key="model.expression"):
+    """Tokens of a recipe: identifiers and the characters ``*+()``."""
+    if not isinstance(text, str):
+        raise ConfigError(path, f"{key}: must be a string such as \"abs * (pl + line)\"")
+    tokens = []
+    i = 0
+    while i < len(text):
+        ch = text[i]
+        if ch.isspace():
+            i += 1
+        elif ch in "*+()":
+            tokens.append(ch)
+            i += 1
+        elif ch.isalpha() or ch == "_":
+            j = i
+            while j < len(text) and (text[j].isalnum() or text[j] == "_"):
+                j += 1
+            tokens.append(text[i:j])
+            i = j
+        else:
+            raise ConfigError(path, f"{key}: character {ch!r} at position {i + 1} is not "
+                                    "allowed (only component names, *, + and parentheses)")
+    if not tokens:
+        raise ConfigError(path, f"{key}: empty recipe")
+    return tokens
+
+
+class _RecipeParser:
+    def __init__(self, tokens, components, path, key):
+        self.tokens = tokens
+        self.pos = 0
+        self.components = components
+        self.path = path
+        self.key = key
+        self.used = set()
+
+    def error(self, msg):
+        raise ConfigError(self.path, f"{self.key}: {msg}")
+
+    def peek(self):
+        return self.tokens[self.pos] if self.pos < len(self.tokens) else None
+
+    def take(self):
+        tok = self.peek()
+        self.pos += 1
+        return tok
+
+    def parse(self):
+        node = self.sum()
+        if self.peek() is not None:
+            self.error(f"unexpected {self.peek()!r} after a complete expression")
+        return node
+
+    def combine(self, a, op, b):
+        from .errors import ModelError
+
+        try:
+            return a * b if op == "*" else a + b
+        except ModelError as exc:
+            self.error(str(exc))
+
+    def sum(self):
+        node = self.product()
+        while self.peek() == "+":
+            self.take()
+            node = self.combine(node, "+", self.product())
+        return node
+
+    def product(self):
+        node = self.atom()
+        while self.peek() == "*":
+            self.take()
+            node = self.combine(node, "*", self.atom())
+        return node
+
+    def atom(self):
+        tok = self.take()
+        if tok is None:
+            self.error("expression ends too early")
+        if tok == "(":
+            node = self.sum()
+            if self.take() != ")":
+                self.error("missing ')'")
+            return node
+        if tok in "*+)":
+            self.error(f"unexpected {tok!r}")
+        if tok not in self.components:
+            self.error(f"component {tok!r} is not defined under [model.components]; "
+                       f"defined: {sorted(self.components)}")
+        self.used.add(tok)
+        return self.components[tok]
+
+
+def parse_recipe(text, components, path=None, key="model.expression"):
+    """Build a model from a recipe string and {name: Component}.
+
+    The grammar has names, ``*``, ``+`` and parentheses only; ``*`` binds
+    tighter than ``+``.  Returns (model, set of names used)."""
+    parser = _RecipeParser(tokenize_recipe(text, path, key), components, path, key)
+    return parser.parse(), parser.used
+
+
+# ---------------------------------------------------------------------------
+def _plain_value(value, path, key):
+    """An option value: TOML scalars, lists of them, or {value, unit} tables
+    (-> Quantity)."""
+    if isinstance(value, (str, int, float, bool)):
+        return value
+    if isinstance(value, list):
+        return [_plain_value(v, path, f"{key}[{i}]") for i, v in enumerate(value)]
+    if isinstance(value, dict) and set(value) <= {"value", "unit"} and "value" in value:
+        return _quantity(value, path, key)
+    raise ConfigError(path, f"{key}: unsupported value {value!r}")
+
+
+def _quantity(table, path, key):
+    try:
+        return float(table["value"]) * u.Unit(table.get("unit", ""))
+    except (ValueError, TypeError) as exc:
+        raise ConfigError(path, f"{key}: bad value/unit ({exc})") from None
+
+
+def build_model(model_table, path=None):
+    """Components and model from the ``[model]`` table.
+
+    Returns (model, {name: Component}, parameter settings {full name: dict}).
+    """
+    from .models.base import COMPONENTS, Component
+
+    load_component_modules()
+    if not isinstance(model_table, dict):
+        raise ConfigError(path, "model: must be a table with 'expression' and 'components'")
+    unknown = set(model_table) - {"expression", "components"}
+    if unknown:
+        raise ConfigError(path, f"model.{sorted(unknown)[0]}: unknown key")
+    comps_table = model_table.get("components")
+    if not isinstance(comps_table, dict) or not comps_table:
+        raise ConfigError(path, "model.components: define at least one component table")
+    components: dict[str, Component] = {}
+    settings = {}
+    for name, spec in comps_table.items():
+        key = f"model.components.{name}"
+        if not name.isidentifier():
+            raise ConfigError(path, f"{key}: component name must be an identifier")
+        if not isinstance(spec, dict):
+            raise ConfigError(path, f"{key}: must be a table")
+        bad = set(spec) - {"type", "options", "params"}
+        if bad:
+            raise ConfigError(path, f"{key}.{sorted(bad)[0]}: unknown key (use type, options, "
+                                    "params)")
+        ctype = spec.get("type")
+        if ctype not in COMPONENTS:
+            raise ConfigError(path, f"{key}.type: unknown component type {ctype!r}; known: "
+                                    f"{sorted(COMPONENTS)}")
+        cls = COMPONENTS[ctype]
+        options = {k: _plain_value(v, path, f"{key}.options.{k}")
+                   for k, v in (spec.get("options") or {}).items()}
+        params = spec.get("params") or {}
+        if not isinstance(params, dict):
+            raise ConfigError(path, f"{key}.params: must be a table")
+        declared = {p.name for p in cls.params}
+        init, fixed = {}, []
+        for pname, pval in params.items():
+            pkey = f"{key}.params.{pname}"
+            if pname not in declared:
+                raise ConfigError(path, f"{pkey}: {ctype} has no parameter {pname!r}; it has "
+                                        f"{sorted(declared)}")
+            if isinstance(pval, bool):
+                raise ConfigError(path, f"{pkey}: a number or a table is needed")
+            if isinstance(pval, (int, float)):
+                pval = {"value": pval}
+            if not isinstance(pval, dict):
+                raise ConfigError(path, f"{pkey}: a number or a table is needed")
+            bad = set(pval) - _PARAM_KEYS
+            if bad:
+                raise ConfigError(path, f"{pkey}.{sorted(bad)[0]}: unknown key (allowed: "
+                                        f"{sorted(_PARAM_KEYS)})")
+            for k in ("value", "min", "max", "factor"):
+                if k in pval and (isinstance(pval[k], bool) or
+                                  not isinstance(pval[k], (int, float))
+                                  or not math.isfinite(pval[k])):
+                    raise ConfigError(path, f"{pkey}.{k}: must be a finite number")
+            if "value" in pval:
+                init[pname] = (float(pval["value"]) * u.Unit(pval["unit"])
+                               if "unit" in pval else float(pval["value"]))
+            if pval.get("fixed"):
+                fixed.append(pname)
+            settings[f"{name}_{pname}"] = dict(pval, _key=pkey)
+        try:
+            components[name] = cls(name, fixed=fixed, **init, **options)
+        except TypeError as exc:
+            raise ConfigError(path, f"{key}.options: {exc}") from None
+        except EdgefitError as exc:
+            raise ConfigError(path, f"{key}: {exc}") from None
+    model, used = parse_recipe(model_table.get("expression"), components, path)
+    unused = set(components) - used
+    if unused:
+        raise ConfigError(path, f"model.components.{sorted(unused)[0]}: defined but not used "
+                                "in model.expression")
+    return model, components, settings
+
+
+def apply_parameter_settings(params, settings, model=None, path=None):
+    """Apply bounds, fixed flags and ties from the config to lmfit
+    Parameters (values were already set on the components).  Bounds are in
+    the parameter's own unit, or in ``unit`` when the table gives one."""
+    decl = model.parameters() if model is not None else {}
+    for full, s in settings.items():
+        key = s["_key"]
+        p = params[full]
+        unit = s.get("unit")
+
+        def conv(x):
+            if unit and full in decl:
+                comp, par = decl[full]
+                try:
+                    return par.convert(float(x) * u.Unit(unit), comp.name)
+                except (ValueError, EdgefitError) as exc:
+                    raise ConfigError(path, f"{key}.unit: {exc}") from None
+            return float(x)
+
+        if "min" in s:
+            p.min = conv(s["min"])
+        if "max" in s:
+            p.max = conv(s["max"])
+        if p.min > p.max:
+            raise ConfigError(path, f"{key}: min is larger than max")
+        if not (p.min <= p.value <= p.max):
+            raise ConfigError(path, f"{key}: value {p.value} lies outside [{p.min}, {p.max}]")
+        if s.get("fixed"):
+            p.vary = False
+        if "tie" in s:
+            other = s["tie"]
+            if not isinstance(other, str) or other not in params or other == full:
+                raise ConfigError(path, f"{key}.tie: {other!r} is not another parameter of "
+                                        f"this model (full names like 'pl_index')")
+            factor = float(s.get("factor", 1.0))
+            p.expr = other if factor == 1.0 else f"{factor!r} * {other}"
+        elif "factor" in s:
+            raise ConfigError(path, f"{key}.factor: only meaningful with 'tie'")
+    return params
+
+
+# ---------------------------------------------------------------------------
+@dataclass
+class SightlineConfig:
+    """A parsed configuration file (see ``examples/CONFIG.md``)."""
+
+    path: Path
+    name: str
+    output: Path
+    spectra: list
+    model: object
+    components: dict
+    param_settings: dict
+    fit: dict = field(default_factory=dict)
+    errors: dict = field(default_factory=dict)
+    mcmc: dict = field(default_factory=dict)
+    derived: dict = field(default_factory=dict)
+    goodness: dict = field(default_factory=dict)
+    plots: dict = field(default_factory=dict)
+
+    def error(self, key, problem):
+        return ConfigError(self.path, f"{key}: {problem}")
+
+    def load_datasets(self):
+        """Read every spectrum (with response and background) and prepare
+        it for fitting.  File problems name the file; config problems name
+        the key."""
+        from .data import load_spectrum
+        from .inference.dataset import Dataset
+
+        out = []
+        for i, s in enumerate(self.spectra):
+            key = f"spectrum[{i}]"
+            base = self.path.parent
+
+            def rel(k):
+                return str(base / s[k]) if s.get(k) else None
+
+            spec = load_spectrum(rel("pha"), rmf=rel("rmf"), arf=rel("arf"),
+                                 background=rel("background"), row=s.get("row"),
+                                 order=s.get("order"), arm=s.get("arm"))
+            if spec.response is None:
+                raise self.error(f"{key}.rmf", f"no response for {s['pha']} (give rmf = ...)")
+            grouping = s.get("group_min_counts")
+            if s.get("grouping") == "file":
+                grouping = "file"
+            try:
+                out.append(Dataset(spec, ranges=s.get("range"),
+                                   unit=s.get("range_unit", "keV"), grouping=grouping,
+                                   channels_per_group=s.get("channels_per_group"),
+                                   label=s.get("label") or f"{Path(s['pha']).name}"
+                                   + (f"[{s['row']}]" if s.get("row") is not None else "")))
+            except EdgefitError as exc:
+                if isinstance(exc, InputFileError):
+                    raise
+                raise self.error(key, str(exc)) from None
+        return out
+
+
+def _check_table(data, key, allowed, path):
+    if not isinstance(data, dict):
+        raise ConfigError(path, f"{key}: must be a table")
+    bad = set(data) - set(allowed)
+    if bad:
+        raise ConfigError(path, f"{key}.{sorted(bad)[0]}: unknown key (allowed: "
+                                f"{sorted(allowed)})")
+    return data
+
+
+def load_config(path):
+    """Read and check a sightline TOML file.  Returns a SightlineConfig."""
+    path = Path(path)
+    try:
+        with open(path, "rb") as fh:
+            data = tomllib.load(fh)
+    except FileNotFoundError:
+        raise ConfigError(path, "configuration file not found") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(path, f"not valid TOML: {exc}") from None
+    bad = set(data) - _TOP_KEYS
+    if bad:
+        raise ConfigError(path, f"{sorted(bad)[0]}: unknown section (known: "
+                                f"{sorted(_TOP_KEYS)})")
+    sl = _check_table(data.get("sightline", {}), "sightline", {"name", "output"}, path)
+    name = str(sl.get("name", path.stem))
+    output = path.parent / str(sl.get("output", f"{path.stem}_results"))
+    spectra = data.get("spectrum")
+    if not isinstance(spectra, list) or not spectra:
+        raise ConfigError(path, "spectrum: give at least one [[spectrum]] table")
+    for i, s in enumerate(spectra):
+        _check_table(s, f"spectrum[{i}]", _SPECTRUM_KEYS, path)
+        if not isinstance(s.get("pha"), str):
+            raise ConfigError(path, f"spectrum[{i}].pha: a file name is required")
+        if s.get("range_unit", "keV") not in ("keV", "Angstrom", "angstrom", "AA"):
+            raise ConfigError(path, f"spectrum[{i}].range_unit: use 'keV' or 'Angstrom'")
+        if "range" in s:
+            r = s["range"]
+            flat = r if (len(r) == 2 and not isinstance(r[0], list)) else None
+            pairs = [flat] if flat is not None else r
+            if not all(isinstance(p, list) and len(p) == 2 and
+                       all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in p)
+                       for p in pairs):
+                raise ConfigError(path, f"spectrum[{i}].range: use [lo, hi] or a list of "
+                                        "[lo, hi] pairs of numbers")
+        g = s.get("grouping")
+        if g is not None and g != "file":
+            raise ConfigError(path, f"spectrum[{i}].grouping: only \"file\" is allowed "
+                                    "(or use group_min_counts)")
+    model, components, settings = build_model(data.get("model"), path)
+    cfg = SightlineConfig(
+        path=path, name=name, output=output, spectra=spectra, model=model,
+        components=components, param_settings=settings,
+        fit=_check_table(data.get("fit", {}), "fit",
+                         {"statistic", "method", "chi2_variance", "xnorm_free"}, path),
+        errors=_check_table(data.get("errors", {}), "errors", {"profile", "levels"}, path),
+        mcmc=_check_table(data.get("mcmc", {}), "mcmc",
+                          {"enabled", "walkers", "steps", "burn", "thin", "seed", "processes",
+                           "progress", "priors"}, path),
+        derived=_check_table(data.get("derived", {}), "derived",
+                             {"reference_energy", "reference_unit", "levels"}, path),
+        goodness=_check_table(data.get("goodness", {}), "goodness", {"ppc_draws", "seed"},
+                              path),
+        plots=_check_table(data.get("plots", {}), "plots",
+                           {"enabled", "unit", "window", "display_min_counts", "format"},
+                           path),
+    )
+    if cfg.fit.get("statistic", "cstat") not in ("cstat", "chi2"):
+        raise ConfigError(path, "fit.statistic: use \"cstat\" or \"chi2\"")
+    for lev in cfg.errors.get("levels", []):
+        if not (isinstance(lev, (int, float)) and 0 < lev < 1):
+            raise ConfigError(path, f"errors.levels: {lev!r} is not a probability in (0, 1)")
+    return cfg

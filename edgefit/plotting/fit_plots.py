@@ -1,0 +1,179 @@
+"""Figures of a sightline fit (matplotlib and corner imported inside).
+
+* :func:`plot_spectra` -- each spectrum's data and best-fit model, counts
+  s^-1 keV^-1 (or per Angstrom), with deviance residuals below, in energy
+  or wavelength, optionally zoomed on a window around the edge; groups are
+  merged for display to a minimum number of counts (display only, the fit
+  is not affected).
+* :func:`plot_transmission` -- transmission of each multiplicative
+  component and of their product.
+* :func:`plot_corner` -- corner plot of the MCMC posterior.
+
+Sizes suit print: one-column figures 3.5 in wide or two-column 7 in, fonts
+9--10 pt, labels with units.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .._units import HC_KEV_ANGSTROM
+
+__all__ = ["plot_spectra", "plot_transmission", "plot_corner", "save_all"]
+
+_RC = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8, "xtick.labelsize": 8,
+       "ytick.labelsize": 8, "lines.linewidth": 1.0}
+
+
+def _display_groups(counts, min_counts):
+    """Indices where display bins start so that each holds >= min_counts."""
+    starts = [0]
+    acc = 0.0
+    for i, c in enumerate(counts):
+        if acc >= min_counts:
+            starts.append(i)
+            acc = 0.0
+        acc += c
+    return np.array(starts)
+
+
+def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize=None):
+    """Data, model and residuals of every dataset (one column of panels).
+
+    Parameters
+    ----------
+    unit : {"keV", "Angstrom"}
+    window : (lo, hi), optional
+        Range shown, in ``unit``.
+    display_min_counts : float
+        Adjacent fit groups are merged for display until each has this many
+        counts.
+    """
+    import matplotlib.pyplot as plt
+
+    like = result.likelihood
+    mus = like.source_counts(result.values)
+    n = len(like.datasets)
+    with plt.rc_context(_RC):
+        fig, axes = plt.subplots(2 * n, 1, figsize=figsize or (7.0, 2.6 * n + 0.6),
+                                 sharex=True, squeeze=False,
+                                 gridspec_kw={"height_ratios": [3, 1] * n, "hspace": 0.08})
+        axes = axes[:, 0]
+        wave = unit.lower().startswith("a")
+        for k, (ds, mu) in enumerate(zip(like.datasets, mus)):
+            ax, axr = axes[2 * k], axes[2 * k + 1]
+            total = mu.copy()
+            if ds.has_background:
+                from ..stats import _profiled_background
+
+                total = mu + ds.bkg_ratio * _profiled_background(mu, ds.counts, ds.bkg_counts,
+                                                                 ds.bkg_ratio)
+            st = _display_groups(ds.counts, display_min_counts)
+            cnt = np.add.reduceat(ds.counts, st)
+            mod = np.add.reduceat(total, st)
+            emin = np.minimum.reduceat(ds.group_emin, st)
+            emax = np.maximum.reduceat(ds.group_emax, st)
+            if wave:
+                xlo, xhi = HC_KEV_ANGSTROM / emax, HC_KEV_ANGSTROM / emin
+            else:
+                xlo, xhi = emin, emax
+            width = xhi - xlo
+            x = 0.5 * (xlo + xhi)
+            norm = 1.0 / (ds.exposure * width)
+            ax.errorbar(x, cnt * norm, yerr=np.sqrt(np.maximum(cnt, 1.0)) * norm,
+                        xerr=0.5 * width, fmt="none", ecolor="0.35", elinewidth=0.6,
+                        label="data (simulated)" if ds.spectrum.meta.get("simulated")
+                        else "data")
+            order = np.argsort(x)
+            edges = np.r_[xlo[order], xhi[order][-1]]
+            ax.stairs((mod * norm)[order], edges, color="C3", label="model")
+            from ..stats import deviance_residuals
+
+            res = deviance_residuals(np.maximum(mod, 1e-300), cnt)
+            axr.axhline(0.0, color="0.5", lw=0.6)
+            axr.errorbar(x, res, yerr=1.0, xerr=0.5 * width, fmt="none", ecolor="0.35",
+                         elinewidth=0.6)
+            per = "\u00c5" if wave else "keV"
+            ax.set_ylabel(f"counts s$^{{-1}}$ {per}$^{{-1}}$")
+            axr.set_ylabel("residual\n(deviance)")
+            ax.set_title(ds.label, fontsize=9, loc="left")
+            if k == 0:
+                ax.legend(loc="best", frameon=False)
+            if window is not None:
+                ax.set_xlim(*window)
+        axes[-1].set_xlabel("wavelength (\u00c5)" if wave else "energy (keV)")
+        fig.align_ylabels(axes)
+    return fig
+
+
+def plot_transmission(result, energy_range=None, n=2000, unit="keV", figsize=(3.5, 2.8)):
+    """Transmission of each multiplicative component (and their product) at
+    the best fit, on a fine grid over ``energy_range`` (keV; default the
+    span of the data)."""
+    import matplotlib.pyplot as plt
+
+    from ..models.base import ADDITIVE, EnergyGrid
+
+    if energy_range is None:
+        lo = min(ds.grid.lo[0] for ds in result.datasets)
+        hi = max(ds.grid.hi[-1] for ds in result.datasets)
+    else:
+        lo, hi = energy_range
+    grid = EnergyGrid.linear(lo, hi, n)
+    values = result.values
+    wave = unit.lower().startswith("a")
+    x = HC_KEV_ANGSTROM / grid.mid if wave else grid.mid
+    with plt.rc_context(_RC):
+        fig, ax = plt.subplots(figsize=figsize, constrained_layout=True)
+        prod = np.ones(len(grid))
+        for comp in result.model.components():
+            if comp.kind == ADDITIVE:
+                continue
+            t = comp.evaluate(grid, values)
+            prod = prod * t
+            ax.plot(x, t, label=f"{comp.name} ({type(comp).__name__})")
+        ax.plot(x, prod, color="k", lw=1.4, label="all absorbers")
+        ax.set_xlabel("wavelength (\u00c5)" if wave else "energy (keV)")
+        ax.set_ylabel("transmission")
+        ax.legend(frameon=False)
+    return fig
+
+
+def plot_corner(result, names=None, **kwargs):
+    """Corner plot of the MCMC posterior (needs ``result.mcmc``); labels
+    carry each parameter's unit."""
+    try:
+        import corner
+    except ImportError as exc:  # pragma: no cover - corner is a dependency
+        raise ImportError("plot_corner needs the 'corner' package: pip install corner") from exc
+    if result.mcmc is None:
+        raise ValueError("no MCMC samples: run edgefit.inference.run_mcmc first")
+    names = names or result.mcmc.names
+    samples = result.mcmc.flat_samples(names)
+    labels = [f"{n}\n[{result.unit(n)}]" if result.unit(n) else n for n in names]
+    kw = dict(labels=labels, quantiles=[0.1585, 0.5, 0.8415], show_titles=True,
+              title_fmt=".3g", label_kwargs={"fontsize": 8}, title_kwargs={"fontsize": 8})
+    kw.update(kwargs)
+    return corner.corner(samples, **kw)
+
+
+def save_all(result, folder, unit="keV", window=None, display_min_counts=20, fmt="png"):
+    """Write spectra, transmission and (with MCMC) corner figures; returns
+    their paths."""
+    from pathlib import Path
+
+    import matplotlib.pyplot as plt
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    paths = []
+    figs = [("spectra", plot_spectra(result, unit=unit, window=window,
+                                     display_min_counts=display_min_counts)),
+            ("transmission", plot_transmission(result, unit=unit))]
+    if result.mcmc is not None:
+        figs.append(("corner", plot_corner(result)))
+    for name, fig in figs:
+        p = folder / f"{name}.{fmt}"
+        fig.savefig(p, dpi=150)
+        plt.close(fig)
+        paths.append(p)
+    return paths
