@@ -137,6 +137,12 @@ class Material:
         return optical.refractive_index(self._comp, self.density, energy_kev,
                                         self.corrections)
 
+    def m_minus_1(self, energy_kev):
+        """m − 1 = −δ + iβ computed directly (no rounding of 1 − δ), as
+        :func:`edgefit.dust.mie.mie_efficiencies` accepts it."""
+        d, b = self.delta_beta(energy_kev)
+        return -np.asarray(d) + 1j * np.asarray(b)
+
     def with_corrections(self, *corrections, name=None) -> "Material":
         """A copy with laboratory near-edge corrections added."""
         return Material(name or self.name, self.formula, self.density, self.note,

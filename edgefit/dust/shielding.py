@@ -1,0 +1,98 @@
+"""Self-shielding of an edge by grains, as a function of grain size.
+
+Atoms deep inside a large grain see a beam already attenuated by the atoms
+in front of them, so the grain's absorption edge is shallower than that of
+the same atoms spread out as gas (e.g. Wilms, Allen & McCray 2000, ApJ 542,
+914, section 2.2; Draine 2003, ApJ 598, 1026).  For a grain of radius a
+holding N_Z(a) atoms of the edge element Z, the self-shielding ratio is
+
+.. math::
+
+    R_{abs}(a) = \\frac{\\sigma_{abs}(E_+, a) - \\sigma_{abs}(E_-, a)}
+                       {\\sum_j N_j(a)\\,[\\sigma_j(E_+) - \\sigma_j(E_-)]},
+
+with E± = E_edge ± ΔE just outside the edge, N_j(a) the atoms of element j
+in the grain and σ_j the unshielded atomic cross sections from the same f2
+(:func:`edgefit.physics.atomic.photoabsorption`).  The denominator is the
+jump of the same atoms spread out as gas: N_Z Δσ_Z, plus the small
+decline of the other atoms' absorption over 2ΔE (without it R would not
+tend to 1 for small grains).  R_ext uses the extinction cross section
+instead.  R → 1 for small grains
+(no shielding) and falls as the grain becomes optically thick at the edge.
+"""
+from __future__ import annotations
+
+import numpy as np
+from astropy import units as u
+from astropy.table import Table
+
+from .._units import HC_KEV_ANGSTROM
+from ..physics import atomic
+from .materials import get_material
+from .sizes import SizeGrid
+
+__all__ = ["shielding_table"]
+
+
+def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
+                    offset_kev=0.02, method="auto", rtol=None) -> Table:
+    """Self-shielding ratios of one material's edge against grain radius.
+
+    Parameters
+    ----------
+    material : str or Material
+    element : str
+        Edge element (must be in the material).
+    sizes : array_like or SizeGrid, optional
+        Radii in µm (default 60 radii from 0.001 to 5 µm).
+    edge : str
+        Edge name (``"K"``, ``"L3"``...), energy from
+        :func:`edgefit.physics.atomic.edge_energy`.
+    offset_kev : float
+        ΔE: the ratios compare E_edge ± ΔE (keV).
+    method, rtol :
+        Passed to :func:`edgefit.dust.efficiencies.efficiencies`.
+
+    Returns
+    -------
+    astropy.table.Table
+        Columns ``radius`` (µm), ``atoms_per_grain``, ``x_edge`` (size
+        parameter 2πa/λ at E+), ``tau_grain`` (4πβa/λ·2, optical depth of a
+        grain diameter at E+), ``ratio_abs`` and ``ratio_ext``
+        (dimensionless); meta holds material, element, edge energies.
+    """
+    from .tables import q_efficiencies
+
+    material = get_material(material)
+    if sizes is None:
+        a = np.geomspace(0.001, 5.0, 60)
+    else:
+        a = sizes.a if isinstance(sizes, SizeGrid) else np.atleast_1d(np.asarray(sizes, float))
+    e0 = atomic.edge_energy(element, edge)
+    energies = np.array([e0 - offset_kev, e0 + offset_kev])
+    mm1 = material.m_minus_1(energies)
+    area = np.pi * (a * 1e-4) ** 2
+    sig_abs, sig_ext = [], []
+    for e, mi in zip(energies, mm1):
+        x = 2 * np.pi * a * 1e4 / (HC_KEV_ANGSTROM / e)
+        qext, qsca, qabs, _ = q_efficiencies(mi, x, method, rtol)
+        sig_abs.append(qabs * area)
+        sig_ext.append(qext * area)
+    n_atoms = material.atoms_per_grain(element, a)
+    atom_jump = sum(c / material.count(element) * np.diff(atomic.photoabsorption(el, energies))[0]
+                    for el, c in material.composition.items())
+    ratio_abs = (sig_abs[1] - sig_abs[0]) / (n_atoms * atom_jump)
+    ratio_ext = (sig_ext[1] - sig_ext[0]) / (n_atoms * atom_jump)
+    lam_um = HC_KEV_ANGSTROM / energies[1] * 1e-4
+    table = Table()
+    table["radius"] = a * u.um
+    table["atoms_per_grain"] = n_atoms
+    table["x_edge"] = 2 * np.pi * a / lam_um
+    table["tau_grain"] = 8 * np.pi * mm1[1].imag * a / lam_um
+    table["ratio_abs"] = ratio_abs
+    table["ratio_ext"] = ratio_ext
+    table.meta.update({"material": material.name, "formula": material.formula,
+                       "density_g_cm3": material.density, "element": element, "edge": edge,
+                       "edge_kev": e0, "e_minus_kev": float(energies[0]),
+                       "e_plus_kev": float(energies[1])})
+    return table

@@ -1,0 +1,330 @@
+"""The dust edge: transmission of grains of one material across an edge.
+
+Transmission exp(−τ_dust(E)) with
+
+.. math::
+
+    \\tau_{dust}(E) = N_{Z,dust}\\left[
+        \\frac{\\langle\\sigma_{abs}\\rangle + (1 - f_{in})\\langle\\sigma_{sca}\\rangle}
+             {\\langle N_Z(a)\\rangle}
+        - \\sum_{Y \\neq Z} \\frac{c_Y}{c_Z}\\, \\sigma_Y(E) \\right],
+
+where ⟨·⟩ averages over the normalised size distribution (weighted sums
+over a cached per-size table, :mod:`edgefit.dust.tables`),
+⟨N_Z(a)⟩ = (4π/3) ⟨a³⟩ ρ N_A c_Z / M is the mean number of atoms of the edge
+element Z per grain, c_Y atoms of element Y per formula unit, σ_Y the
+unshielded atomic photoabsorption (:func:`edgefit.physics.atomic.photoabsorption`,
+from the same f2 as the optical constants) and f_in the fraction of
+scattered light kept in the extraction region (0: full extinction, the
+usual case for narrow grating extractions; 1: absorption only).
+
+Each element counted once
+-------------------------
+A silicate grain absorbs through its O, Mg and Fe as well as its Si, and
+scatters as a whole; the Mie cross sections contain all of that.  The
+intended model is::
+
+    SmoothISM(exclude=[Z]) * GasEdge(Z) * DustEdge(material, element=Z)
+
+where the smooth interstellar component counts every atom of the other
+elements (O, Mg, Fe ...) as unshielded atoms at the abundance table's
+value, and the gas edge counts the gas-phase atoms of Z.  So by default
+(``count_once=True``) the dust edge subtracts the unshielded atomic
+absorption of its own other atoms, N_Y,dust σ_Y(E) with
+N_Y,dust = N_Z,dust c_Y / c_Z -- which the smooth component already counts
+-- and the product counts each atom once: the grain's Z atoms with their
+self-shielding, its other atoms by the smooth component plus the
+(shielding and scattering) correction carried here.  With large grains
+that correction can be negative below the edge (shielded O absorbs less
+than free O).  Pass ``count_once=False`` when no smooth component is used.
+
+Parameters of the component (full names ``<name>_<param>``)
+-----------------------------------------------------------
+``ndust``  column of the edge element in grains, 1e16 cm^-2;
+size-distribution parameters of the chosen family
+(:data:`edgefit.dust.sizes.FAMILIES`: ``powerlaw`` amin/amax/index,
+``single`` size, ``lognormal`` center/width/amin/amax, ``cutoff``
+amin/index/atrans/acut/amax; radii in µm; none for a user table);
+``shift`` a shift of the dust cross sections in energy (eV; a chemical
+shift of the edge in the solid; the whole dust τ moves rigidly);
+``fin`` the kept fraction of scattered light (ignored, and held fixed, when
+a :class:`~edgefit.dust.halo.HaloGeometry` is given: then f_in(E, a)
+follows from the Rayleigh–Gans halo of each grain size).
+
+The transmission is evaluated at bin centres.  The tables cover the
+element's default edge region (:data:`edgefit.dust.tables.EDGE_REGIONS`)
+extended to the fit grid when needed (rounded outward to 0.05 keV; built
+once and cached on disk).
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .._units import as_kev
+from ..errors import ModelError, PhysicsDataError
+from ..physics import atomic
+from .base import MULTIPLICATIVE, Component, EnergyGrid, Param
+
+__all__ = ["DustEdge"]
+
+_EDGE_OFFSET_KEV = 0.02   # "just below/above the edge": E_edge -/+ 20 eV
+
+
+def _tables():
+    from ..dust import tables
+    return tables
+
+
+class DustEdge(Component):
+    """Dust edge of one grain material (registry name ``"dust_edge"``).
+
+    Parameters
+    ----------
+    name : str, optional
+        Component name (default ``"dust"``).
+    material : str or Material
+        Built-in material name (``"olivine"``, ``"pyroxene"`` ...) or a
+        :class:`~edgefit.dust.materials.Material`.
+    element : str
+        The edge element Z whose dust column is the parameter ``ndust``.
+    sizes : str or SizeDistribution
+        Family name (``"powerlaw"`` -- MRN defaults --, ``"single"``,
+        ``"lognormal"``, ``"cutoff"``) whose parameters become fit
+        parameters, or a fixed :class:`~edgefit.dust.sizes.TabulatedSizes`.
+    count_once : bool
+        Subtract the grain's other atoms' unshielded absorption (see the
+        module docstring).  Default True.
+    halo : HaloGeometry, optional
+        Compute f_in from the extraction geometry instead of the ``fin``
+        parameter.
+    energy_range : (float, float), optional
+        Table energy range in keV (default: the element's edge region).
+    table : DustTable, optional
+        Use this table instead of the cached default one (it must cover
+        the fit grid).
+    size_grid : SizeGrid or array, optional
+        Radii of the table (default 160 radii, 0.001-5 µm).
+    method, rtol :
+        Efficiency method and tolerance for building tables.
+    cache : bool
+        Store built tables on disk (default True).
+    fixed : iterable of str
+        Parameters held fixed by default.
+    **values
+        Initial parameter values (numbers in their units or Quantities).
+    """
+
+    kind = MULTIPLICATIVE
+    default_name = "dust"
+    registry_name = "dust_edge"
+    _BASE_PARAMS = (
+        Param("ndust", 10.0, 0.0, 1.0e5, "1e16 cm-2",
+              "column density of the edge element locked in grains"),
+    )
+    _TAIL_PARAMS = (
+        Param("shift", 0.0, -20.0, 20.0, "eV",
+              "energy shift of the dust cross sections (chemical shift)", vary=False),
+        Param("fin", 0.0, 0.0, 1.0, "",
+              "fraction of scattered light kept in the extraction region", vary=False),
+    )
+    params = _BASE_PARAMS + tuple(Param(*p) for p in (
+        ("amin", 0.005, 0.001, 1.0, "um", "smallest grain radius", False),
+        ("amax", 0.25, 0.006, 5.0, "um", "largest grain radius", True),
+        ("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False),
+    )) + _TAIL_PARAMS
+
+    def __init__(self, name=None, *, material="olivine", element="Si", sizes="powerlaw",
+                 count_once=True, halo=None, energy_range=None, table=None, size_grid=None,
+                 method="auto", rtol=None, cache=True, fixed=(), **values):
+        from ..dust.materials import get_material
+        from ..dust.sizes import FAMILIES, SizeDistribution, SizeGrid
+
+        self.material = get_material(material)
+        self.element = atomic.element_symbol(element)
+        self.material.count(self.element)  # error if the material lacks it
+        if isinstance(sizes, SizeDistribution):
+            if sizes.PARAMS:
+                raise ModelError("pass a size-distribution family by name to fit its "
+                                 "parameters, or a TabulatedSizes for a fixed table")
+            self.family, self.fixed_distribution = "table", sizes
+            dist_params = ()
+        else:
+            if sizes not in FAMILIES:
+                raise ModelError(f"unknown size distribution {sizes!r}; have "
+                                 f"{', '.join(FAMILIES)} or a TabulatedSizes")
+            self.family, self.fixed_distribution = sizes, None
+            dist_params = tuple(Param(*p) for p in FAMILIES[sizes].PARAMS)
+        self.params = self._BASE_PARAMS + dist_params + self._TAIL_PARAMS
+        self._dist_names = tuple(p.name for p in dist_params)
+        self.count_once = bool(count_once)
+        self.halo = halo
+        self.energy_range = (None if energy_range is None
+                             else tuple(float(as_kev(v)) for v in energy_range))
+        self.table = table
+        if size_grid is not None and not isinstance(size_grid, SizeGrid):
+            size_grid = SizeGrid(size_grid)
+        self.size_grid = table.sizes if table is not None else size_grid
+        self.method, self.rtol, self.cache = method, rtol, bool(cache)
+        if halo is not None:
+            fixed = set(fixed) | {"fin"}
+        super().__init__(name, fixed=fixed, **values)
+        self._tables: dict = {}
+        if self.size_grid is not None:
+            a = self.size_grid.a
+            self.params = tuple(
+                Param(p.name, p.default, max(p.min, a[0]), min(p.max, a[-1]), p.unit,
+                      p.description, p.vary) if p.unit == "um" else p for p in self.params)
+
+    # -- pickling: drop in-memory tables (they reload from the disk cache) --
+    def __getstate__(self):
+        state = super().__getstate__()
+        state["_tables"] = {}
+        return state
+
+    # -- tables ----------------------------------------------------------
+    def _region(self):
+        if self.energy_range is not None:
+            return self.energy_range
+        _, lo, hi = _tables().region_for(self.element)
+        return lo, hi
+
+    def _table_for(self, lo, hi):
+        """(table, table-level precomputation) covering lo..hi keV."""
+        if self.table is not None:
+            if not self.table.covers(lo, hi):
+                raise ModelError(
+                    f"{self.name}: the given dust table covers "
+                    f"{self.table.energy_kev[0]:.4g}-{self.table.energy_kev[-1]:.4g} keV but "
+                    f"{lo:.4g}-{hi:.4g} keV is needed")
+            return self.table, self._table_pre(self.table)
+        for (tlo, thi), item in self._tables.items():
+            if tlo <= lo and thi >= hi:
+                return item
+        rlo, rhi = self._region()
+        tlo = min(rlo, math.floor(lo / 0.05) * 0.05) if lo < rlo else rlo
+        thi = max(rhi, math.ceil(hi / 0.05) * 0.05) if hi > rhi else rhi
+        tab = _tables()
+        energy = tab.edge_energy_grid(self.material, max(tlo, 0.05), thi)
+        table = tab.load_or_build(self.material, energy, self.size_grid, method=self.method,
+                                  rtol=self.rtol, cache=self.cache)
+        item = (table, self._table_pre(table))
+        self._tables[(tlo, thi)] = item
+        return item
+
+    def _table_pre(self, table):
+        """Grid-independent arrays of one table: effective σ per size and the
+        other atoms' unshielded absorption per edge atom."""
+        e = table.energy_kev
+        if self.halo is not None:
+            f = self.halo.fraction(e[:, None], table.sizes.a[None, :])
+            s_sca_out = (1.0 - f) * table.sigma_sca
+        else:
+            s_sca_out = None
+        other = np.zeros_like(e)
+        cz = self.material.count(self.element)
+        for el, c in self.material.composition.items():
+            if el != self.element:
+                other = other + (c / cz) * atomic.photoabsorption(el, e)
+        per_cm3 = self.material.atoms_per_cm3(self.element)
+        return {"energy": e, "abs": table.sigma_abs, "sca": table.sigma_sca,
+                "sca_out": s_sca_out, "other_atoms": other,
+                "other": other if self.count_once else np.zeros_like(e), "a3": table.sizes.a ** 3,
+                "atoms_per_um3": per_cm3 * 1e-12}
+
+    # -- distribution ------------------------------------------------------
+    def distribution(self, **values):
+        """The size distribution for parameter ``values`` (short names)."""
+        from ..dust.sizes import make_distribution
+
+        if self.fixed_distribution is not None:
+            return self.fixed_distribution
+        vals = self._merged(values)
+        try:
+            return make_distribution(self.family, **{k: vals[k] for k in self._dist_names})
+        except PhysicsDataError as exc:
+            raise ModelError(f"{self.name}: {exc}") from exc
+
+    def _per_atom(self, table, pre, vals):
+        """(σ_abs, σ_sca, σ_sca lost) per edge atom in grains, cm², on the
+        table energies, and the mean atoms per grain."""
+        try:
+            w = table.sizes.weights(self.distribution(**vals))
+        except PhysicsDataError as exc:
+            raise ModelError(f"{self.name}: {exc}") from exc
+        atoms = 4.0 * math.pi / 3.0 * float(pre["a3"] @ w) * pre["atoms_per_um3"]
+        s_abs = pre["abs"] @ w / atoms
+        s_sca = pre["sca"] @ w / atoms
+        if pre["sca_out"] is not None:
+            lost = pre["sca_out"] @ w / atoms
+        else:
+            lost = (1.0 - vals["fin"]) * s_sca
+        return s_abs, s_sca, lost, atoms
+
+    def _tau_table(self, table, pre, vals):
+        s_abs, _, lost, _ = self._per_atom(table, pre, vals)
+        return vals["ndust"] * 1e16 * (s_abs + lost - pre["other"])
+
+    # -- Component interface ---------------------------------------------
+    def precompute(self, grid: EnergyGrid):
+        margin = 0.025  # room for the shift parameter (+-20 eV)
+        table, pre = self._table_for(max(grid.lo[0] - margin, 0.05), grid.hi[-1] + margin)
+        return {"table": table, "pre": pre, "x": grid.mid}
+
+    def _evaluate(self, grid, pre, **values):
+        tau_t = self._tau_table(pre["table"], pre["pre"], values)
+        tau = np.interp(pre["x"] - values["shift"] * 1e-3, pre["pre"]["energy"], tau_t)
+        return np.exp(-tau)
+
+    def optical_depth(self, energy_kev, **values):
+        """τ_dust at ``energy_kev`` (keV or Quantity) as used in the
+        transmission (including the count-once subtraction when on)."""
+        vals = self._merged(values)
+        e = np.asarray(as_kev(energy_kev), dtype=float)
+        lo, hi = float(np.min(e)), float(np.max(e))
+        table, pre = self._table_for(lo - 0.025, hi + 0.025)
+        tau_t = self._tau_table(table, pre, vals)
+        out = np.interp(e - vals["shift"] * 1e-3, pre["energy"], tau_t)
+        return float(out) if out.ndim == 0 else out
+
+    def edge_energy(self) -> float:
+        """Tabulated edge energy (keV) of the edge element (K, or L3 for
+        Fe-group L edges per the default regions)."""
+        edge = _tables().region_for(self.element)[0]
+        return atomic.edge_energy(self.element, edge)
+
+    def derived(self, **values):
+        """N_Z in dust (cm^-2), grain column (cm^-2), dust mass column
+        (g cm^-2), the dust optical depth 20 eV above the edge and its jump
+        across the edge (±20 eV), and the self-shielding ratio of the
+        distribution: the jump of ⟨σ_abs⟩ per Z atom over the unshielded
+        jump of the same atoms, σ_Z(E+) − σ_Z(E−) plus the other atoms'
+        (small) change, as in :mod:`edgefit.dust.shielding`."""
+        vals = self._merged(values)
+        e0 = self.edge_energy() + vals["shift"] * 1e-3
+        e_lo, e_hi = e0 - _EDGE_OFFSET_KEV, e0 + _EDGE_OFFSET_KEV
+        table, pre = self._table_for(e_lo - 0.025, e_hi + 0.025)
+        s_abs, s_sca, lost, atoms = self._per_atom(table, pre, vals)
+        n = vals["ndust"] * 1e16
+        tau_t = n * (s_abs + lost - pre["other"])
+        eq = np.array([e_lo, e_hi]) - vals["shift"] * 1e-3
+        tau_lo, tau_hi = np.interp(eq, pre["energy"], tau_t)
+        abs_lo, abs_hi = np.interp(eq, pre["energy"], s_abs)
+        sig_lo, sig_hi = atomic.photoabsorption(self.element, eq) + np.interp(
+            eq, pre["energy"], pre["other_atoms"])
+        mass = n * self.material.formula_mass / (atomic.AVOGADRO *
+                                                 self.material.count(self.element))
+        return {
+            "ndust_cm2": (n, "cm-2"),
+            "grain_column": (n / atoms, "cm-2"),
+            "dust_mass_column": (mass, "g cm-2"),
+            "tau_above_edge": (float(tau_hi), ""),
+            "tau_edge_jump": (float(tau_hi - tau_lo), ""),
+            "shielding_ratio": (float((abs_hi - abs_lo) / (sig_hi - sig_lo)), ""),
+        }
+
+    def __repr__(self):
+        vals = ", ".join(f"{k}={v:.4g}" for k, v in self.values.items())
+        return (f"DustEdge({self.name!r}, {self.material.name}, {self.element}, "
+                f"{self.family}, {vals})")
