@@ -11,16 +11,17 @@ each component of the model:
   reference energy.  The reference is, in order: a value given by the
   caller (one energy for all, or per component name); the component's
   ``reference_energy_kev`` attribute; ``REFERENCE_FACTOR`` times its
-  ``edge_energy_kev`` (or ``edge_kev``) attribute, i.e. just above the
+  ``edge_energy_kev`` / ``edge_kev`` attribute or ``edge_energy()`` method, i.e. just above the
   edge.  Components with none of these are skipped.
 * ``<component>_<key>``: every entry of the component's
   ``derived(**values)`` dict (e.g. element column, grain column density,
   dust mass column, self-shielding ratio, N_H), with the unit it states.
 * ``depletion_<element>`` = N_dust / (N_gas + N_dust) for every element
   that has both a gas-phase and a dust component.  A component takes part
-  when it has attributes ``element`` (e.g. "Si") and ``phase`` ("gas" or
-  "dust") and its ``derived`` dict has an ``element_column`` entry in
-  cm^-2; several components of one phase add up.
+  when it has an ``element`` attribute (e.g. "Si"), a phase ("gas" or
+  "dust": its ``phase`` attribute, else guessed from its registry name)
+  and its ``derived`` dict has an element column in cm^-2 (a key in
+  :data:`COLUMN_KEYS`); several components of one phase add up.
 """
 from __future__ import annotations
 
@@ -109,6 +110,24 @@ class DerivedSummary:
         return out
 
 
+#: Keys of ``derived()`` entries holding the element column in cm^-2.
+COLUMN_KEYS = ("element_column", "col_cm2", "ndust_cm2")
+
+
+def _phase(comp):
+    """'gas', 'dust' or None: the ``phase`` attribute, else guessed from the
+    registry name (``gas_edge`` -> gas, anything with 'dust' -> dust)."""
+    phase = getattr(comp, "phase", None)
+    if phase:
+        return phase
+    reg = getattr(comp, "registry_name", None) or ""
+    if "dust" in reg:
+        return "dust"
+    if reg.startswith("gas"):
+        return "gas"
+    return None
+
+
 def _reference_energy(comp, reference_energy):
     if isinstance(reference_energy, dict):
         if comp.name in reference_energy:
@@ -119,8 +138,13 @@ def _reference_energy(comp, reference_energy):
         val = getattr(comp, attr, None)
         if val is not None:
             return float(val)
-    for attr in ("edge_energy_kev", "edge_kev"):
+    for attr in ("edge_energy_kev", "edge_kev", "edge_energy"):
         val = getattr(comp, attr, None)
+        if callable(val):
+            try:
+                val = val()
+            except TypeError:
+                val = None
         if val is not None:
             return REFERENCE_FACTOR * float(val)
     return None
@@ -146,10 +170,11 @@ def _evaluate_all(model, values, refs):
         for key, (val, unit) in der.items():
             out[f"{comp.name}_{key}"] = (float(val), unit, f"{type(comp).__name__}.{key}")
         element = getattr(comp, "element", None)
-        phase = getattr(comp, "phase", None)
-        if element and phase in ("gas", "dust") and "element_column" in der:
+        phase = _phase(comp)
+        col_key = next((k for k in COLUMN_KEYS if k in der), None)
+        if element and phase in ("gas", "dust") and col_key:
             columns.setdefault(element, {}).setdefault(phase, 0.0)
-            columns[element][phase] += float(der["element_column"][0])
+            columns[element][phase] += float(der[col_key][0])
     for element, by_phase in columns.items():
         if "gas" in by_phase and "dust" in by_phase:
             tot = by_phase["gas"] + by_phase["dust"]
