@@ -1,0 +1,185 @@
+"""Absorption components (edgefit.models.absorption): generic checks looped
+over the components, and physics checks against outside references.
+
+References:
+* Morrison & McCammon 1983, ApJ 270, 119, Table 2: sigma(1 keV) = 2.42e-22 cm^2
+  per H (their abundances, Anders & Ebihara 1982).  We use Anders & Grevesse
+  1989, the closest table we carry; tolerance 10 %, MM83's stated accuracy.
+* Beer-Lambert: tau linear in column (thin and thick), exact to 1e-12.
+* Thin-line equivalent width W = pi r_e N f lambda^2 (Draine 2011 eq. 9.15) -- 0.5 %.
+"""
+import pickle
+
+import numpy as np
+import pytest
+
+from edgefit.errors import ModelError, PhysicsDataError
+from edgefit.models.absorption import GasEdge, IonLines, SmoothISM
+from edgefit.models.base import COMPONENTS, EnergyGrid
+from edgefit.physics import atomic, hydrogen
+from edgefit.physics import lines as L
+
+GRID = EnergyGrid.linear(0.5, 2.5, 3000)
+
+
+def _ion_zero():
+    return {f"logn_{k}": 0.0 for k in IonLines().ions}
+
+
+# (factory, zero-column values, huge-column values)
+CASES = {
+    "smooth_ism": (lambda: SmoothISM(exclude=("Si",)), {"nh": 0.0}, {"nh": 1e3}),
+    "gas_edge": (lambda: GasEdge(element="Si", lines=[dict(energy=1.8385, strength=2.0,
+                                                           fwhm=0.6)]),
+                 {"col": 0.0}, {"col": 1e7}),
+    "ion_lines": (lambda: IonLines(), _ion_zero(), {f"logn_{k}": 21.0 for k in IonLines().ions}),
+}
+
+
+def test_all_our_components_registered():
+    for key in CASES:
+        assert key in COMPONENTS
+
+
+@pytest.mark.parametrize("key", sorted(CASES))
+def test_generic_behaviour(key):
+    make, zero, huge = CASES[key]
+    comp = make()
+    t = comp(GRID)
+    assert t.shape == (len(GRID),)
+    assert np.all(np.isfinite(t)) and np.all(t >= 0) and np.all(t <= 1.0)
+    assert np.any(t < 1.0)
+    # transmission = 1 at zero column
+    t0 = comp.evaluate(GRID, {f"{comp.name}_{k}": v for k, v in zero.items()})
+    np.testing.assert_array_equal(t0, 1.0)
+    # huge column: finite, no warnings (pytest turns RuntimeWarning into errors)
+    th = comp.evaluate(GRID, {f"{comp.name}_{k}": v for k, v in huge.items()})
+    assert np.all(np.isfinite(th)) and th.min() == 0.0
+    # picklable, same numbers after the round trip
+    clone = pickle.loads(pickle.dumps(comp))
+    np.testing.assert_array_equal(clone(GRID), t)
+    # optical depth: scalar in -> scalar out, array in -> array out, consistent
+    tau = comp.optical_depth(1.85)
+    assert isinstance(tau, float) and tau >= 0
+    taus = comp.optical_depth(np.array([1.0, 1.85]))
+    assert taus.shape == (2,) and taus[1] == pytest.approx(tau, rel=1e-12)
+    # derived quantities are finite numbers with units
+    for name, (val, unit) in comp.derived().items():
+        assert np.isfinite(val) and isinstance(unit, str)
+    # precompute cached per grid
+    comp(GRID)
+    assert GRID.key in comp._cache
+
+
+def test_tau_1e3_gives_zero_not_nan():
+    ism = SmoothISM(exclude=("Si",))
+    tau1 = ism.optical_depth(GRID.mid, nh=1.0)
+    nh = 1e3 / tau1.min()   # tau >= 1e3 in every bin
+    t = ism.evaluate(GRID, {"ism_nh": nh})
+    assert np.all(np.isfinite(t)) and t.max() == 0.0
+
+
+def test_morrison_mccammon_1kev():
+    ism = SmoothISM(abundances="angr89", mol_frac=0.0)
+    assert ism.sigma_per_h(1.0) == pytest.approx(2.42e-22, rel=0.10)
+    # and with the MM83 Table 2 polynomial at 0.9 and 1.2 keV (same interval)
+    for e in (0.9, 1.2):
+        mm = (120.6 + 169.3 * e - 47.7 * e ** 2) / e ** 3 * 1e-24
+        assert ism.sigma_per_h(e) == pytest.approx(mm, rel=0.10)
+
+
+def test_smooth_ism_beer_lambert_and_options():
+    ism = SmoothISM(abundances="wilms00", mol_frac=0.0)
+    t1 = ism.evaluate(GRID, {"ism_nh": 0.3})
+    t2 = ism.evaluate(GRID, {"ism_nh": 0.6})
+    np.testing.assert_allclose(t2, t1 ** 2, rtol=1e-12)
+    # tau from optical_depth matches the evaluated transmission at bin centres
+    np.testing.assert_allclose(np.exp(-ism.optical_depth(GRID.mid, nh=0.3)), t1, rtol=1e-12)
+    # excluding Si removes exactly N_H A_Si sigma_Si
+    ex = SmoothISM(abundances="wilms00", mol_frac=0.0, exclude=("Si",))
+    from edgefit.physics.abundances import abundance
+    diff = ism.sigma_per_h(1.9) - ex.sigma_per_h(1.9)
+    assert diff == pytest.approx(abundance("Si", "wilms00") * atomic.photoabsorption("Si", 1.9),
+                                 rel=1e-10)
+    # depletion keeps only the gas fraction (Wilms Table 2: Si 0.1)
+    dep = SmoothISM(abundances="wilms00", mol_frac=0.0, depletion="wilms00_gas")
+    assert ism.sigma_per_h(1.9) - dep.sigma_per_h(1.9) > 0.8 * diff
+    # molecular hydrogen: per H nucleus sigma(H2)/2 = 1.425 sigma(HI) (Wilms 2000, from memory)
+    d_mol = ism.sigma_per_h(1.0, mol_frac=1.0) - ism.sigma_per_h(1.0, mol_frac=0.0)
+    assert d_mol == pytest.approx(0.425 * hydrogen.sigma_hi(1.0), rel=1e-10)
+    d = ism.derived(nh=2.0, mol_frac=0.4)
+    assert d["nh_cm2"][0] == 2e22 and d["n_h2_cm2"][0] == pytest.approx(4e21)
+    with pytest.raises(PhysicsDataError):
+        SmoothISM(abundances="nosuch")
+    with pytest.raises(ModelError):
+        SmoothISM(exclude=("H",))
+
+
+def test_smooth_ism_outside_table_range():
+    with pytest.raises(PhysicsDataError):
+        SmoothISM()(EnergyGrid.linear(10.0, 20.0, 10))
+
+
+def test_gas_edge_column_shift_and_derived():
+    gas = GasEdge(element="Si", col=30.0)
+    assert gas.name == "gas_si"
+    # Beer-Lambert with the atomic cross section at bin centres
+    t = gas(GRID)
+    np.testing.assert_allclose(t, np.exp(-30e16 * atomic.photoabsorption("Si", GRID.mid)),
+                               rtol=1e-12)
+    # a +5 eV shift moves the edge: tau(E) with shift == tau(E - 5 eV) without
+    e = np.array([1.80, 1.845, 1.86])
+    np.testing.assert_allclose(gas.optical_depth(e, shift=5.0),
+                               gas.optical_depth(e - 0.005, shift=0.0), rtol=1e-12)
+    ts = gas.evaluate(GRID, {"gas_si_shift": 5.0})
+    assert np.all(np.isfinite(ts)) and not np.allclose(ts, t)
+    d = gas.derived()
+    assert d["col_cm2"][0] == 3e17
+    assert d["edge_energy"][0] == pytest.approx(1.839)
+    # Si K jump ratio (xraydb/Elam jump_ratio 10.37 for Si K): 8-12 across +-1 %
+    assert 8 < d["tau_above"][0] / d["tau_below"][0] < 12
+    with pytest.raises(ModelError):
+        GasEdge(element="Si", lines=[dict(centre=1.8)])
+    # other edges named in the brief exist
+    for el, edge in [("Mg", "K"), ("Fe", "L3"), ("Fe", "L2"), ("O", "K"), ("Ne", "K")]:
+        g = GasEdge(element=el, edge=edge)
+        assert 0.5 < g.edge_kev < 1.4
+
+
+def test_gas_edge_resonance_line_equivalent_width():
+    # Lorentzian line of integrated cross section S per atom: thin EW = N S (energy units)
+    grid = EnergyGrid.linear(1.80, 1.88, 400)  # 0.2 eV bins
+    n16, s_mb_ev = 1e-3, 2.0                   # N = 1e13 cm^-2: thin line
+    gas = GasEdge(element="Si", col=n16, lines=[dict(energy=1.8385, strength=s_mb_ev, fwhm=0.6)])
+    bare = GasEdge(element="Si", col=n16)
+    w = np.sum((1 - gas(grid) / bare(grid)) * grid.width) * 1e3   # eV
+    assert w == pytest.approx(n16 * 1e16 * s_mb_ev * 1e-18, rel=0.01)  # 1 %: Lorentz wings cut at grid ends
+
+
+def test_ion_lines_equivalent_width_and_velocity():
+    grid = EnergyGrid.linear(1.95, 2.05, 500)  # 0.2 eV bins, narrower than nothing in particular
+    zero = {f"logn_{k}": 0.0 for k in IonLines().ions}
+    vals = dict(zero, logn_si14=12.0, b=50.0, v=0.0)
+    ions = IonLines(**vals)
+    t = ions(grid)
+    w_kev = np.sum((1 - t) * grid.width)
+    w_ang = sum(L.thin_equivalent_width(1e12, ln.f, ln.wavelength) for ln in L.ion_lines("si14"))
+    lam = L.ion_lines("si14")[0].wavelength
+    assert w_kev * lam ** 2 / 12.398419843320026 == pytest.approx(w_ang, rel=0.005)
+    # velocity: +1000 km/s moves the absorption minimum to lambda (1 + v/c)
+    t_v = ions.evaluate(grid, {"ions_v": 1000.0, "ions_logn_si14": 16.0})
+    e_min = grid.mid[np.argmin(t_v)]
+    e_exp = L.ion_lines("si14")[0].energy / (1 + 1000.0 / L.SPEED_OF_LIGHT_KMS)
+    assert abs(e_min - e_exp) < 2 * grid.width[0]
+    sub = IonLines(ions=["Si XIV", "si13"])
+    assert [p.name for p in sub.params] == ["logn_si14", "logn_si13", "b", "v"]
+    assert sub.derived(logn_si14=15.0)["n_si14_cm2"][0] == pytest.approx(1e15)
+
+
+def test_composition_and_quantity_inputs():
+    from astropy import units as u
+    model = SmoothISM(exclude=("Si",)) * GasEdge(element="Si") * IonLines(ions=("si13",))
+    t = model(GRID, ism_nh=1.0)
+    assert np.all(np.isfinite(t)) and t.max() <= 1
+    gas = GasEdge(element="Si", col=3e17 * u.cm ** -2)
+    assert gas.values["col"] == pytest.approx(30.0)
