@@ -113,6 +113,9 @@ def _profiled_background(model_src, counts, bkg_counts, ratio):
     with np.errstate(divide="ignore", invalid="ignore"):
         root = np.where(bcoef <= 0, (-bcoef + disc) / (2.0 * a), (2.0 * -c) / (bcoef + disc))
     root = np.where(np.isfinite(root), root, 0.0)
+    # ratio = 0: the source region sees no background, so b-hat = n_b exactly
+    # (the quadratic degenerates and the branch above would give 0/0 at s = 0)
+    root = np.where(r == 0, nb, root)
     return np.maximum(root, 0.0)
 
 

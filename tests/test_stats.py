@@ -131,7 +131,8 @@ def _brute_force_profile(s, n, nb, r):
 
 @pytest.mark.parametrize("s,n,nb,r", [
     (5.0, 7, 3, 0.2), (20.0, 12, 40, 0.1), (0.5, 0, 0, 1.0), (3.0, 10, 0, 0.5),
-    (0.0, 4, 6, 0.25), (50.0, 80, 200, 0.3), (2.0, 0, 9, 2.0), (1e-3, 1, 1, 1.0)])
+    (0.0, 4, 6, 0.25), (50.0, 80, 200, 0.3), (2.0, 0, 9, 2.0), (1e-3, 1, 1, 1.0),
+    (0.0, 0, 5, 0.0), (3.0, 2, 5, 0.0)])
 def test_profiled_background_against_brute_force(s, n, nb, r):
     stat = profiled_background_statistic([s], [n], [nb], r)
     ref = _brute_force_profile(s, n, nb, r)
