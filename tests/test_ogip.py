@@ -307,3 +307,22 @@ def test_grouping_random_spectrum_meets_minimum():
     sums = group_sum(counts, g)
     assert np.all(sums >= 20)
     assert sums.sum() == counts.sum()
+
+
+def test_write_dataset_with_backgrounds_round_trip(tmp_path, small_response):
+    """Simulated PHA II (two orders) with backgrounds: the PHA's BACKFILE
+    (type II background, same orders) and RESPFILE/ANCRFILE are re-attached."""
+    from edgefit.data import write_dataset
+    flux = np.full(small_response.n_energies, 1e-3)
+    bkg_rate = np.full(small_response.n_channels, 2e-3)
+    specs = [simulate_spectrum(flux, small_response, 1e4, 50 + k, background_rate=bkg_rate,
+                               background_backscal=5.0, meta={"order": o, "arm": 1})
+             for k, o in enumerate((-1, 1))]
+    paths = write_dataset(tmp_path / "set", "simsrc", specs, small_response)
+    with fits.open(paths["bkg"]) as h:
+        assert h[1].header["HDUCLAS2"] == "BKG"
+    back = read_pha(paths["pha"], order=1)
+    np.testing.assert_array_equal(back.counts, specs[1].counts)
+    np.testing.assert_array_equal(back.background.counts, specs[1].background.counts)
+    assert back.background_scale() == pytest.approx(0.2)   # BACKSCAL 1 / 5
+    assert back.response.n_channels == small_response.n_channels

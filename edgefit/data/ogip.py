@@ -43,7 +43,7 @@ from .spectrum import Spectrum
 __all__ = [
     "read_pha", "read_pha_rows", "read_arf", "read_rmf", "read_ebounds", "read_response",
     "load_spectrum", "write_pha", "write_arf", "write_rmf", "write_response",
-    "describe_file", "AmbiguousRowError", "ArfData", "EboundsData",
+    "write_dataset", "describe_file", "AmbiguousRowError", "ArfData", "EboundsData",
 ]
 
 SPECTRUM_EXT = ("SPECTRUM",)
@@ -944,6 +944,46 @@ def write_response(response: Response, rmf_path, arf_path=None, *, overwrite=Fal
     else:
         write_rmf(rmf_path, response, include_area=False, **kw)
         write_arf(arf_path, response.energy_lo, response.energy_hi, response.specresp, **kw)
+
+
+def write_dataset(directory, stem, spectra, response: Response, *, overwrite=False,
+                  telescope=None, instrument=None) -> dict:
+    """Write spectra with their response (and backgrounds) as a consistent
+    set of OGIP files that :func:`read_pha` re-assembles.
+
+    Files: ``<stem>.rmf`` and ``<stem>.arf`` from ``response``;
+    ``<stem>.pha`` (type I for one spectrum, type II for several rows);
+    ``<stem>_bkg.pha`` when the spectra carry backgrounds (all of them
+    must).  RESPFILE/ANCRFILE/BACKFILE name these files (relative names).
+
+    Returns
+    -------
+    dict with keys ``pha``, ``rmf``, ``arf`` and possibly ``bkg`` (paths).
+    """
+    specs = [spectra] if isinstance(spectra, Spectrum) else list(spectra)
+    directory = os.fspath(directory)
+    os.makedirs(directory, exist_ok=True)
+    simulated = any(bool(s.meta.get("simulated")) for s in specs)
+    paths = {k: os.path.join(directory, f"{stem}{suffix}")
+             for k, suffix in (("pha", ".pha"), ("rmf", ".rmf"), ("arf", ".arf"))}
+    write_response(response, paths["rmf"], paths["arf"], overwrite=overwrite,
+                   simulated=simulated, telescope=telescope, instrument=instrument)
+    backfile = None
+    bkgs = [s.background for s in specs]
+    if any(b is not None for b in bkgs):
+        if any(b is None for b in bkgs):
+            raise ValueError("either every spectrum has a background or none has")
+        paths["bkg"] = os.path.join(directory, f"{stem}_bkg.pha")
+        for b, s in zip(bkgs, specs):
+            b.meta.setdefault("order", s.meta.get("order"))
+            b.meta.setdefault("arm", s.meta.get("arm"))
+        write_pha(paths["bkg"], bkgs, overwrite=overwrite, type2=len(bkgs) > 1,
+                  background=True, respfile="none", ancrfile="none", backfile="none")
+        backfile = os.path.basename(paths["bkg"])
+    write_pha(paths["pha"], specs, overwrite=overwrite, type2=len(specs) > 1,
+              respfile=os.path.basename(paths["rmf"]), ancrfile=os.path.basename(paths["arf"]),
+              backfile=backfile or "none")
+    return paths
 
 
 # ----------------------------------------------------------------------
