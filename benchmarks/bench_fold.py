@@ -15,13 +15,16 @@ prints figures.  Run with ``python benchmarks/bench_fold.py``.
 """
 from __future__ import annotations
 
+import os
 import statistics
+import tempfile
 import time
+import tracemalloc
 
 import numpy as np
 
 from edgefit._units import HC_KEV_ANGSTROM
-from edgefit.data import gaussian_response
+from edgefit.data import gaussian_response, read_response, write_response
 
 N_CHAN = 8192
 REPEATS = 41        # interleaved rounds
@@ -105,6 +108,23 @@ def main():
     print(f"{'all four':<16} {total_fold * 1e6:>9.1f} {total_bare * 1e6:>9.1f} "
           f"{total_fold / total_bare:>6.3f}   (target ratio <= 1.5)")
     print(f"10^5 folds of all four would take {total_fold * 1e5:.1f} s")
+    print()
+    name, r = responses[0]
+    with tempfile.TemporaryDirectory() as tmp:
+        rmf, arf = os.path.join(tmp, "b.rmf"), os.path.join(tmp, "b.arf")
+        t0 = time.perf_counter()
+        write_response(r, rmf, arf, simulated=True)
+        t1 = time.perf_counter()
+        back = read_response(rmf, arf)
+        t2 = time.perf_counter()
+        tracemalloc.start()       # a second, traced read for the memory peak
+        read_response(rmf, arf)
+        peak = tracemalloc.get_traced_memory()[1]
+        tracemalloc.stop()
+        print(f"{name}: write RMF+ARF {t1 - t0:.2f} s, read {t2 - t1:.2f} s, "
+              f"peak memory while reading "
+              f"{peak / 1e6:.1f} MB vs {N_CHAN * r.n_energies * 8 / 1e6:.0f} MB for one dense "
+              f"matrix; file {os.path.getsize(rmf) / 1e6:.1f} MB, nnz {back.matrix().nnz}")
 
 
 if __name__ == "__main__":
