@@ -113,10 +113,21 @@ def parse_formula(formula: str) -> dict[str, float]:
     return dict(stack[0])
 
 
+def _composition(obj) -> dict[str, float]:
+    """Atoms per formula unit from a formula string, a dict or a Material."""
+    if isinstance(obj, str):
+        return parse_formula(obj)
+    comp = getattr(obj, "composition", obj)
+    if not isinstance(comp, dict):
+        raise PhysicsDataError(f"expected a formula, a composition dict or a Material, "
+                               f"not {obj!r}")
+    return comp
+
+
 def formula_mass(composition) -> float:
     """Mass of one formula unit in u (g/mol); ``composition`` is a formula
     string or a dict symbol -> count."""
-    comp = parse_formula(composition) if isinstance(composition, str) else composition
+    comp = _composition(composition)
     return float(sum(atomic.atomic_mass(el) * n for el, n in comp.items()))
 
 
@@ -131,7 +142,7 @@ def as_density(density) -> float:
 def number_densities(composition, density) -> dict[str, float]:
     """Atoms per cm^3 of each element: n_j = ρ N_A c_j / M, with c_j atoms
     of j per formula unit and M the formula mass (g/mol)."""
-    comp = parse_formula(composition) if isinstance(composition, str) else composition
+    comp = _composition(composition)
     rho = as_density(density)
     n_fu = rho * atomic.AVOGADRO / formula_mass(comp)
     return {el: n_fu * c for el, c in comp.items()}
@@ -170,7 +181,7 @@ def delta_beta(composition, density, energy_kev, corrections=()):
     delta, beta : float or ndarray
         Dimensionless; the refractive index is 1 − δ + iβ.
     """
-    comp = parse_formula(composition) if isinstance(composition, str) else composition
+    comp = _composition(composition)
     scalar = np.ndim(energy_kev) == 0
     e = np.atleast_1d(np.asarray(as_kev(energy_kev), dtype=float))
     n_fu = as_density(density) * atomic.AVOGADRO / formula_mass(comp)
@@ -360,7 +371,7 @@ def nearedge_correction(composition, density, lab: LabAbsorption, edge_kev,
     -------
     NearEdgeCorrection
     """
-    comp = parse_formula(composition) if isinstance(composition, str) else composition
+    comp = _composition(composition)
     e0 = float(as_kev(edge_kev))
     e = lab.energy_kev
     beta_raw = lab.raw_beta()
