@@ -107,6 +107,8 @@ def minimise(likelihood, params, method="least_squares", fallback=True, max_nfev
                        "values (check initial values and bounds)", partial=None)
     if not ok:
         flags.append("no_success")
+    if not math.isfinite(stat) and likelihood.n_bad_evaluations == bad_before:
+        likelihood.n_bad_evaluations += 1  # the end point itself is not finite
     if likelihood.n_bad_evaluations > bad_before:
         flags.append("model_not_finite")
     return out, stat, flags
@@ -183,7 +185,7 @@ def fit_sightline(model, datasets, *, statistic="cstat", method="least_squares",
     result = FitResult(likelihood=like, params=out.params, statistic=stat,
                        covariance=covar, covariance_names=var_names, flags=flags,
                        method=method, nfev=int(getattr(out, "nfev", 0) or 0))
-    if goodness and statistic == "cstat":
+    if goodness and statistic == "cstat" and math.isfinite(stat):
         from .goodness import cstat_goodness
 
         result.goodness = cstat_goodness(result)
