@@ -147,12 +147,16 @@ def c_statistic_expectation(mu):
 
     Returns (mean, variance) arrays of the shape of ``mu``; sum them over
     bins for a spectrum.  For mu > 10 they agree with Kaastra (2017) eqs.
-    (8)-(9); see :func:`c_statistic_expectation_kaastra`.
+    (8)-(9); see :func:`c_statistic_expectation_kaastra`.  Non-finite ``mu``
+    gives NaN mean and variance.
     """
     mu = np.atleast_1d(np.asarray(mu, dtype=float))
     mean = np.empty_like(mu)
     var = np.empty_like(mu)
     for i, m in enumerate(mu):
+        if not np.isfinite(m):
+            mean[i] = var[i] = np.nan   # no expectation for a NaN/inf model
+            continue
         m = max(m, MODEL_FLOOR)
         # the Poisson mass outside m +- (12 sqrt(m) + 30) is < 1e-30
         nmin = max(0, int(m - 12.0 * np.sqrt(m) - 30))

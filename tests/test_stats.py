@@ -70,6 +70,11 @@ def test_exact_expectation_matches_reference_values():
     np.testing.assert_allclose(var, [1.36460, 2.08769], atol=6e-6)
 
 
+def test_exact_expectation_of_non_finite_mu_is_nan():
+    mean, var = c_statistic_expectation([np.nan, 5.0, np.inf])
+    assert np.isnan(mean[0]) and np.isnan(var[2]) and np.isfinite(mean[1])
+
+
 def test_exact_expectation_by_simulation():
     """Independent check of the exact sums at mu = 0.3 and 3 by brute
     Monte Carlo (seeded), within 5 standard errors."""
