@@ -17,7 +17,7 @@ import scipy.sparse as sp
 from astropy import units as u
 from scipy.special import ndtr
 
-from ..models.base import EnergyGrid
+from ..grid import EnergyGrid
 from .._units import HC_KEV_ANGSTROM, as_kev, to_value
 
 __all__ = ["Response", "gaussian_response", "FWHM_TO_SIGMA"]
