@@ -57,11 +57,12 @@ def cstat_goodness(result):
             e, v = stats.c_statistic_expectation(m)
             mean += float(np.sum(e))
             var += float(np.sum(v))
-    mean -= result.n_free
+    n_bkg = sum(ds.n_groups for ds in result.datasets if ds.has_background)
+    mean -= result.n_free + n_bkg
     z = (result.statistic - mean) / math.sqrt(var) if var > 0 else math.nan
     return {"expected": mean, "variance": var, "z": z,
             "p_value": float(sps.norm.sf(z)) if math.isfinite(z) else math.nan,
-            "n_free_subtracted": result.n_free}
+            "n_free_subtracted": result.n_free, "n_background_profiled": n_bkg}
 
 
 def posterior_predictive(result, samples=None, n_draws=200, seed=None):

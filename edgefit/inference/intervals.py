@@ -10,7 +10,10 @@ Each end is found by stepping away from p0 (first step one covariance
 sigma, or 10 % of |p0| without a covariance; steps grow by 1.6x) until
 S_prof exceeds S0 + Delta (a bracket), then by Brent's root finder on
 S_prof(x) - S0 - Delta.  Every evaluation re-minimises all other free
-parameters, warm-started from the nearest point already profiled.  If the
+parameters, warm-started from the nearest point already profiled.  If a
+profile point has a lower statistic than the best fit (the fit had
+stopped short), the fit is redone from that point, the result updated
+(flag ``refit_after_profile``) and the scan restarted (at most twice).  If the
 parameter's bound is reached first, the bound is reported as a limit
 (``lower_at_bound``/``upper_at_bound``).  A profile point below S0 (a
 better fit than the "best" one) is noted on the interval.
@@ -51,6 +54,8 @@ class ProfileScan:
         self.s0 = result.statistic
         self.points: dict[float, tuple[float, object]] = {self.best: (self.s0, result.params)}
         self.notes: list[str] = []
+        self.better = None  # (stat, params) of the best point below s0
+
 
     def __call__(self, x):
         from .fit import minimise
@@ -68,8 +73,11 @@ class ProfileScan:
             params = out.params
         else:
             stat, params = like.statistic(start.valuesdict()), start
-        if stat < self.s0 - 1e-3 and "better_minimum_found" not in self.notes:
-            self.notes.append("better_minimum_found")
+        if stat < self.s0 - 1e-3:
+            if "better_minimum_found" not in self.notes:
+                self.notes.append("better_minimum_found")
+            if self.better is None or stat < self.better[0]:
+                self.better = (stat, params)
         self.points[x] = (stat, params)
         return stat
 
@@ -112,29 +120,68 @@ def profile_intervals(result, names, levels=(0.6827, 0.90), method="least_square
     Returns {name: {level: Interval}}; also stored in ``result.intervals``
     when ``store``.
     """
-    out = {}
-    for name in names:
-        scan = ProfileScan(result, name, method=method)
-        p = result.params[name]
-        err = result.error(name)
-        if err is None or not math.isfinite(err) or err <= 0:
-            err = 0.1 * abs(scan.best) if scan.best != 0 else 0.1
-        step0 = err
-        by_level = {}
-        for level in sorted(levels):
-            target = delta_statistic(level)
-            lo, lo_b = _one_side(scan, target, -1, step0, float(p.min))
-            hi, hi_b = _one_side(scan, target, +1, step0, float(p.max))
-            if lo is None:
-                scan.notes.append("lower end not bracketed")
-            if hi is None:
-                scan.notes.append("upper end not bracketed")
-            by_level[level] = Interval(name, level, target, scan.best, lo, hi, lo_b, hi_b,
-                                       list(dict.fromkeys(scan.notes)))
-            # later (wider) levels start stepping from the narrower interval
-            if lo is not None and hi is not None and not (lo_b or hi_b):
-                step0 = max(step0, 0.5 * (hi - lo))
-        out[name] = by_level
-        if store:
+    for attempt in range(3):
+        out = {}
+        refitted = False
+        for name in names:
+            by_level, scan = _scan_levels(result, name, levels, method)
+            if scan.better is not None and attempt < 2:
+                _refit_from(result, scan.better[1], name, method)
+                refitted = True
+                break  # every interval restarts from the new minimum
+            out[name] = by_level
+        if not refitted:
+            break
+    if store:
+        for name, by_level in out.items():
             result.intervals.setdefault(name, {}).update(by_level)
     return out
+
+
+def _refit_from(result, params, name, method):
+    """The profile met a lower statistic than the best fit: re-fit from
+    there (all free parameters free again) and update ``result``."""
+    from .fit import minimise
+
+    start = params.copy()
+    start[name].set(vary=True)
+    out, stat, flags = minimise(result.likelihood, start, method=method)
+    if stat < result.statistic:
+        result.params = out.params
+        result.statistic = stat
+        cov = getattr(out, "covar", None)
+        if cov is not None and np.all(np.isfinite(cov)):
+            result.covariance = cov
+            result.covariance_names = list(out.var_names)
+        note = "refit_after_profile"
+        if note not in result.flags:
+            result.flags.append(note)
+        if result.goodness is not None:
+            from .goodness import cstat_goodness
+
+            result.goodness = cstat_goodness(result)
+        result.intervals.clear()  # intervals stored earlier refer to the old minimum
+
+
+def _scan_levels(result, name, levels, method):
+    scan = ProfileScan(result, name, method=method)
+    p = result.params[name]
+    err = result.error(name)
+    if err is None or not math.isfinite(err) or err <= 0:
+        err = 0.1 * abs(scan.best) if scan.best != 0 else 0.1
+    step0 = err
+    by_level = {}
+    for level in sorted(levels):
+        target = delta_statistic(level)
+        lo, lo_b = _one_side(scan, target, -1, step0, float(p.min))
+        hi, hi_b = _one_side(scan, target, +1, step0, float(p.max))
+        if lo is None:
+            scan.notes.append("lower end not bracketed")
+        if hi is None:
+            scan.notes.append("upper end not bracketed")
+        by_level[level] = Interval(name, level, target, scan.best, lo, hi, lo_b, hi_b,
+                                   list(dict.fromkeys(scan.notes)))
+        # later (wider) levels start stepping from the narrower interval
+        if lo is not None and hi is not None and not (lo_b or hi_b):
+            step0 = max(step0, 0.5 * (hi - lo))
+    return by_level, scan
