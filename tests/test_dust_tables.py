@@ -173,3 +173,22 @@ def test_halo_width_and_rg_form_factor():
     assert f_near > f_mid
     assert fraction_in_region(1.8, 0.1, 5.0, geometry="strip") >= \
         fraction_in_region(1.8, 0.1, 5.0, geometry="circle")
+
+
+def test_cli_shielding_and_list(tmp_path, monkeypatch, capsys):
+    # the command writes an ECSV table (read back with astropy) and a figure;
+    # an element missing from the material is one error line, exit 2
+    from astropy.table import Table
+
+    from edgefit.cli import main
+
+    monkeypatch.setenv("EDGEFIT_CACHE_DIR", str(tmp_path))
+    out, fig = tmp_path / "sh.ecsv", tmp_path / "sh.png"
+    assert main(["dust-tables", "shielding", "--n", "6", "--output", str(out),
+                 "--plot", str(fig)]) == 0
+    tab = Table.read(out, format="ascii.ecsv")
+    assert len(tab) == 6 and tab["radius"].unit == "um" and fig.stat().st_size > 1000
+    assert main(["dust-tables", "list"]) == 0
+    assert "no dust tables" in capsys.readouterr().out
+    assert main(["dust-tables", "shielding", "--element", "C"]) == 2
+    assert "contains no C" in capsys.readouterr().err

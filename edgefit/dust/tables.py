@@ -46,7 +46,8 @@ from .sizes import SizeDistribution, SizeGrid
 
 __all__ = ["TABLE_FORMAT_VERSION", "EDGE_REGIONS", "DEFAULT_SIZE_GRID", "DustTable",
            "edge_energy_grid", "region_for", "compute_table", "table_key", "table_path",
-           "load_or_build", "default_table", "list_cached_tables"]
+           "load_or_build", "default_table", "list_cached_tables", "DEFAULT_MATERIALS",
+           "build_default_tables"]
 
 #: Bumped whenever the stored layout or the meaning of the arrays changes.
 TABLE_FORMAT_VERSION = 1
@@ -58,6 +59,9 @@ EDGE_REGIONS: dict[str, tuple[str, float, float]] = {
     "Fe": ("L3", 0.65, 0.9),
     "O": ("K", 0.48, 0.65),
 }
+
+#: Materials whose tables ``edgefit dust-tables build`` makes by default.
+DEFAULT_MATERIALS = ("olivine", "pyroxene", "pyroxene_mgfe")
 
 #: Default size grid: (amin µm, amax µm, number of radii).
 DEFAULT_SIZE_GRID = (0.001, 5.0, 160)
@@ -374,4 +378,22 @@ def list_cached_tables(directory=None) -> list[dict]:
         header["path"] = path
         header["bytes"] = os.path.getsize(path)
         out.append(header)
+    return out
+
+
+def build_default_tables(materials=DEFAULT_MATERIALS, elements=tuple(EDGE_REGIONS), *,
+                         rebuild=False, method="auto", rtol=None, workers=None,
+                         progress=None) -> list[DustTable]:
+    """Build (or load) the default table of every material across the edge
+    region of every element it contains (:data:`EDGE_REGIONS`), into the
+    cache.  Returns the tables."""
+    out = []
+    for name in materials:
+        material = get_material(name)
+        for element in elements:
+            if atomic.element_symbol(element) not in material.composition:
+                continue
+            out.append(default_table(material, element, method=method, rtol=rtol,
+                                     rebuild=rebuild, workers=workers, progress=progress))
+            out[-1].meta["element"] = atomic.element_symbol(element)
     return out
