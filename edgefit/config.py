@@ -22,7 +22,7 @@ from pathlib import Path
 
 from astropy import units as u
 
-from .errors import ConfigError, EdgefitError, InputFileError
+from .errors import ConfigError, EdgefitError, InputFileError, UnknownParameterError
 
 __all__ = ["SightlineConfig", "load_config", "parse_recipe", "tokenize_recipe",
            "build_model", "apply_parameter_settings", "load_component_modules"]
@@ -239,10 +239,18 @@ def build_model(model_table, path=None):
             if pval.get("fixed"):
                 fixed.append(pname)
             settings[f"{name}_{pname}"] = dict(pval, _key=pkey)
+        clash = set(options) & declared
+        if clash:
+            raise ConfigError(path, f"{key}.options.{sorted(clash)[0]}: is a fit parameter; "
+                                    "set it under params")
         try:
             components[name] = cls(name, fixed=fixed, **init, **options)
         except TypeError as exc:
             raise ConfigError(path, f"{key}.options: {exc}") from None
+        except UnknownParameterError:
+            bad_opt = sorted(set(options))
+            raise ConfigError(path, f"{key}.options: {ctype} does not take option(s) "
+                                    f"{bad_opt}") from None
         except EdgefitError as exc:
             raise ConfigError(path, f"{key}: {exc}") from None
     model, used = parse_recipe(model_table.get("expression"), components, path)

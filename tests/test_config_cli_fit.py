@@ -1,0 +1,211 @@
+"""Configuration parser (safe recipe grammar, errors naming file and key)
+and the ``edgefit fit`` command end to end on simulated OGIP files."""
+import json
+import textwrap
+
+import numpy as np
+import pytest
+from astropy import units as u
+from astropy.table import QTable
+
+from edgefit.cli import main
+from edgefit.config import build_model, load_config, parse_recipe, tokenize_recipe
+from edgefit.data import gaussian_response, simulate_spectrum, write_pha, write_response
+from edgefit.errors import ConfigError
+from edgefit.models.base import ADDITIVE, MULTIPLICATIVE
+from edgefit.models.continuum import LineGaussian, PhotonPowerLaw
+from edgefit.inference._testing import ToyEdgeAbsorber
+
+
+def comps():
+    return {"a": ToyEdgeAbsorber("a"), "b": ToyEdgeAbsorber("b"), "pl": PhotonPowerLaw("pl"),
+            "ln": LineGaussian("ln")}
+
+
+def test_recipe_precedence_and_parentheses():
+    c = comps()
+    m, used = parse_recipe("a * b * (pl + ln)", c)
+    assert m.kind == ADDITIVE and used == {"a", "b", "pl", "ln"}
+    g = np.linspace(1.6, 2.2, 21)
+    ref = c["a"](g) * c["b"](g) * (c["pl"](g) + c["ln"](g))
+    np.testing.assert_allclose(m(g), ref, rtol=1e-14)
+    # '*' binds tighter than '+': a*pl + ln == (a*pl) + ln
+    m2, _ = parse_recipe("a*pl+ln", c)
+    np.testing.assert_allclose(m2(g), c["a"](g) * c["pl"](g) + c["ln"](g), rtol=1e-14)
+    m3, _ = parse_recipe("((a * b))", c)
+    assert m3.kind == MULTIPLICATIVE
+
+
+@pytest.mark.parametrize("text", [
+    "a *", "(a + pl", "a pl", "a + ", ")", "", "a * (pl + ln))",
+    "__import__('os').system('true')", "a; pl", "pl ** 2", "a * 2", "a.b", "nope * pl",
+    "pl * ln",        # two additive components cannot multiply
+    "a + b",          # two absorbers cannot add
+])
+def test_malformed_recipes_rejected_with_file_name(text):
+    with pytest.raises(ConfigError) as err:
+        parse_recipe(text, comps(), path="cfg.toml")
+    assert str(err.value).startswith("cfg.toml: model.expression")
+
+
+def test_tokenizer_only_names_and_operators():
+    assert tokenize_recipe("a*(b + c_1)") == ["a", "*", "(", "b", "+", "c_1", ")"]
+    with pytest.raises(ConfigError):
+        tokenize_recipe("a*`b`")
+
+
+def test_build_model_errors_name_the_key():
+    base = {"expression": "pl", "components": {"pl": {"type": "photon_power_law"}}}
+    model, _, _ = build_model(base, "x.toml")
+    assert model.kind == ADDITIVE
+    bad_cases = [
+        ({"expression": "pl", "components": {"pl": {"type": "powerlaw"}}},
+         "model.components.pl.type: unknown component type"),
+        ({"expression": "pl", "components": {"pl": {"type": "photon_power_law",
+                                                    "params": {"slope": 1}}}},
+         "model.components.pl.params.slope"),
+        ({"expression": "pl", "components": {"pl": {"type": "photon_power_law",
+                                                    "params": {"index": {"value": "2"}}}}},
+         "model.components.pl.params.index.value"),
+        ({"expression": "pl", "components": {"pl": {"type": "photon_power_law",
+                                                    "params": {"index": {"expr": "1+1"}}}}},
+         "model.components.pl.params.index.expr: unknown key"),
+        ({"expression": "pl", "components": {"pl": {"type": "photon_power_law"},
+                                             "ln": {"type": "line_gaussian"}}},
+         "model.components.ln: defined but not used"),
+        ({"expression": "pl", "components": {"pl": {"type": "photon_power_law",
+                                                    "options": {"colour": "red"}}}},
+         "model.components.pl.options"),
+    ]
+    for table, msg in bad_cases:
+        with pytest.raises(ConfigError) as err:
+            build_model(table, "x.toml")
+        assert str(err.value).startswith("x.toml: ") and msg in str(err.value), str(err.value)
+
+
+# --- end to end --------------------------------------------------------------
+def _write_sim(folder, seed=3):
+    """Two simulated spectra of an invented source (SIMULATED test data)."""
+    model = PhotonPowerLaw("pl", index=1.7, norm=1.0) + LineGaussian(
+        "ln", center=1.865, sigma=0.003, norm=4e-3)
+    rng = np.random.default_rng(seed)
+    for tag in ("m1", "p1"):
+        resp = gaussian_response(np.linspace(1.55, 2.25, 351), np.linspace(1.6, 2.2, 201),
+                                 fwhm=0.023, area_cm2=20.0)
+        write_response(resp, folder / f"t_{tag}.rmf", folder / f"t_{tag}.arf",
+                       overwrite=True, simulated=True)
+        spec = simulate_spectrum(model.evaluate(resp.grid), resp, 2e4, rng,
+                                 meta={"object": "SIM-TEST (simulated)"})
+        write_pha(folder / f"t_{tag}.pha", spec, overwrite=True, respfile=f"t_{tag}.rmf",
+                  ancrfile=f"t_{tag}.arf")
+
+
+CONFIG = """
+[sightline]
+name = "SIM-TEST (simulated)"
+output = "out"
+
+[[spectrum]]
+pha = "t_m1.pha"
+range = [1.65, 2.15]
+
+[[spectrum]]
+pha = "t_p1.pha"
+rmf = "t_p1.rmf"
+arf = "t_p1.arf"
+range = [[1.65, 1.85], [1.88, 2.15]]
+group_min_counts = 10
+
+[model]
+expression = "pl + ln"
+
+[model.components.pl]
+type = "photon_power_law"
+params.index = {{ value = 2.0, min = 0.5, max = 4.0 }}
+
+[model.components.ln]
+type = "line_gaussian"
+params.center = {{ value = 1.865, fixed = true }}
+params.sigma = {{ value = 3.0, unit = "eV", fixed = true }}
+params.norm = {{ value = 1e-3, min = 0.0, max = 1.0 }}
+
+[errors]
+profile = ["pl_index"]
+levels = [0.6827]
+
+[mcmc]
+enabled = {mcmc}
+walkers = 12
+steps = 300
+seed = 5
+{priors}
+[plots]
+enabled = {plots}
+unit = "Angstrom"
+"""
+
+
+def _config(tmp_path, mcmc="false", plots="false", priors=""):
+    p = tmp_path / "sl.toml"
+    p.write_text(CONFIG.format(mcmc=mcmc, plots=plots, priors=priors))
+    return p
+
+
+def test_fit_command_end_to_end(tmp_path, capsys):
+    _write_sim(tmp_path)
+    cfg = _config(tmp_path, mcmc="true", plots="true")
+    assert main(["fit", str(cfg), "-q"]) == 0
+    out = tmp_path / "out"
+    for name in ("fit.ecsv", "fit.fits", "fit.json", "fit_summary.txt",
+                 "fit_parameters.ecsv", "spectra.png", "transmission.png", "corner.png"):
+        assert (out / name).is_file(), name
+    t = QTable.read(out / "fit.ecsv")
+    assert t["pl_norm"].unit == u.Unit("ph cm-2 s-1 keV-1")
+    assert 1.4 < float(t["pl_index"][0].value) < 2.0  # truth 1.7
+    d = json.loads((out / "fit.json").read_text())
+    assert d["mcmc"]["nsteps"] == 300 and "profile" in d["parameters"][0]
+    # the unit-carrying sigma was converted from eV to keV
+    assert d["parameters"][3]["name"] == "ln_sigma"
+    assert d["parameters"][3]["value"] == pytest.approx(0.003)
+
+
+def test_fit_command_errors_name_file_and_key(tmp_path, capsys):
+    _write_sim(tmp_path)
+    cfg = _config(tmp_path)
+    text = cfg.read_text()
+    cfg.write_text(text.replace('type = "photon_power_law"', 'type = "power_law_x"'))
+    assert main(["fit", str(cfg)]) == 2
+    err = capsys.readouterr().err
+    assert str(cfg) in err and "model.components.pl.type" in err and len(err.splitlines()) == 1
+    cfg.write_text(text.replace('pha = "t_m1.pha"', 'pha = "missing.pha"'))
+    assert main(["fit", str(cfg)]) == 2
+    assert "missing.pha" in capsys.readouterr().err
+    cfg.write_text(text + "\n[bogus]\nx = 1\n")
+    assert main(["fit", str(cfg)]) == 2
+    assert "bogus" in capsys.readouterr().err
+
+
+def test_best_fit_written_before_a_failing_stage(tmp_path, capsys):
+    _write_sim(tmp_path)
+    cfg = _config(tmp_path, mcmc="true", priors='priors = { pl_index = "cauchy" }\n')
+    assert main(["fit", str(cfg), "-q"]) == 2
+    assert "mcmc.priors.pl_index" in capsys.readouterr().err
+    assert (tmp_path / "out" / "fit.json").is_file()  # the best fit survived
+
+
+def test_load_config_rejects_bad_ranges(tmp_path):
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(textwrap.dedent("""
+        [[spectrum]]
+        pha = "x.pha"
+        range = [1.6, "2.2"]
+        [model]
+        expression = "pl"
+        [model.components.pl]
+        type = "photon_power_law"
+    """))
+    with pytest.raises(ConfigError, match=r"c.toml: spectrum\[0\].range"):
+        load_config(cfg)
+    cfg.write_text("not [valid toml")
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_config(cfg)
