@@ -138,106 +138,302 @@ def thin_equivalent_width(column_cm2, f, wavelength_angstrom):
         * (wavelength_angstrom * 1e-8) ** 2 / 1e-8
 
 
-def binned_line_transmission(lo, hi, centre, area, sigma, gamma, *, tau_floor=1e-5,
-                             max_sub=512):
-    """Transmission exp(-tau) averaged over energy bins for a set of lines.
+# ---------------------------------------------------------------------------
+# Bin-averaged transmission of Voigt lines (fast path)
+# ---------------------------------------------------------------------------
+#
+# The Voigt profile of unit area is V(x) = H(a, u) / (sigma sqrt(2 pi)) with
+# u = x / (sigma sqrt 2), a = gamma / (sigma sqrt 2) and H(a, u) = Re w(u + i a),
+# w the Faddeeva function.  Near the centre (u < _TAB_UMAX) H is read from a
+# table of scipy.special.wofz built once per process, interpolated linearly in
+# u and in a.  The interpolation error is bounded by h^2/8 |H_uu| + da^2/8 |H_aa|
+# with |H_aa| = |H_uu| (H is harmonic); with h = da = 0.005 this is < 1.3e-5 of
+# the peak everywhere and < 2e-4 of the local value out to u = 3.5, where a
+# line with tau0 = 2e5 reaches tau = 1.  Further out the asymptotic expansion
+# of w for large |z| is used (see binned_line_transmission).
 
-    Parameters
-    ----------
-    lo, hi : ndarray
-        Bin edges in keV (increasing).
-    centre, area, sigma, gamma : array_like
-        Per line: centre (keV), energy-integrated optical depth
-        ``N * pi r_e h c f`` (keV), Gaussian sigma (keV) and Lorentzian HWHM
-        (keV).  ``sigma + gamma`` must be positive.
-    tau_floor : float
-        Optical depth below which line wings are neglected (1e-5 in
-        transmission is far below the precision of any X-ray spectrum;
-        the neglected wing area is (2/pi) gamma / reach of the line's
-        integrated optical depth, < 0.1 %).  The window also
-        reaches at least 1000 Lorentzian half widths, so at most 0.07 % of a
-        thin line's equivalent width lies outside it.
-    max_sub : int
-        Largest number of sub-samples per bin.
+_TAB_DU = 0.005            # table step in u
+_TAB_DA = 0.005            # table step in a
+_TAB_UMAX = 6.0            # table covers 0 <= u < _TAB_UMAX ...
+_TAB_AMAX = 2.0            # ... and 0 <= a < _TAB_AMAX; larger a use scipy
+_TAB_NU = int(round(_TAB_UMAX / _TAB_DU)) + 2
+_TAB_NA = int(round(_TAB_AMAX / _TAB_DA)) + 2
+#: smallest distance from a line centre, in sqrt(2) sigma, at which the
+#: far-wing expansion is used (truncation error 945 (2u^2)^-5 < 3e-5 there).
+_U_WING = 4.0
+_SQRT2 = np.sqrt(2.0)
+_SQRT2PI = np.sqrt(2.0 * np.pi)
+#: Gauss-Legendre 2-point nodes on [0, 1] (equal weights 1/2).
+_GL2 = np.array([0.5 - 0.5 / np.sqrt(3.0), 0.5 + 0.5 / np.sqrt(3.0)])
+#: Sub-sampling steps: in the core the step is at most
+#: _ALPHA (sigma / max(1, u_t) + gamma), u_t = sqrt(ln tau0) the half width
+#: (in sqrt(2) sigma) where a saturated Doppler core reaches tau = 1; beyond
+#: x_g = sqrt(2) sigma (u_t + 1.5) it may grow as _BETA (|x| - x_g).
+_ALPHA = 0.5
+_BETA = 0.25
 
-    Returns
-    -------
-    ndarray
-        Transmission per bin.  Bins within a line's reach are sampled at K
-        equally spaced points, with K chosen so that the sampling step is at
-        most 0.2 (sigma + gamma) inside the line core and grows in
-        proportion to the distance from the centre in the wings (capped at
-        ``max_sub``); the bin value is the mean of exp(-sum tau) over its
-        points (midpoint rule), so equivalent widths are conserved and
-        overlapping lines combine correctly within a bin.
 
-    Notes
-    -----
-    Within 6 (sigma + gamma) of a line centre the Voigt profile is computed
-    exactly (scipy.special.voigt_profile); further out, where the Gaussian
-    core is below 1e-7 of the wing, the far-wing expansion of the Voigt
-    profile is used,
-    V ~ (gamma/pi) / (d^2 + gamma^2) (1 + 3 s^2/d^2 + 15 s^4/d^4 + 105 s^6/d^6)
-    (the Lorentzian averaged over the Gaussian, moments of a normal
-    distribution), accurate to about 0.1 % of the local wing there.
-    """
-    lo = np.asarray(lo, dtype=float)
-    hi = np.asarray(hi, dtype=float)
-    n = lo.size
-    out = np.ones(n)
+@functools.lru_cache(maxsize=1)
+def voigt_table():
+    """Table of H(a, u) = Re w(u + i a) (scipy.special.wofz), flattened
+    row-major with rows a = 0, 0.005, ... and columns u = 0, 0.005, ...
+    (read-only; about 3.9 MB, built in ~0.1 s on first use)."""
+    from scipy.special import wofz
+
+    u = np.arange(_TAB_NU) * _TAB_DU
+    a = np.arange(_TAB_NA) * _TAB_DA
+    tab = np.ascontiguousarray(wofz(u[None, :] + 1j * a[:, None]).real).ravel()
+    tab.setflags(write=False)
+    return tab
+
+
+def voigt_fast(x, sigma, gamma):
+    """Unit-area Voigt profile by the method used in
+    :func:`binned_line_transmission` (table of Re w inside 6 sqrt(2) sigma,
+    far-wing expansion outside); same arguments as
+    scipy.special.voigt_profile with scalar ``sigma`` (> 0) and ``gamma``.
+
+    Accuracy against scipy.special.voigt_profile: relative error below
+    3e-4 (|x| < 5 sigma), absolute error below 2e-5 of the peak everywhere
+    (see tests/test_lines.py)."""
+    x = np.abs(np.asarray(x, dtype=float))
+    s, g = float(sigma), float(gamma)
+    if not s > 0:
+        raise PhysicsDataError("voigt_fast needs sigma > 0")
+    a = g / (_SQRT2 * s)
+    u = x / (_SQRT2 * s)
+    out = np.empty_like(u)
+    inner = u < _TAB_UMAX
+    if a < _TAB_AMAX:
+        out[inner] = _table_h(u[inner], np.full(int(inner.sum()), a)) / (s * _SQRT2PI)
+    else:
+        out[inner] = voigt_profile(x[inner], s, g)
+    out[~inner] = _wing_point(x[~inner], s, g)
+    return out
+
+
+def _table_h(u, a):
+    """Bilinear interpolation of H(a, u) in the table; u < _TAB_UMAX, a < _TAB_AMAX."""
+    tab = voigt_table()
+    kf = u * (1.0 / _TAB_DU)
+    k = kf.astype(np.intp)
+    t = kf - k
+    af = a * (1.0 / _TAB_DA)
+    j = af.astype(np.intp)
+    ta = af - j
+    flat = j * _TAB_NU + k
+    h00 = tab[flat]
+    h0 = h00 + t * (tab[flat + 1] - h00)
+    flat += _TAB_NU
+    h10 = tab[flat]
+    h1 = h10 + t * (tab[flat + 1] - h10)
+    return h0 + ta * (h1 - h0)
+
+
+def _wing_point(d, s, g):
+    """Far-wing expansion of the unit-area Voigt profile at distance d:
+    (1/pi) Im[z^-1 (1 + s^2 z^-2 + 3 s^4 z^-4 + 15 s^6 z^-6 + 105 s^8 z^-8)],
+    z = d - i gamma (Gaussian moments of the Lorentzian 1/(pi(z - y)))."""
+    q = 1.0 / (d - 1j * g)
+    r = (s * s) * (q * q)
+    ser = 1.0 + r * (1.0 + r * (3.0 + r * (15.0 + 105.0 * r)))
+    return (q * ser).imag * (1.0 / np.pi)
+
+
+def _ranges(start, length):
+    """Concatenated ``arange(start[i], start[i] + length[i])`` and, for each
+    element, the index i of its range."""
+    length = np.maximum(length, 0)
+    owner = np.repeat(np.arange(length.size), length)
+    offs = np.cumsum(length) - length
+    idx = np.repeat(start - offs, length) + np.arange(owner.size)
+    return idx, owner
+
+
+def _check_lines(centre, area, sigma, gamma):
     centre = np.atleast_1d(np.asarray(centre, dtype=float))
     area = np.atleast_1d(np.asarray(area, dtype=float))
     sigma = np.atleast_1d(np.asarray(sigma, dtype=float))
     gamma = np.atleast_1d(np.asarray(gamma, dtype=float))
-    if n == 0 or centre.size == 0:
-        return out
-    scale = sigma + gamma
-    if np.any(scale <= 0) or np.any(area < 0) or not np.all(np.isfinite(
-            np.concatenate([centre, area, sigma, gamma]))):
+    if not (centre.shape == area.shape == sigma.shape == gamma.shape):
+        raise PhysicsDataError("line centre, area, sigma and gamma need equal lengths")
+    if np.any(sigma < 0) or np.any(gamma < 0) or np.any(sigma + gamma <= 0) \
+            or np.any(area < 0) or not np.all(np.isfinite(
+                np.concatenate([centre, area, sigma, gamma]))):
         raise PhysicsDataError("line widths must be positive and line strengths finite "
                                "and non-negative")
-    width = hi - lo
-    nsub = np.zeros(n, dtype=np.int64)
-    windows = []
-    for c, a, s, g in zip(centre, area, sigma, gamma):
-        if a <= 0:
+    keep = area > 0
+    if not keep.all():
+        centre, area, sigma, gamma = centre[keep], area[keep], sigma[keep], gamma[keep]
+    return centre, area, sigma, gamma
+
+
+def binned_line_transmission(lo, hi, centre, area, sigma, gamma, *, tau_floor=1e-5,
+                             tol=1e-5, max_sub=4096):
+    """Transmission exp(-tau) averaged over energy bins for a set of Voigt lines.
+
+    .. math:: T_k = \\frac{1}{E_{k+1} - E_k}\\int_{E_k}^{E_{k+1}}
+              \\exp\\Big[-\\sum_l A_l V(E - c_l; \\sigma_l, \\gamma_l)\\Big] dE
+
+    Parameters
+    ----------
+    lo, hi : ndarray
+        Bin edges in keV (increasing, contiguous or not).
+    centre, area, sigma, gamma : array_like
+        Per line: centre (keV), energy-integrated optical depth
+        ``A = N * pi r_e h c f`` (keV), Gaussian sigma (keV) and Lorentzian
+        HWHM (keV); sigma, gamma >= 0 with ``sigma + gamma > 0``.
+    tau_floor : float
+        Optical depth below which line wings are neglected.  Each line
+        reaches to max(sqrt(A gamma / (pi tau_floor)), 1000 gamma) from its
+        centre, so at most (2/pi) gamma / reach < 0.07 % of a thin line's
+        equivalent width is left out.
+    tol : float
+        Target error of each bin's transmission from the two approximations
+        below (core boundary and exp of the mean optical depth).
+    max_sub : int
+        Largest number of sub-intervals per bin.
+
+    Returns
+    -------
+    ndarray
+        Transmission per bin, in [0, 1]; exactly 1 outside every line's reach.
+
+    Notes
+    -----
+    Each line has a *core* of half width
+    max(sqrt(2) sigma max(4, sqrt(ln(tau0/tol))), (2 A gamma w / (pi sqrt(24 tol)))^(1/3))
+    (w the local bin width, tau0 the peak optical depth): beyond the first
+    term the Doppler core adds less than ``tol`` to tau and the far-wing
+    expansion is accurate; beyond the second, tau varies so little across a
+    bin that <exp(-tau)> = exp(-<tau>) to ``tol`` (the difference is
+    Var(tau)/2 <= (tau' w)^2 / 24).
+
+    * Bins overlapping any core are split into K sub-intervals with two
+      Gauss-Legendre points each; K is set by the finest step any line asks
+      for there (see ``_ALPHA``, ``_BETA``).  At each point every line within
+      reach adds A V, with V from a table of Re w(u + i a) (scipy.special.wofz)
+      for u < 6 and from the far-wing expansion beyond; lines with a > 2 use
+      scipy.special.voigt_profile directly.
+    * Other bins within reach get exp(-<tau>), with the bin average of each
+      line's far wing integrated in closed form:
+      (1/w) int V dx = (1/(pi w)) [arctan(w gamma / (gamma^2 + d1 d2))
+      + Im sum_{n=1..4} (2n-1)!! sigma^2n (z1^-2n - z2^-2n) / (2n)],
+      z = d - i gamma, d1, d2 the bin edges relative to the centre.
+
+    Everything is vectorised over all lines at once (no loop over lines).
+    Against a direct evaluation (scipy.special.voigt_profile at 2000
+    points per bin) the transmission agrees to 1e-4 per bin and equivalent
+    widths to 0.1 % for b = 10-1000 km/s, thin to damped columns and bins
+    of 0.1-5 eV (tests/test_lines.py).
+    """
+    lo = np.asarray(lo, dtype=float)
+    hi = np.asarray(hi, dtype=float)
+    centre, area, sigma, gamma = _check_lines(centre, area, sigma, gamma)
+    if lo.size == 0 or centre.size == 0:
+        return np.ones(lo.size)
+    return _transmission(lo, hi, hi - lo, centre, area, sigma, gamma,
+                         tau_floor, tol, max_sub)
+
+
+def _transmission(lo, hi, width, c, A, s, g, tau_floor, tol, max_sub):
+    n = lo.size
+    nl = c.size
+    out = np.ones(n)
+    sq2s = _SQRT2 * s
+    tau0 = A * voigt_profile(0.0, s, g)
+    # core: Doppler part below tol and wing expansion valid beyond r_gauss;
+    # exp(<tau>) valid beyond r_sat
+    r_gauss = sq2s * np.maximum(np.sqrt(np.log(np.maximum(tau0 / tol, 1.0))), _U_WING)
+    ic = np.minimum(np.searchsorted(hi, c), n - 1)
+    r_sat = np.cbrt(2.0 * A * g * width[ic] / (np.pi * np.sqrt(24.0 * tol)))
+    r_core = np.maximum(r_gauss, r_sat)
+    r_reach = np.maximum(r_core, np.maximum(np.sqrt(A * g / (np.pi * tau_floor)), 1000.0 * g))
+    r_in = np.minimum(_TAB_UMAX * sq2s, r_reach)
+    ih = np.searchsorted(hi, np.concatenate([c - r_reach, c - r_core]), side="right")
+    il = np.searchsorted(lo, np.concatenate([c + r_core, c + r_reach]), side="left")
+    i0, j0 = ih[:nl], ih[nl:]
+    j1, i1 = il[:nl], il[nl:]
+
+    # -- wing bins: closed-form bin average of the far wing -------------------
+    span0, span1 = int(i0.min()), int(i1.max())
+    if span1 > span0:
+        wb, wo = _ranges(np.concatenate([i0, j1]), np.concatenate([j0 - i0, i1 - j1]))
+        if wb.size:
+            wo = wo % nl if nl > 1 else np.zeros_like(wo)
+            cw, gw, sw = c[wo], g[wo], s[wo]
+            d1 = lo[wb] - cw
+            d2 = hi[wb] - cw
+            ww = width[wb]
+            lor = np.arctan(ww * gw / (gw * gw + d1 * d2))
+            corr = _wing_series(d1, gw, sw) - _wing_series(d2, gw, sw)
+            tau_w = (A[wo] / (np.pi * ww)) * (lor + corr)
+            tw = np.bincount(wb - span0, weights=tau_w, minlength=span1 - span0)
+            out[span0:span1] = np.exp(-tw)
+
+    # -- core bins: sub-sampled --------------------------------------------------
+    ivs = []
+    for a_, b_ in sorted(zip(j0.tolist(), j1.tolist())):
+        if b_ <= a_:
             continue
-        # Gaussian reach: where the Doppler core falls below tau_floor
-        peak = a * voigt_profile(0.0, s, g)
-        reach_g = s * np.sqrt(2.0 * np.log(max(peak / tau_floor, 1.0))) + 5.0 * s
-        # Lorentzian reach: a g / (pi d^2) < tau_floor, and >= 1000 g
-        reach_l = max(np.sqrt(a * g / (np.pi * tau_floor)), 1000.0 * g)
-        reach = max(reach_g, reach_l)
-        i0 = int(np.searchsorted(hi, c - reach, side="right"))
-        i1 = int(np.searchsorted(lo, c + reach, side="left"))
-        if i1 <= i0:
-            continue
-        blo, bhi = lo[i0:i1], hi[i0:i1]
-        dist = np.maximum(np.maximum(blo - c, c - bhi), 0.0)
-        step = np.maximum(0.2 * (s + g), 0.25 * (dist - reach_g))
-        k = np.clip(np.ceil(width[i0:i1] / step), 1, max_sub).astype(np.int64)
-        np.maximum(nsub[i0:i1], k, out=nsub[i0:i1])
-        windows.append((c, a, s, g, c - reach, c + reach, 6.0 * (s + g)))
-    idx = np.flatnonzero(nsub)
-    if idx.size == 0:
+        if ivs and a_ <= ivs[-1][1]:
+            ivs[-1][1] = max(ivs[-1][1], b_)
+        else:
+            ivs.append([a_, b_])
+    if not ivs:
         return out
-    k = nsub[idx]
-    starts = np.zeros(idx.size, dtype=np.int64)
-    np.cumsum(k[:-1], out=starts[1:])
-    total = int(starts[-1] + k[-1])
-    owner = np.repeat(np.arange(idx.size), k)
-    pos = (np.arange(total) - starts[owner] + 0.5) / k[owner]
-    energy = lo[idx][owner] + pos * width[idx][owner]
-    tau = np.zeros(total)
-    for c, a, s, g, e_lo, e_hi, rc in windows:
-        j0, k0, k1, j1 = np.searchsorted(energy, (e_lo, c - rc, c + rc, e_hi))
-        if k1 > k0:
-            tau[k0:k1] += a * voigt_profile(energy[k0:k1] - c, s, g)
-        for m0, m1 in ((j0, k0), (k1, j1)):
-            if m1 > m0:
-                d2 = (energy[m0:m1] - c) ** 2
-                r = s * s / d2
-                tau[m0:m1] += (a * g / np.pi) / (d2 + g * g) * (1.0 + r * (3.0 + r * (15.0 + 105.0 * r)))
-    trans = np.add.reduceat(np.exp(-tau), starts) / k
-    out[idx] = trans
+    if len(ivs) == 1:
+        cb = np.arange(ivs[0][0], ivs[0][1])
+    else:
+        iv = np.array(ivs)
+        cb, _ = _ranges(iv[:, 0], iv[:, 1] - iv[:, 0])
+    blo, bhi, bw = lo[cb], hi[cb], width[cb]
+    u_t = np.sqrt(np.maximum(np.log(np.maximum(tau0, 1.0)), 1.0))
+    h0 = _ALPHA * (s / u_t + g)
+    x_g = sq2s * (u_t + 1.5)
+    cc = c[:, None]
+    near = np.maximum(np.maximum(blo - cc, cc - bhi), 0.0)
+    step = np.maximum(h0[:, None], _BETA * (near - x_g[:, None]))
+    k = np.ceil((bw / step).max(axis=0))
+    k = np.clip(k, 1, max_sub).astype(np.intp)
+    m = 2 * k
+    starts = np.cumsum(m) - m
+    own = np.repeat(np.arange(cb.size), m)
+    pos = np.arange(own.size) - starts[own]
+    x = blo[own] + (_GL2[pos & 1] + (pos >> 1)) * (bw / k)[own]
+    ns = x.size
+    q = np.searchsorted(x, np.concatenate([c - r_reach, c - r_in, c + r_in, c + r_reach]))
+    s0, sa, sb, s1 = q[:nl], q[nl:2 * nl], q[2 * nl:3 * nl], q[3 * nl:]
+    # inner points: table (or scipy for a >= _TAB_AMAX)
+    pi_, po = _ranges(sa, sb - sa)
+    tau = np.zeros(ns)
+    if pi_.size:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            inv = np.where(s > 0, 1.0 / np.where(s > 0, sq2s, 1.0), 0.0)
+        a_l = g * inv
+        u = np.abs(x[pi_] - c[po]) * inv[po]
+        slow = a_l >= _TAB_AMAX
+        if slow.any():
+            a_l = np.where(slow, 0.0, a_l)
+        hv = _table_h(u, a_l[po]) * (A / (s * _SQRT2PI + (s == 0)))[po]
+        if slow.any():
+            sel = slow[po]
+            ps, ls = pi_[sel], po[sel]
+            hv[sel] = A[ls] * voigt_profile(x[ps] - c[ls], s[ls], g[ls])
+        tau += np.bincount(pi_, weights=hv, minlength=ns)
+    # outer points: far-wing expansion
+    pw, lw = _ranges(np.concatenate([s0, sb]), np.concatenate([sa - s0, s1 - sb]))
+    if pw.size:
+        lw = lw % nl if nl > 1 else np.zeros_like(lw)
+        tau += np.bincount(pw, weights=A[lw] * _wing_point(x[pw] - c[lw], s[lw], g[lw]),
+                           minlength=ns)
+    out[cb] = np.add.reduceat(np.exp(-tau), starts) / m
     return out
+
+
+def _wing_series(d, g, s):
+    """Im sum_{n=1..4} (2n-1)!! s^2n z^-2n / (2n) with z = d - i g: the
+    Gaussian-moment corrections to the bin integral of the far wing."""
+    q = 1.0 / (d - 1j * g)
+    p = (s * s) * (q * q)
+    return (p * (0.5 + p * (0.75 + p * (2.5 + 13.125 * p)))).imag
