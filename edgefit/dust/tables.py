@@ -196,7 +196,7 @@ def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
         numba has compiled, less than starting the processes costs.
         Results do not depend on it.
     progress : bool or None
-        Show a tqdm bar (None: only for large tables).
+        Show a tqdm bar (None: for tables of more than 50 000 entries).
 
     Returns
     -------
@@ -214,7 +214,7 @@ def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
     if workers is None:
         workers = 1
     if progress is None:
-        progress = work > 200000
+        progress = work > 50000
     nblock = max(1, min(energy.size, 4 * workers if workers > 1 else energy.size // 8 or 1))
     blocks = np.array_split(np.arange(energy.size), nblock)
     result = np.empty((3, energy.size, len(sizes)))

@@ -300,7 +300,9 @@ class DustEdge(Component):
         across the edge (±20 eV), and the self-shielding ratio of the
         distribution: the jump of ⟨σ_abs⟩ per Z atom over the unshielded
         jump of the same atoms, σ_Z(E+) − σ_Z(E−) plus the other atoms'
-        (small) change, as in :mod:`edgefit.dust.shielding`."""
+        (small) change, as in :mod:`edgefit.dust.shielding`.  For Fe the
+        edge is L3 (0.707 keV) and E± = 0.687 / 0.727 keV straddle both L3
+        and L2, so the jump is that of the whole L2,3 pair."""
         vals = self._merged(values)
         e0 = self.edge_energy() + vals["shift"] * 1e-3
         e_lo, e_hi = e0 - _EDGE_OFFSET_KEV, e0 + _EDGE_OFFSET_KEV
