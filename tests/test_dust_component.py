@@ -183,5 +183,5 @@ def test_table_is_extended_to_the_grid(tmp_path):
     t = dust(EnergyGrid.linear(1.55, 2.4, 40))
     assert np.all(np.isfinite(t))
     (table, _), = dust._tables.values()
-    assert table.energy_kev[0] <= 1.525 and table.energy_kev[-1] >= 2.425
+    assert table.energy_kev[0] <= 1.50 and table.energy_kev[-1] >= 2.45
     assert len(list(tmp_path.glob("dust_olivine_*.npz"))) == 1

@@ -53,8 +53,10 @@ follows from the Rayleigh–Gans halo of each grain size).
 
 The transmission is evaluated at bin centres.  The tables cover the
 element's default edge region (:data:`edgefit.dust.tables.EDGE_REGIONS`)
-extended to the fit grid when needed (rounded outward to 0.05 keV; built
-once and cached on disk).
+extended to the fit grid when needed (with 25 eV to spare for the shift,
+rounded outward to 0.05 keV; built once and cached on disk).  Where a
+shifted evaluation reaches past the end of a table, the end value is
+used.
 """
 from __future__ import annotations
 
@@ -203,8 +205,9 @@ class DustEdge(Component):
             if tlo <= lo and thi >= hi:
                 return item
         rlo, rhi = self._region()
-        tlo = min(rlo, math.floor(lo / 0.05) * 0.05) if lo < rlo else rlo
-        thi = max(rhi, math.ceil(hi / 0.05) * 0.05) if hi > rhi else rhi
+        # extend with room for the shift parameter, rounded outward to 0.05 keV
+        tlo = min(rlo, math.floor((lo - 0.025) / 0.05) * 0.05) if lo < rlo else rlo
+        thi = max(rhi, math.ceil((hi + 0.025) / 0.05) * 0.05) if hi > rhi else rhi
         tab = _tables()
         energy = tab.edge_energy_grid(self.material, max(tlo, 0.05), thi)
         table = tab.load_or_build(self.material, energy, self.size_grid, method=self.method,
@@ -268,8 +271,9 @@ class DustEdge(Component):
 
     # -- Component interface ---------------------------------------------
     def precompute(self, grid: EnergyGrid):
-        margin = 0.025  # room for the shift parameter (+-20 eV)
-        table, pre = self._table_for(max(grid.lo[0] - margin, 0.05), grid.hi[-1] + margin)
+        # The table must cover the bin centres; a shifted evaluation that
+        # reaches past a table end takes the end value (np.interp).
+        table, pre = self._table_for(grid.mid[0], grid.mid[-1])
         return {"table": table, "pre": pre, "x": grid.mid}
 
     def _evaluate(self, grid, pre, **values):
@@ -283,7 +287,7 @@ class DustEdge(Component):
         vals = self._merged(values)
         e = np.asarray(as_kev(energy_kev), dtype=float)
         lo, hi = float(np.min(e)), float(np.max(e))
-        table, pre = self._table_for(lo - 0.025, hi + 0.025)
+        table, pre = self._table_for(lo, hi)
         tau_t = self._tau_table(table, pre, vals)
         out = np.interp(e - vals["shift"] * 1e-3, pre["energy"], tau_t)
         return float(out) if out.ndim == 0 else out
@@ -306,7 +310,7 @@ class DustEdge(Component):
         vals = self._merged(values)
         e0 = self.edge_energy() + vals["shift"] * 1e-3
         e_lo, e_hi = e0 - _EDGE_OFFSET_KEV, e0 + _EDGE_OFFSET_KEV
-        table, pre = self._table_for(e_lo - 0.025, e_hi + 0.025)
+        table, pre = self._table_for(e_lo - 0.02, e_hi + 0.02)
         s_abs, s_sca, lost, atoms = self._per_atom(table, pre, vals)
         n = vals["ndust"] * 1e16
         tau_t = n * (s_abs + lost - pre["other"])
