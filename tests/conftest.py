@@ -1,11 +1,22 @@
-"""Shared fixtures for the data-layer tests: one small grating-like
-response written to disk as RMF + ARF, and a helper that writes a PHA."""
+"""Shared fixtures: an isolated dust-table cache for the whole session, one
+small grating-like response written to disk as RMF + ARF, and a helper
+that writes a PHA."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
 from edgefit.data import gaussian_response, write_response
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _isolated_cache(tmp_path_factory):
+    """Send computed dust tables to a session temporary folder, never to the
+    user's cache; tables built by one test are reused by the others."""
+    mp = pytest.MonkeyPatch()
+    mp.setenv("EDGEFIT_CACHE_DIR", str(tmp_path_factory.mktemp("edgefit-cache")))
+    yield
+    mp.undo()
 
 
 def _area(energy_kev):
