@@ -135,6 +135,10 @@ class Dataset:
         self.channel_mask = mask
         self.sub = resp.subset(mask)
         self.grid = self.sub.grid
+        # where the sub-grid sits in the parent response's energy grid, so that
+        # datasets sharing a parent grid can share one model evaluation
+        start = int(np.searchsorted(resp.grid.lo, self.grid.lo[0]))
+        self.energy_slice = (start, start + len(self.grid))
         sel = np.flatnonzero(mask)
         counts_sel = np.asarray(spectrum.counts, dtype=float)[sel]
 

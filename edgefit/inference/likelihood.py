@@ -11,6 +11,8 @@ process pool can evaluate it.  It owns:
   profiled Poisson likelihood when a dataset has a background (Wachter,
   Leach & Kellogg 1979; :func:`edgefit.stats.profiled_background_residuals`),
   or chi-square with a stated variance choice;
+* one model evaluation per family of datasets whose energy grids are
+  slices of one response grid (on the union of the slices);
 * **the NaN policy**: expected counts that are not finite or are negative
   never reach an optimiser.  :meth:`residuals` returns a vector of
   :data:`BAD_RESIDUAL` instead (a statistic of about 1e12 per bin, which
@@ -37,6 +39,12 @@ BAD_RESIDUAL = 1e6
 #: Prefix of the cross-normalisation constants (``xnorm_1``, ``xnorm_2``...).
 XNORM_PREFIX = "xnorm_"
 STATISTICS = ("cstat", "chi2")
+
+
+def _finite_non_negative(m):
+    """True when every element is finite and >= 0 (NaN fails ``min >= 0``,
+    +inf makes the sum infinite); two reductions, no temporaries."""
+    return bool(m.min() >= 0.0 and np.isfinite(m.sum())) if m.size else True
 
 
 class JointLikelihood:
@@ -78,8 +86,27 @@ class JointLikelihood:
             raise ParameterClashError(f"model parameter(s) {sorted(clash)} clash with the "
                                       "cross-normalisation constants; rename the component")
         self.n_bins = int(sum(d.n_groups for d in self.datasets))
+        self._plan_evaluations()
         self.n_bad_evaluations = 0
         self.n_evaluations = 0
+
+    def _plan_evaluations(self):
+        """Datasets whose energy grids are slices of one parent grid (the
+        orders/arms of one response family) share a single model evaluation
+        on the union of their slices."""
+        from ..models.base import EnergyGrid
+
+        groups = {}
+        for i, ds in enumerate(self.datasets):
+            groups.setdefault(ds.response.grid.key, []).append(i)
+        self._plan = []  # (union grid, [(dataset index, offset, length)])
+        for idx in groups.values():
+            parent = self.datasets[idx[0]].response.grid
+            a = min(self.datasets[i].energy_slice[0] for i in idx)
+            b = max(self.datasets[i].energy_slice[1] for i in idx)
+            union = EnergyGrid(parent.lo[a:b], parent.hi[a:b])
+            self._plan.append((union, [(i, self.datasets[i].energy_slice[0] - a,
+                                        len(self.datasets[i].grid)) for i in idx]))
 
     # ------------------------------------------------------------------
     @property
@@ -107,14 +134,11 @@ class JointLikelihood:
         """Expected source counts per group for each dataset (list of
         arrays), cross-normalisation applied.  No NaN check here."""
         model_vals, xn = self._split(values)
-        fluxes = {}
-        out = []
-        for ds, c in zip(self.datasets, xn):
-            flux = fluxes.get(ds.grid.key)
-            if flux is None:  # datasets sharing a grid share one evaluation
-                flux = self.model.evaluate(ds.grid, model_vals)
-                fluxes[ds.grid.key] = flux
-            out.append(c * ds.fold(flux))
+        out = [None] * len(self.datasets)
+        for union, members in self._plan:
+            flux = self.model.evaluate(union, model_vals)
+            for i, off, n in members:
+                out[i] = xn[i] * self.datasets[i].fold(flux[off:off + n])
         return out
 
     def _checked(self, values):
@@ -124,7 +148,7 @@ class JointLikelihood:
                 mus = self.source_counts(values)
             except (FloatingPointError, ZeroDivisionError, OverflowError):
                 mus = None
-        if mus is None or not all(np.all(np.isfinite(m)) and np.all(m >= 0) for m in mus):
+        if mus is None or not all(_finite_non_negative(m) for m in mus):
             self.n_bad_evaluations += 1
             return None
         return mus
@@ -163,8 +187,13 @@ class JointLikelihood:
         mus = self._checked(values)
         if mus is None:
             return math.inf
-        return float(sum(np.sum(self._residual_one(ds, mu) ** 2)
-                         for ds, mu in zip(self.datasets, mus)))
+        total = 0.0
+        for ds, mu in zip(self.datasets, mus):
+            if self.statistic_name == "cstat" and not ds.has_background:
+                total += stats.c_statistic(mu, ds.counts)  # = sum of squared residuals
+            else:
+                total += float(np.sum(self._residual_one(ds, mu) ** 2))
+        return total
 
     def log_likelihood(self, values):
         """-statistic/2 (up to a constant); -inf when the model fails."""

@@ -141,6 +141,22 @@ class McmcResult:
                               for n in self.names}}
 
 
+_WORKER_LOGP = None
+
+
+def _init_worker(logp):
+    global _WORKER_LOGP
+    _WORKER_LOGP = logp
+
+
+class _WorkerLogPosterior:
+    """Picklable stand-in evaluated in pool workers with their own copy of
+    the posterior (set by :func:`_init_worker`)."""
+
+    def __call__(self, theta):
+        return _WORKER_LOGP(theta)
+
+
 def _tqdm_available():
     try:
         import tqdm  # noqa: F401
@@ -205,12 +221,16 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
             start[k] = x0 + 0.5 ** tries * (start[k] - x0)
             tries += 1
     pool = None
+    fn = logp
     if processes and processes > 1:
         import multiprocessing
 
-        pool = multiprocessing.Pool(processes)
+        # each worker receives the posterior once (initializer); emcee then
+        # ships only the small _WorkerLogPosterior proxy with each batch
+        pool = multiprocessing.Pool(processes, initializer=_init_worker, initargs=(logp,))
+        fn = _WorkerLogPosterior()
     try:
-        sampler = emcee.EnsembleSampler(nwalkers, ndim, logp, pool=pool)
+        sampler = emcee.EnsembleSampler(nwalkers, ndim, fn, pool=pool)
         sampler.random_state = np.random.RandomState(
             int(rng.integers(2 ** 31 - 1))).get_state()
         sampler.run_mcmc(start, nsteps, progress=bool(progress and _tqdm_available()))
@@ -220,7 +240,8 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
             pool.join()
     chain = sampler.get_chain()
     lp = sampler.get_log_prob()
-    tau = sampler.get_autocorr_time(tol=0)
+    with np.errstate(invalid="ignore", divide="ignore"):  # constant chains give NaN tau
+        tau = sampler.get_autocorr_time(tol=0)
     tmax = float(np.nanmax(tau))
     if burn is None:
         burn = int(min(max(2 * tmax, nsteps / 4), nsteps - 1))

@@ -1,0 +1,150 @@
+"""Benchmark: one simulated sightline, four grating-like spectra, ~12 free
+parameters (including the dust component's upper grain size).
+
+Prints (no assertions):
+* the best-fit wall time (target <= 5 s);
+* likelihood evaluations per second, measured by timing the statistic
+  over a batch of parameter vectors (target >= 1,000/s on 2 cores), and
+  the same for the pieces (model evaluation, folding, statistic) side by
+  side in the same run;
+* with --processes N, the MCMC throughput serial vs a pool.
+
+Data: invented, SIMULATED values (no real source).  Run:
+    python benchmarks/bench_fit.py
+"""
+from __future__ import annotations
+
+import argparse
+import time
+import warnings
+
+import numpy as np
+
+from edgefit.data import gaussian_response, simulate_spectrum
+from edgefit.errors import ConvergenceWarning, ShortChainWarning
+from edgefit.inference import Dataset, JointLikelihood, fit_sightline, run_mcmc
+from edgefit.inference.likelihood import ParameterVector
+from edgefit.models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
+
+TRUTH = {"ism_nh": 2.0, "gas_si_col": 6.0, "gas_si_shift": 0.0, "dust_ndust": 30.0,
+         "dust_amax": 0.3, "dust_index": 3.5, "dust_shift": 2.0, "powlaw_index": 1.7,
+         "powlaw_norm": 1.5}
+
+
+def build_model():
+    ism = SmoothISM("ism", exclude=("Si",))
+    gas = GasEdge("gas_si", element="Si")
+    dust = DustEdge("dust", material="olivine", element="Si")
+    return ism * gas * dust * PhotonPowerLaw("powlaw")
+
+
+def make_datasets(model, seed=1):
+    rng = np.random.default_rng(seed)
+    out = []
+    # four spectra: two gratings (different resolution/area) x two orders
+    for k, (fwhm, area) in enumerate([(0.012, 12.0), (0.012, 10.0), (0.023, 25.0),
+                                      (0.023, 22.0)]):
+        resp = gaussian_response(np.linspace(1.55, 2.25, 1101), np.linspace(1.6, 2.2, 901),
+                                 fwhm=fwhm, area_cm2=area)
+        flux = model.evaluate(resp.grid, TRUTH)
+        spec = simulate_spectrum(flux, resp, 1.0e5 * (1 + 0.05 * k), rng,
+                                 meta={"object": "SIM-BENCH (simulated)"})
+        out.append(Dataset(spec, ranges=(1.6, 2.2), label=f"sim {k + 1}"))
+    return out
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--processes", type=int, default=0)
+    args = ap.parse_args(argv)
+
+    t0 = time.perf_counter()
+    model = build_model()
+    model.evaluate(make_grid_probe(), TRUTH)  # build/load dust tables once
+    datasets = make_datasets(model)
+    t_setup = time.perf_counter() - t0
+    like = JointLikelihood(model, datasets)
+    params = like.make_params()
+    for name in ("gas_si_shift", "dust_index", "dust_shift"):
+        params[name].vary = True
+    # start away from the truth
+    start = {"ism_nh": 1.5, "gas_si_col": 10.0, "dust_ndust": 20.0, "dust_amax": 0.2,
+             "dust_index": 3.3, "powlaw_index": 2.0, "powlaw_norm": 1.0}
+    for k, v in start.items():
+        params[k].value = v
+    n_free = sum(p.vary and not p.expr for p in params.values())
+    print(f"setup (simulation, dust tables from cache or built): {t_setup:.2f} s")
+    print(f"{len(datasets)} spectra, {like.n_bins} bins "
+          f"({', '.join(str(d.n_groups) for d in datasets)}), {n_free} free parameters")
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        t0 = time.perf_counter()
+        res = fit_sightline(model, datasets, params=params, goodness=False)
+        t_fit = time.perf_counter() - t0
+    print(f"best fit: {t_fit:.2f} s (target <= 5 s), {res.nfev} function evaluations, "
+          f"C = {res.statistic:.1f} for dof {res.dof}, flags: {res.flags or 'none'}")
+    for k in ("dust_amax", "dust_ndust", "gas_si_col"):
+        print(f"   {k:<12} fit {res.values[k]:.4g} +/- {res.error(k) or float('nan'):.2g}"
+              f"   (simulated truth {TRUTH[k]})")
+
+    pv = ParameterVector(res.params)
+    rng = np.random.default_rng(2)
+    x0 = pv.vector()
+    thetas = x0 + 0.01 * np.abs(x0 + 0.1) * rng.standard_normal((400, len(pv)))
+    thetas = np.clip(thetas, pv.lower, pv.upper)
+    vals = [pv.values(t) for t in thetas]
+    t0 = time.perf_counter()
+    for v in vals:
+        like.statistic(v)
+    t_stat = (time.perf_counter() - t0) / len(vals)
+    # pieces, same run
+    unions = [u for u, _ in like._plan]  # one model evaluation per response family
+    t0 = time.perf_counter()
+    for v in vals:
+        for grid in unions:
+            model.evaluate(grid, v)
+    t_model = (time.perf_counter() - t0) / len(vals)
+    flux = [model.evaluate(ds.grid, vals[0]) for ds in datasets]
+    t0 = time.perf_counter()
+    for _ in vals:
+        for ds, f in zip(datasets, flux):
+            ds.fold(f)
+    t_fold = (time.perf_counter() - t0) / len(vals)
+    print(f"likelihood evaluations: {1 / t_stat:,.0f} /s (target >= 1,000/s); per call "
+          f"{1e3 * t_stat:.3f} ms = model {1e3 * t_model:.3f} ms + folding "
+          f"{1e3 * t_fold:.3f} ms + statistic/overhead "
+          f"{1e3 * (t_stat - t_model - t_fold):.3f} ms")
+    pieces = []
+    for comp in model.components():
+        t0 = time.perf_counter()
+        for v in vals[:100]:
+            for grid in unions:
+                comp.evaluate(grid, v)
+        pieces.append(f"{comp.name} {1e3 * (time.perf_counter() - t0) / 100:.3f} ms")
+    print(f"   model evaluated on {len(unions)} shared grid(s) of "
+          f"{', '.join(str(len(g)) for g in unions)} bins; per component: " + ", ".join(pieces))
+
+    if args.processes:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ShortChainWarning)
+            t0 = time.perf_counter()
+            run_mcmc(res, nwalkers=48, nsteps=40, seed=1, store=False)
+            ser = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            run_mcmc(res, nwalkers=48, nsteps=40, seed=1, store=False,
+                     processes=args.processes)
+            par = time.perf_counter() - t0
+        n = 48 * 40
+        print(f"MCMC {n} evaluations: serial {n / ser:,.0f}/s, pool of {args.processes} "
+              f"{n / par:,.0f}/s (ratio {ser / par:.2f})")
+
+
+def make_grid_probe():
+    from edgefit.models.base import EnergyGrid
+
+    return EnergyGrid.linear(1.55, 2.25, 50)
+
+
+if __name__ == "__main__":
+    main()
