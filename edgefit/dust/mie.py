@@ -84,8 +84,12 @@ Bohren & Huffman eq. 4.62's
 Back ends
 ---------
 The per-sphere kernel runs compiled with numba when numba is importable
-(an optional dependency, imported lazily and parallel over spheres), else
-as a pure-NumPy loop over the order n vectorised over spheres.  Both
+(an optional dependency, imported lazily on first use and cached on disk by
+numba; blocks of spheres run in parallel threads when the batch has more
+than ``PARALLEL_MIN_TERMS`` terms), else as a pure-NumPy loop over the
+order n vectorised over spheres (about 10x slower; fine for small batches
+and for many energies at one size).  Set ``EDGEFIT_NO_NUMBA=1`` to force
+the NumPy path.  Both
 implement the same recurrences in the same order and agree to about
 1e-13 (tested).  Memory is bounded: the NumPy path processes spheres in
 chunks of at most ``chunk_terms`` stored terms.
@@ -104,7 +108,8 @@ from collections import namedtuple
 
 import numpy as np
 
-__all__ = ["MieEfficiencies", "mie_efficiencies", "n_terms", "numba_available"]
+__all__ = ["MieEfficiencies", "mie_efficiencies", "n_terms", "numba_available",
+           "PARALLEL_MIN_TERMS"]
 
 #: Result of :func:`mie_efficiencies` (and of the ADT and automatic
 #: functions): extinction, scattering and absorption efficiencies
@@ -156,28 +161,44 @@ def _check_inputs(m, x):
 def _sphere(m, mm1, x, nstop, nstart, dm, dx, ee):
     """Mie sums for one sphere; dm, dx, ee are work arrays of length >= nstop+1.
 
-    Returns (qext, qsca, qabs, g)."""
+    Complex reciprocals and quotients are written as conj(b)/|b|^2 (the
+    moduli involved stay far from under/overflow for n <= n_stop), which
+    compiles to fewer operations than a general complex division and lets
+    the |den|^2 of the absorption sum be reused.  Returns (qext, qsca, qabs, g)."""
     z = m * x
     inv_z = 1.0 / z
+    izr = inv_z.real
+    izi = inv_z.imag
     inv_x = 1.0 / x
     c = mm1 * inv_z
-    d1 = 0j
+    cr = c.real
+    ci = c.imag
+    d1r = 0.0
+    d1i = 0.0
     d0 = 0.0
-    e = 0j
-    # downward recurrences from n = nstart to n = 1; store D_{n-1} for n-1 <= nstop
+    er = 0.0
+    ei = 0.0
+    # downward recurrences n = nstart .. 2 give D_{n-1}; stored for n-1 <= nstop
     for n in range(nstart, 1, -1):
-        a_ = d1 + n * inv_z
-        b_ = d0 + n * inv_x
-        ia = 1.0 / a_
-        ib = 1.0 / b_
-        cn = c * n
-        e = (e - cn) * (ia * ib) - cn
-        d1 = n * inv_z - ia
+        ar = d1r + n * izr
+        ai = d1i + n * izi
+        s2 = 1.0 / (ar * ar + ai * ai)
+        iar = ar * s2
+        iai = -ai * s2
+        ib = 1.0 / (d0 + n * inv_x)
+        cnr = cr * n
+        cni = ci * n
+        tr = (er - cnr) * ib
+        ti = (ei - cni) * ib
+        er = tr * iar - ti * iai - cnr
+        ei = tr * iai + ti * iar - cni
+        d1r = n * izr - iar
+        d1i = n * izi - iai
         d0 = n * inv_x - ib
-        if n - 1 <= nstop:
-            dm[n - 1] = d1
+        if n <= nstop + 1:
+            dm[n - 1] = complex(d1r, d1i)
             dx[n - 1] = d0
-            ee[n - 1] = e
+            ee[n - 1] = complex(er, ei)
     mc = m.conjugate()
     psi_m2 = np.cos(x)     # psi_{-1}
     chi_m2 = -np.sin(x)    # chi_{-1}
@@ -202,13 +223,14 @@ def _sphere(m, mm1, x, nstop, nstart, dm, dx, ee):
         ni = n * inv_x
         den_a = xi * (dn + m * ni) - m * xi_m1
         den_b = xi * (m * dn + ni) - xi_m1
-        an = psi * (en - mm1 * dxn) / den_a
-        bn = psi * (m * en + mm1 * dxn) / den_b
+        qa = 1.0 / (den_a.real * den_a.real + den_a.imag * den_a.imag)
+        qb = 1.0 / (den_b.real * den_b.real + den_b.imag * den_b.imag)
+        an = psi * (en - mm1 * dxn) * den_a.conjugate() * qa
+        bn = psi * (m * en + mm1 * dxn) * den_b.conjugate() * qb
         w = 2 * n + 1
         sca += w * (an.real * an.real + an.imag * an.imag
                     + bn.real * bn.real + bn.imag * bn.imag)
-        absn += w * (-(mc * dn).imag / (den_a.real * den_a.real + den_a.imag * den_a.imag)
-                     - (m * dn).imag / (den_b.real * den_b.real + den_b.imag * den_b.imag))
+        absn += w * (-(mc * dn).imag * qa - (m * dn).imag * qb)
         if n > 1:
             gsum += ((n - 1) * (n + 1) / n) * ((a_prev * an.conjugate()).real
                                                + (b_prev * bn.conjugate()).real)
@@ -226,25 +248,40 @@ def _sphere(m, mm1, x, nstop, nstart, dm, dx, ee):
     return qsca + qabs, qsca, qabs, g
 
 
-def _batch(m, mm1, x, nstop, nstart, out):
-    """Loop of :func:`_sphere` over flat arrays (compiled with prange by numba)."""
-    for i in range(x.size):
-        k = nstop[i] + 1
+def _blocks_kernel(m, mm1, x, nstop, nstart, out, bounds):
+    """Blocks of spheres, in parallel when compiled (``_prange`` becomes
+    numba.prange); work arrays are allocated once per block."""
+    for blk in _prange(bounds.size - 1):
+        lo = bounds[blk]
+        hi = bounds[blk + 1]
+        k = 1
+        for i in range(lo, hi):
+            k = max(k, nstop[i] + 1)
         dm = np.empty(k, dtype=np.complex128)
         dx = np.empty(k, dtype=np.float64)
         ee = np.empty(k, dtype=np.complex128)
-        r = _sphere(m[i], mm1[i], x[i], nstop[i], nstart[i], dm, dx, ee)
-        out[0, i] = r[0]
-        out[1, i] = r[1]
-        out[2, i] = r[2]
-        out[3, i] = r[3]
+        for i in range(lo, hi):
+            r = _sphere_kernel(m[i], mm1[i], x[i], nstop[i], nstart[i], dm, dx, ee)
+            out[0, i] = r[0]
+            out[1, i] = r[1]
+            out[2, i] = r[2]
+            out[3, i] = r[3]
 
 
-_NUMBA = {"tried": False, "batch": None}
+# Module globals the compiled block loop resolves at compile time.
+_prange = range
+_sphere_kernel = _sphere
+_NUMBA = {"tried": False, "batch": None, "serial": None}
+
+#: Below this many terms (sum of n_stop) the compiled loop runs on one thread,
+#: where starting threads would cost more than it saves.
+PARALLEL_MIN_TERMS = 200_000
 
 
 def _numba_batch():
-    """Compile (once) and return the numba batch kernel, or None."""
+    """Compile (once per process; numba's on-disk cache makes later
+    processes fast) and return the numba batch kernel, or None."""
+    global _prange, _sphere_kernel
     if not _NUMBA["tried"]:
         _NUMBA["tried"] = True
         if os.environ.get("EDGEFIT_NO_NUMBA"):
@@ -253,21 +290,15 @@ def _numba_batch():
             import numba
         except ImportError:
             return None
-        sphere = numba.njit(cache=True, fastmath=False)(_sphere)
-
-        def batch(m, mm1, x, nstop, nstart, out):
-            for i in numba.prange(x.size):
-                k = nstop[i] + 1
-                dm = np.empty(k, dtype=np.complex128)
-                dx = np.empty(k, dtype=np.float64)
-                ee = np.empty(k, dtype=np.complex128)
-                r = sphere(m[i], mm1[i], x[i], nstop[i], nstart[i], dm, dx, ee)
-                out[0, i] = r[0]
-                out[1, i] = r[1]
-                out[2, i] = r[2]
-                out[3, i] = r[3]
-
-        _NUMBA["batch"] = numba.njit(parallel=True, cache=True)(batch)
+        _prange = numba.prange
+        try:
+            _sphere_kernel = numba.njit(cache=True)(_sphere)
+            _NUMBA["batch"] = numba.njit(parallel=True, cache=True)(_blocks_kernel)
+            _NUMBA["serial"] = numba.njit(cache=True)(_blocks_kernel)
+        except RuntimeError:           # no writable cache location: compile only
+            _sphere_kernel = numba.njit(_sphere)
+            _NUMBA["batch"] = numba.njit(parallel=True)(_blocks_kernel)
+            _NUMBA["serial"] = numba.njit(_blocks_kernel)
     return _NUMBA["batch"]
 
 
@@ -387,6 +418,14 @@ def _numpy_batch(m, mm1, x, nstop, nstart, out, chunk_terms):
         i = j
 
 
+def _blocks(nstop, per_block=64):
+    """Block boundaries of about equal work (sum of n_stop) for the compiled loop."""
+    work = np.cumsum(nstop + 20)
+    nblk = int(min(max(1, nstop.size // per_block), 256))
+    edges = np.searchsorted(work, work[-1] * np.arange(1, nblk) / nblk)
+    return np.unique(np.concatenate([[0], edges, [nstop.size]])).astype(np.int64)
+
+
 def mie_efficiencies(m, x, *, backend="auto", m_minus_1=None,
                      chunk_terms=DEFAULT_CHUNK_TERMS):
     r"""Exact Mie efficiencies and asymmetry parameter of homogeneous spheres.
@@ -453,7 +492,9 @@ def mie_efficiencies(m, x, *, backend="auto", m_minus_1=None,
                           "use backend='numpy' or 'auto'")
     if xf.size:
         if kernel is not None:
-            kernel(mf, mm1f, xf, nstop, nstart, out)
+            if nstop.sum() < PARALLEL_MIN_TERMS:
+                kernel = _NUMBA["serial"]
+            kernel(mf, mm1f, xf, nstop, nstart, out, _blocks(nstop))
         else:
             _numpy_batch(mf, mm1f, xf, nstop, nstart, out, int(chunk_terms))
     res = [out[i].reshape(shape) for i in range(4)]
