@@ -119,12 +119,16 @@ class SmoothISM(Component):
     # component interface --------------------------------------------------
     def precompute(self, grid: EnergyGrid):
         m, h1, h2 = self.cross_sections(grid.mid)
-        return (m * _NH_UNIT, h1 * _NH_UNIT, 0.5 * h2 * _NH_UNIT)
+        # the last combined cross section, keyed by mol_frac (usually fixed)
+        return [m * _NH_UNIT, h1 * _NH_UNIT, 0.5 * h2 * _NH_UNIT, None, None]
 
     def _evaluate(self, grid, pre, nh, mol_frac):
-        m, h1, h2half = pre
-        tau = nh * (m + (1.0 - mol_frac) * h1 + mol_frac * h2half)
-        return np.exp(-tau)
+        if pre[3] != mol_frac:
+            m, h1, h2half = pre[:3]
+            pre[4] = -(m + (1.0 - mol_frac) * h1 + mol_frac * h2half)
+            pre[3] = mol_frac
+        out = pre[4] * nh
+        return np.exp(out, out=out)
 
     def optical_depth(self, energy_kev, **values):
         v = self._merged(values)
@@ -322,10 +326,11 @@ class IonLines(Component):
         return owner, e0, area1, gam
 
     def precompute(self, grid: EnergyGrid):
-        return self._table()
+        """Line table and the grid arrays of :func:`edgefit.physics.lines.line_grid`."""
+        return self._table() + (_lines.line_grid(grid.lo, grid.hi),)
 
     def _line_arrays(self, pre, v):
-        owner, e0, area1, gam = pre
+        owner, e0, area1, gam = pre[:4]
         logn = np.array([v[f"logn_{k}"] for k in self.ions])
         col = np.where(logn > self.LOGN_OFF, 10.0 ** np.minimum(logn, 30.0), 0.0)
         centre = e0 / (1.0 + v["v"] / _lines.SPEED_OF_LIGHT_KMS)
@@ -333,7 +338,16 @@ class IonLines(Component):
 
     def _evaluate(self, grid, pre, **v):
         c, a, s, g = self._line_arrays(pre, v)
-        return _lines.binned_line_transmission(grid.lo, grid.hi, c, a, s, g)
+        # parameter bounds keep b > 0 and gamma > 0, so only absent ions
+        # need removing before the (unchecked) core routine
+        if not s[0] > 0:       # b <= 0 from an unbounded caller: checked path
+            return _lines.binned_line_transmission(grid.lo, grid.hi, c, a, s, g)
+        keep = a > 0
+        if not keep.all():
+            if not keep.any():
+                return np.ones(len(grid))
+            c, a, s, g = c[keep], a[keep], s[keep], g[keep]
+        return _lines._transmission(pre[4], c, a, s, g)
 
     def optical_depth(self, energy_kev, **values):
         """Optical depth at ``energy_kev`` (unbinned Voigt profiles)."""

@@ -25,6 +25,7 @@ Units: energies keV, wavelengths Angstrom, b km/s, Gamma s^-1, columns cm^-2.
 from __future__ import annotations
 
 import functools
+import os
 import shlex
 from dataclasses import dataclass
 
@@ -327,59 +328,116 @@ def binned_line_transmission(lo, hi, centre, area, sigma, gamma, *, tau_floor=1e
     widths to 0.1 % for b = 10-1000 km/s, thin to damped columns and bins
     of 0.1-5 eV (tests/test_lines.py).
     """
+    centre, area, sigma, gamma = _check_lines(centre, area, sigma, gamma)
+    grid = line_grid(lo, hi)
+    if grid[0].size == 0 or centre.size == 0:
+        return np.ones(grid[0].size)
+    return _transmission(grid, centre, area, sigma, gamma, tau_floor, tol, max_sub)
+
+
+def line_grid(lo, hi):
+    """Grid-only arrays used by the line code, worth caching per grid:
+    ``(lo, hi, width, edges)`` with ``edges`` = lo followed by hi[-1] when
+    the bins are contiguous (else None)."""
     lo = np.asarray(lo, dtype=float)
     hi = np.asarray(hi, dtype=float)
-    centre, area, sigma, gamma = _check_lines(centre, area, sigma, gamma)
-    if lo.size == 0 or centre.size == 0:
-        return np.ones(lo.size)
-    return _transmission(lo, hi, hi - lo, centre, area, sigma, gamma,
-                         tau_floor, tol, max_sub)
+    edges = None
+    if lo.size and np.array_equal(lo[1:], hi[:-1]):
+        edges = np.append(lo, hi[-1])
+    return lo, hi, hi - lo, edges
 
 
-def _transmission(lo, hi, width, c, A, s, g, tau_floor, tol, max_sub):
+def _transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
+                  backend="auto"):
+    """Core of :func:`binned_line_transmission` for validated lines with
+    ``area > 0`` and a :func:`line_grid` tuple.  ``backend``: "numpy",
+    "numba" or "auto" (numba when importable, see :func:`numba_available`);
+    both run the same algorithm and agree to rounding."""
+    lo, hi, width, edges = grid
     n = lo.size
     nl = c.size
-    out = np.ones(n)
     sq2s = _SQRT2 * s
     tau0 = A * voigt_profile(0.0, s, g)
+    ag = A * g
     # core: Doppler part below tol and wing expansion valid beyond r_gauss;
     # exp(<tau>) valid beyond r_sat
-    r_gauss = sq2s * np.maximum(np.sqrt(np.log(np.maximum(tau0 / tol, 1.0))), _U_WING)
-    ic = np.minimum(np.searchsorted(hi, c), n - 1)
-    r_sat = np.cbrt(2.0 * A * g * width[ic] / (np.pi * np.sqrt(24.0 * tol)))
-    r_core = np.maximum(r_gauss, r_sat)
-    r_reach = np.maximum(r_core, np.maximum(np.sqrt(A * g / (np.pi * tau_floor)), 1000.0 * g))
+    r_gauss = sq2s * np.sqrt(np.maximum(np.log(tau0 * (1.0 / tol)), _U_WING ** 2))
+    wl = width[np.minimum(np.searchsorted(hi, c), n - 1)]
+    r_core = np.maximum(r_gauss, np.cbrt(ag * wl * (2.0 / (np.pi * np.sqrt(24.0 * tol)))))
+    r_reach = np.maximum(r_core, np.maximum(np.sqrt(ag * (1.0 / (np.pi * tau_floor))),
+                                            1000.0 * g))
     r_in = np.minimum(_TAB_UMAX * sq2s, r_reach)
     ih = np.searchsorted(hi, np.concatenate([c - r_reach, c - r_core]), side="right")
     il = np.searchsorted(lo, np.concatenate([c + r_core, c + r_reach]), side="left")
     i0, j0 = ih[:nl], ih[nl:]
     j1, i1 = il[:nl], il[nl:]
-
-    # -- wing bins: closed-form bin average of the far wing -------------------
-    span0, span1 = int(i0.min()), int(i1.max())
-    if span1 > span0:
-        wb, wo = _ranges(np.concatenate([i0, j1]), np.concatenate([j0 - i0, i1 - j1]))
-        if wb.size:
-            wo = wo % nl if nl > 1 else np.zeros_like(wo)
-            cw, gw, sw = c[wo], g[wo], s[wo]
-            d1 = lo[wb] - cw
-            d2 = hi[wb] - cw
-            ww = width[wb]
-            lor = np.arctan(ww * gw / (gw * gw + d1 * d2))
-            corr = _wing_series(d1, gw, sw) - _wing_series(d2, gw, sw)
-            tau_w = (A[wo] / (np.pi * ww)) * (lor + corr)
-            tw = np.bincount(wb - span0, weights=tau_w, minlength=span1 - span0)
-            out[span0:span1] = np.exp(-tw)
-
-    # -- core bins: sub-sampled --------------------------------------------------
+    # bins needing sub-samples: union of the cores
     ivs = []
     for a_, b_ in sorted(zip(j0.tolist(), j1.tolist())):
         if b_ <= a_:
             continue
         if ivs and a_ <= ivs[-1][1]:
-            ivs[-1][1] = max(ivs[-1][1], b_)
+            if b_ > ivs[-1][1]:
+                ivs[-1][1] = b_
         else:
             ivs.append([a_, b_])
+    # per-line constants of the sub-sampling step and the table look-up
+    u_t = np.sqrt(np.maximum(np.log(tau0), 1.0))
+    h0 = _ALPHA * (s / u_t + g)
+    x_g = sq2s * (u_t + 1.5)
+    pos_s = s > 0
+    inv = np.divide(1.0, sq2s, out=np.zeros(nl), where=pos_s)
+    a_l = g * inv
+    slow = a_l >= _TAB_AMAX
+    any_slow = bool(slow.any())
+    if any_slow:
+        a_l[slow] = 0.0
+    af = a_l * (1.0 / _TAB_DA)
+    ja = af.astype(np.intp)
+    ta = af - ja
+    norm = np.divide(A, s * _SQRT2PI, out=np.zeros(nl), where=pos_s)
+    inv_du = inv * (1.0 / _TAB_DU)
+    if not any_slow and backend != "numpy":
+        kern = _numba_kernel() if backend == "auto" else _numba_kernel(required=True)
+        if kern is not None:
+            iv = np.array(ivs, dtype=np.intp).reshape(-1, 2)
+            out = np.empty(n)
+            kern(lo, hi, width, edges is not None, c, A, s, g, i0, j0, j1, i1,
+                 iv[:, 0].copy(), iv[:, 1].copy(), h0, x_g, r_reach, r_in, inv_du,
+                 ja, ta, norm, voigt_table(), _TAB_NU, max_sub, _BETA, out)
+            return out
+
+    out = np.ones(n)
+    # -- wing bins: closed-form bin average of the far wing -------------------
+    span0, span1 = int(i0.min()), int(i1.max())
+    if span1 > span0:
+        first = np.concatenate([i0, j1])
+        count = np.concatenate([j0 - i0, i1 - j1])
+        line2 = np.concatenate([np.arange(nl), np.arange(nl)])
+        if edges is not None:
+            # antiderivative at the shared edges of each wing range
+            ep, eo = _ranges(first, count + (count > 0))
+            lo_ = line2[eo]
+            fe = _wing_antiderivative(edges[ep] - c[lo_], g[lo_], s[lo_])
+            wb, wo = _ranges(first, count)
+            # position of bin wb's lower edge in ep: each non-empty range
+            # has one extra edge, so shift by the non-empty ranges before it
+            nonempty = count > 0
+            k = np.arange(wb.size) + (np.cumsum(nonempty) - nonempty)[wo]
+            dF = fe[k + 1] - fe[k]
+            wo = line2[wo]
+        else:
+            wb, wo = _ranges(first, count)
+            wo = line2[wo]
+            cw = c[wo]
+            dF = _wing_antiderivative(hi[wb] - cw, g[wo], s[wo]) \
+                - _wing_antiderivative(lo[wb] - cw, g[wo], s[wo])
+        if wb.size:
+            tau_w = dF * (A * (1.0 / np.pi))[wo] / width[wb]
+            tw = np.bincount(wb - span0, weights=tau_w, minlength=span1 - span0)
+            out[span0:span1] = np.exp(-tw)
+
+    # -- core bins: sub-sampled --------------------------------------------------
     if not ivs:
         return out
     if len(ivs) == 1:
@@ -388,14 +446,10 @@ def _transmission(lo, hi, width, c, A, s, g, tau_floor, tol, max_sub):
         iv = np.array(ivs)
         cb, _ = _ranges(iv[:, 0], iv[:, 1] - iv[:, 0])
     blo, bhi, bw = lo[cb], hi[cb], width[cb]
-    u_t = np.sqrt(np.maximum(np.log(np.maximum(tau0, 1.0)), 1.0))
-    h0 = _ALPHA * (s / u_t + g)
-    x_g = sq2s * (u_t + 1.5)
     cc = c[:, None]
     near = np.maximum(np.maximum(blo - cc, cc - bhi), 0.0)
     step = np.maximum(h0[:, None], _BETA * (near - x_g[:, None]))
-    k = np.ceil((bw / step).max(axis=0))
-    k = np.clip(k, 1, max_sub).astype(np.intp)
+    k = np.minimum(np.ceil((bw / step).max(axis=0)), max_sub).astype(np.intp)
     m = 2 * k
     starts = np.cumsum(m) - m
     own = np.repeat(np.arange(cb.size), m)
@@ -404,36 +458,155 @@ def _transmission(lo, hi, width, c, A, s, g, tau_floor, tol, max_sub):
     ns = x.size
     q = np.searchsorted(x, np.concatenate([c - r_reach, c - r_in, c + r_in, c + r_reach]))
     s0, sa, sb, s1 = q[:nl], q[nl:2 * nl], q[2 * nl:3 * nl], q[3 * nl:]
-    # inner points: table (or scipy for a >= _TAB_AMAX)
+    # inner points: table of H(a, u) (scipy for a >= _TAB_AMAX)
     pi_, po = _ranges(sa, sb - sa)
-    tau = np.zeros(ns)
     if pi_.size:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            inv = np.where(s > 0, 1.0 / np.where(s > 0, sq2s, 1.0), 0.0)
-        a_l = g * inv
-        u = np.abs(x[pi_] - c[po]) * inv[po]
-        slow = a_l >= _TAB_AMAX
-        if slow.any():
-            a_l = np.where(slow, 0.0, a_l)
-        hv = _table_h(u, a_l[po]) * (A / (s * _SQRT2PI + (s == 0)))[po]
-        if slow.any():
+        kf = np.abs(x[pi_] - c[po]) * inv_du[po]
+        kk = kf.astype(np.intp)
+        t = kf - kk
+        flat = (ja * _TAB_NU)[po] + kk
+        tab = voigt_table()
+        h00 = tab[flat]
+        hv = h00 + t * (tab[flat + 1] - h00)
+        flat += _TAB_NU
+        h10 = tab[flat]
+        hv += ta[po] * (h10 + t * (tab[flat + 1] - h10) - hv)
+        hv *= norm[po]
+        if any_slow:
             sel = slow[po]
             ps, ls = pi_[sel], po[sel]
             hv[sel] = A[ls] * voigt_profile(x[ps] - c[ls], s[ls], g[ls])
-        tau += np.bincount(pi_, weights=hv, minlength=ns)
+        tau = np.bincount(pi_, weights=hv, minlength=ns)
+    else:
+        tau = np.zeros(ns)
     # outer points: far-wing expansion
     pw, lw = _ranges(np.concatenate([s0, sb]), np.concatenate([sa - s0, s1 - sb]))
     if pw.size:
-        lw = lw % nl if nl > 1 else np.zeros_like(lw)
+        lw = lw % nl
         tau += np.bincount(pw, weights=A[lw] * _wing_point(x[pw] - c[lw], s[lw], g[lw]),
                            minlength=ns)
     out[cb] = np.add.reduceat(np.exp(-tau), starts) / m
     return out
 
 
-def _wing_series(d, g, s):
-    """Im sum_{n=1..4} (2n-1)!! s^2n z^-2n / (2n) with z = d - i g: the
-    Gaussian-moment corrections to the bin integral of the far wing."""
-    q = 1.0 / (d - 1j * g)
-    p = (s * s) * (q * q)
-    return (p * (0.5 + p * (0.75 + p * (2.5 + 13.125 * p)))).imag
+def _kernel(lo, hi, width, contiguous, c, A, s, g, i0, j0, j1, i1, iv_lo, iv_hi,
+            h0, x_g, r_reach, r_in, inv_du, ja, ta, norm, tab, nu, max_sub, beta, out):
+    """Loop form of the NumPy body of :func:`_transmission` (compiled by
+    numba): same wing bins, same sub-samples, same formulas."""
+    n = lo.size
+    nl = c.size
+    tw = np.zeros(n)
+    span0 = n
+    span1 = 0
+    for ll in range(nl):
+        span0 = min(span0, i0[ll])
+        span1 = max(span1, i1[ll])
+        for side in range(2):
+            a_ = i0[ll] if side == 0 else j1[ll]
+            b_ = j0[ll] if side == 0 else i1[ll]
+            if b_ <= a_:
+                continue
+            f_prev = _wing_antiderivative(lo[a_] - c[ll], g[ll], s[ll])
+            for b in range(a_, b_):
+                if b > a_ and not contiguous:
+                    f_prev = _wing_antiderivative(lo[b] - c[ll], g[ll], s[ll])
+                f_next = _wing_antiderivative(hi[b] - c[ll], g[ll], s[ll])
+                tw[b] += (f_next - f_prev) * (A[ll] * (1.0 / np.pi)) / width[b]
+                f_prev = f_next
+    for b in range(n):
+        out[b] = 1.0
+    for b in range(span0, span1):
+        out[b] = np.exp(-tw[b])
+    gl0 = 0.5 - 0.5 / np.sqrt(3.0)
+    gl1 = 0.5 + 0.5 / np.sqrt(3.0)
+    for iv in range(iv_lo.size):
+        for b in range(iv_lo[iv], iv_hi[iv]):
+            blo = lo[b]
+            bhi = hi[b]
+            bw = width[b]
+            kmax = 0.0
+            for ll in range(nl):
+                near = max(max(blo - c[ll], c[ll] - bhi), 0.0)
+                step = max(h0[ll], beta * (near - x_g[ll]))
+                kmax = max(kmax, bw / step)
+            k = int(min(np.ceil(kmax), max_sub))
+            hstep = bw / k
+            acc = 0.0
+            for j in range(2 * k):
+                x = blo + ((gl1 if j & 1 else gl0) + (j >> 1)) * hstep
+                tau = 0.0
+                for ll in range(nl):
+                    cl = c[ll]
+                    if x >= cl - r_reach[ll] and x < cl + r_reach[ll]:
+                        if x >= cl - r_in[ll] and x < cl + r_in[ll]:
+                            kf = abs(x - cl) * inv_du[ll]
+                            kk = int(kf)
+                            t = kf - kk
+                            flat = ja[ll] * nu + kk
+                            h00 = tab[flat]
+                            hv = h00 + t * (tab[flat + 1] - h00)
+                            flat += nu
+                            h10 = tab[flat]
+                            hv += ta[ll] * (h10 + t * (tab[flat + 1] - h10) - hv)
+                            tau += hv * norm[ll]
+                        else:
+                            tau += A[ll] * _wing_point(x - cl, s[ll], g[ll])
+                acc += np.exp(-tau)
+            out[b] = acc / (2 * k)
+
+
+_NUMBA: dict = {"tried": False, "kernel": None}
+
+
+def _numba_kernel(required=False):
+    """The compiled :func:`_kernel` (built once per process, cached on disk
+    by numba), or None when numba is not importable or ``EDGEFIT_NO_NUMBA``
+    is set.  ``required=True`` raises instead of returning None."""
+    if not _NUMBA["tried"]:
+        _NUMBA["tried"] = True
+        if not os.environ.get("EDGEFIT_NO_NUMBA"):
+            try:
+                import numba
+            except ImportError:
+                numba = None
+            if numba is not None:
+                try:
+                    jit = numba.njit(cache=True)
+                    _NUMBA["kernel"] = _compile(numba, jit)
+                except RuntimeError:          # no writable cache: compile only
+                    _NUMBA["kernel"] = _compile(numba, numba.njit)
+    if required and _NUMBA["kernel"] is None:
+        raise PhysicsDataError("backend='numba' requested but numba is not available "
+                               "(pip install numba, or unset EDGEFIT_NO_NUMBA)")
+    return _NUMBA["kernel"]
+
+
+def _compile(numba, jit):
+    from numba.extending import register_jitable
+
+    register_jitable(_wing_antiderivative)
+    register_jitable(_wing_point)
+    return jit(_kernel)
+
+
+def numba_available():
+    """True if the compiled line kernel can be used."""
+    return _numba_kernel() is not None
+
+
+def _wing_antiderivative(d, g, s):
+    """pi times the antiderivative of the far-wing expansion of the Voigt
+    profile, in real arithmetic:
+    arctan(d/gamma) + Im sum_{n=1..4} -(2n-1)!! s^2n z^-2n / (2n), z = d - i gamma
+    (gamma > 0)."""
+    d2 = d * d
+    g2 = g * g
+    p = 1.0 / (d2 + g2)
+    sp = (s * s) * (p * p)
+    pr = sp * (d2 - g2)            # s^2 z^-2 = pr + i pi
+    pim = sp * (2.0 * d * g)
+    qr = 2.5 + 13.125 * pr
+    qi = 13.125 * pim
+    qr, qi = 0.75 + pr * qr - pim * qi, pr * qi + pim * qr
+    qr, qi = 0.5 + pr * qr - pim * qi, pr * qi + pim * qr
+    return np.arctan(d / g) - (pr * qi + pim * qr)
