@@ -14,8 +14,6 @@ import pytest
 
 from edgefit.dust.mie import MieEfficiencies, mie_efficiencies, n_terms, numba_available
 
-miepython = pytest.importorskip("miepython")
-
 BACKENDS = ["numpy"] + (["numba"] if numba_available() else [])
 
 
@@ -38,6 +36,7 @@ def _optical_points():
 def test_against_miepython_xray_and_optical():
     # miepython 3.3 efficiencies_mx; tolerance 1e-6 relative in Q_ext, Q_sca
     # and g (the brief's bar); the observed agreement is ~1e-10.
+    miepython = pytest.importorskip("miepython")
     mx, xx = _xray_points(160, seed=20240601)
     mo, xo = _optical_points()
     m = np.concatenate([mx, mo])
