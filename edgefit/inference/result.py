@@ -24,7 +24,12 @@ from dataclasses import dataclass, field
 import numpy as np
 from astropy import units as u
 
-__all__ = ["FitResult", "Interval", "level_label"]
+__all__ = ["FitResult", "Interval", "level_label", "INFO_FLAGS"]
+
+#: Flags that inform without casting doubt on the final fit
+#: (``refit_after_profile``: a profile scan met a lower minimum and the fit
+#: was redone from there).
+INFO_FLAGS = {"refit_after_profile"}
 
 
 def level_label(level: float) -> str:
@@ -127,8 +132,9 @@ class FitResult:
 
     @property
     def converged(self):
-        """True when no convergence flag was raised."""
-        return not self.flags
+        """True when no convergence flag other than the informational ones
+        (:data:`INFO_FLAGS`) was raised."""
+        return not (set(self.flags) - INFO_FLAGS)
 
     @property
     def values(self):
@@ -172,7 +178,9 @@ class FitResult:
         if self.ppc:
             lines.append(f"posterior predictive check: p = {self.ppc['p_value']:.3g} "
                          f"({self.ppc['n_draws']} draws)")
-        lines.append("convergence: " + ("ok" if self.converged else
+        lines.append("convergence: " + ("ok" + (f" (notes: {', '.join(self.flags)})"
+                                                 if self.flags else "")
+                                        if self.converged else
                                         "DOUBTFUL (" + ", ".join(self.flags) + ")"))
         lines.append("")
         hdr = f"{'parameter':<28}{'value':>26}  {'unit':<18}{'status':<10}"

@@ -95,11 +95,23 @@ def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize
             per = "\u00c5" if wave else "keV"
             ax.set_ylabel(f"counts s$^{{-1}}$ {per}$^{{-1}}$")
             axr.set_ylabel("residual\n(deviance)")
-            ax.set_title(ds.label, fontsize=9, loc="left")
+            ax.text(0.01, 0.96, ds.label, transform=ax.transAxes, va="top", ha="left",
+                    fontsize=9)
             if k == 0:
                 ax.legend(loc="best", frameon=False)
             if window is not None:
                 ax.set_xlim(*window)
+                vis = (x >= min(window)) & (x <= max(window))
+                if vis.any():
+                    yv = np.r_[(cnt * norm)[vis], (mod * norm)[vis]]
+                    err = (np.sqrt(np.maximum(cnt, 1.0)) * norm)[vis]
+                    lo_y = min(yv.min(), ((cnt * norm)[vis] - err).min())
+                    hi_y = max(yv.max(), ((cnt * norm)[vis] + err).max())
+                    pad = 0.08 * (hi_y - lo_y)
+                    ax.set_ylim(lo_y - pad, hi_y + 2.5 * pad)
+                    r_vis = res[vis]
+                    r_max = max(3.0, float(np.abs(r_vis).max()) + 1.2)
+                    axr.set_ylim(-r_max, r_max)
         axes[-1].set_xlabel("wavelength (\u00c5)" if wave else "energy (keV)")
         fig.align_ylabels(axes)
     return fig
