@@ -356,8 +356,32 @@ def _transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
     lo, hi, width, edges = grid
     n = lo.size
     nl = c.size
+    if backend != "numpy":
+        kern = _numba_kernel() if backend == "auto" else _numba_kernel(required=True)
+        if kern is not None:
+            out = np.empty(n)
+            if kern(lo, hi, width, edges is not None, c, A, s, g, tau_floor, tol, max_sub,
+                    voigt_table(), out):
+                return out
     sq2s = _SQRT2 * s
-    tau0 = A * voigt_profile(0.0, s, g)
+    # Voigt constants: u = |x| inv, a = gamma inv; V = H(a, u) norm / A
+    pos_s = s > 0
+    inv = np.divide(1.0, sq2s, out=np.zeros(nl), where=pos_s)
+    a_l = g * inv
+    slow = (a_l >= _TAB_AMAX) | ~pos_s
+    any_slow = bool(slow.any())
+    if any_slow:
+        a_l[slow] = 0.0
+    af = a_l * (1.0 / _TAB_DA)
+    ja = af.astype(np.intp)
+    ta = af - ja
+    norm = np.divide(A, s * _SQRT2PI, out=np.zeros(nl), where=pos_s)
+    inv_du = inv * (1.0 / _TAB_DU)
+    tab = voigt_table()
+    h00 = tab[ja * _TAB_NU]
+    tau0 = (h00 + ta * (tab[(ja + 1) * _TAB_NU] - h00)) * norm
+    if any_slow:
+        tau0[slow] = A[slow] * voigt_profile(0.0, s[slow], g[slow])
     ag = A * g
     # core: Doppler part below tol and wing expansion valid beyond r_gauss;
     # exp(<tau>) valid beyond r_sat
@@ -381,32 +405,10 @@ def _transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
                 ivs[-1][1] = b_
         else:
             ivs.append([a_, b_])
-    # per-line constants of the sub-sampling step and the table look-up
+    # per-line constants of the sub-sampling step
     u_t = np.sqrt(np.maximum(np.log(tau0), 1.0))
     h0 = _ALPHA * (s / u_t + g)
     x_g = sq2s * (u_t + 1.5)
-    pos_s = s > 0
-    inv = np.divide(1.0, sq2s, out=np.zeros(nl), where=pos_s)
-    a_l = g * inv
-    slow = a_l >= _TAB_AMAX
-    any_slow = bool(slow.any())
-    if any_slow:
-        a_l[slow] = 0.0
-    af = a_l * (1.0 / _TAB_DA)
-    ja = af.astype(np.intp)
-    ta = af - ja
-    norm = np.divide(A, s * _SQRT2PI, out=np.zeros(nl), where=pos_s)
-    inv_du = inv * (1.0 / _TAB_DU)
-    if not any_slow and backend != "numpy":
-        kern = _numba_kernel() if backend == "auto" else _numba_kernel(required=True)
-        if kern is not None:
-            iv = np.array(ivs, dtype=np.intp).reshape(-1, 2)
-            out = np.empty(n)
-            kern(lo, hi, width, edges is not None, c, A, s, g, i0, j0, j1, i1,
-                 iv[:, 0].copy(), iv[:, 1].copy(), h0, x_g, r_reach, r_in, inv_du,
-                 ja, ta, norm, voigt_table(), _TAB_NU, max_sub, _BETA, out)
-            return out
-
     out = np.ones(n)
     # -- wing bins: closed-form bin average of the far wing -------------------
     span0, span1 = int(i0.min()), int(i1.max())
@@ -465,7 +467,6 @@ def _transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
         kk = kf.astype(np.intp)
         t = kf - kk
         flat = (ja * _TAB_NU)[po] + kk
-        tab = voigt_table()
         h00 = tab[flat]
         hv = h00 + t * (tab[flat + 1] - h00)
         flat += _TAB_NU
@@ -555,6 +556,89 @@ def _kernel(lo, hi, width, contiguous, c, A, s, g, i0, j0, j1, i1, iv_lo, iv_hi,
             out[b] = acc / (2 * k)
 
 
+def _bisect(arr, v, right):
+    """np.searchsorted(arr, v, side="right" if right else "left") for one value."""
+    lo_, hi_ = 0, arr.size
+    while lo_ < hi_:
+        mid = (lo_ + hi_) // 2
+        if arr[mid] < v or (right and arr[mid] == v):
+            lo_ = mid + 1
+        else:
+            hi_ = mid
+    return lo_
+
+
+def _kernel_all(lo, hi, width, contiguous, c, A, s, g, tau_floor, tol, max_sub, tab, out):
+    """Set-up of :func:`_transmission` in loop form followed by
+    :func:`_kernel`; returns False (doing nothing) when a line needs the
+    scipy fallback (sigma = 0 or a >= 2), which only the NumPy path has."""
+    n = lo.size
+    nl = c.size
+    i0 = np.empty(nl, np.intp)
+    j0 = np.empty(nl, np.intp)
+    j1 = np.empty(nl, np.intp)
+    i1 = np.empty(nl, np.intp)
+    ja = np.empty(nl, np.intp)
+    ta = np.empty(nl)
+    norm = np.empty(nl)
+    inv_du = np.empty(nl)
+    h0 = np.empty(nl)
+    x_g = np.empty(nl)
+    r_reach = np.empty(nl)
+    r_in = np.empty(nl)
+    k_sat = 2.0 / (np.pi * np.sqrt(24.0 * tol))
+    k_floor = 1.0 / (np.pi * tau_floor)
+    for ll in range(nl):
+        if not s[ll] > 0:
+            return False
+        sq2s = _SQRT2 * s[ll]
+        inv = 1.0 / sq2s
+        a = g[ll] * inv
+        if a >= _TAB_AMAX:
+            return False
+        af = a * (1.0 / _TAB_DA)
+        ja[ll] = int(af)
+        ta[ll] = af - ja[ll]
+        norm[ll] = A[ll] / (s[ll] * _SQRT2PI)
+        inv_du[ll] = inv * (1.0 / _TAB_DU)
+        h00 = tab[ja[ll] * _TAB_NU]
+        tau0 = (h00 + ta[ll] * (tab[(ja[ll] + 1) * _TAB_NU] - h00)) * norm[ll]
+        ag = A[ll] * g[ll]
+        r_gauss = sq2s * np.sqrt(max(np.log(tau0 * (1.0 / tol)), _U_WING ** 2))
+        wl = width[min(_bisect(hi, c[ll], False), n - 1)]
+        r_core = max(r_gauss, np.cbrt(ag * wl * k_sat))
+        r_reach[ll] = max(r_core, max(np.sqrt(ag * k_floor), 1000.0 * g[ll]))
+        r_in[ll] = min(_TAB_UMAX * sq2s, r_reach[ll])
+        i0[ll] = _bisect(hi, c[ll] - r_reach[ll], True)
+        j0[ll] = _bisect(hi, c[ll] - r_core, True)
+        j1[ll] = _bisect(lo, c[ll] + r_core, False)
+        i1[ll] = _bisect(lo, c[ll] + r_reach[ll], False)
+        u_t = np.sqrt(max(np.log(tau0), 1.0))
+        h0[ll] = _ALPHA * (s[ll] / u_t + g[ll])
+        x_g[ll] = sq2s * (u_t + 1.5)
+    # union of the cores, as sorted disjoint intervals
+    order = np.argsort(j0)
+    iv_lo = np.empty(nl, np.intp)
+    iv_hi = np.empty(nl, np.intp)
+    niv = 0
+    for r in range(nl):
+        a_ = j0[order[r]]
+        b_ = j1[order[r]]
+        if b_ <= a_:
+            continue
+        if niv > 0 and a_ <= iv_hi[niv - 1]:
+            if b_ > iv_hi[niv - 1]:
+                iv_hi[niv - 1] = b_
+        else:
+            iv_lo[niv] = a_
+            iv_hi[niv] = b_
+            niv += 1
+    _kernel(lo, hi, width, contiguous, c, A, s, g, i0, j0, j1, i1, iv_lo[:niv],
+            iv_hi[:niv], h0, x_g, r_reach, r_in, inv_du, ja, ta, norm, tab, _TAB_NU,
+            max_sub, _BETA, out)
+    return True
+
+
 _NUMBA: dict = {"tried": False, "kernel": None}
 
 
@@ -584,9 +668,9 @@ def _numba_kernel(required=False):
 def _compile(numba, jit):
     from numba.extending import register_jitable
 
-    register_jitable(_wing_antiderivative)
-    register_jitable(_wing_point)
-    return jit(_kernel)
+    for fn in (_wing_antiderivative, _wing_point, _bisect, _kernel):
+        register_jitable(fn)
+    return jit(_kernel_all)
 
 
 def numba_available():
