@@ -8,6 +8,7 @@ from __future__ import annotations
 import hashlib
 
 import numpy as np
+from astropy import units as u
 
 from ._units import as_kev
 from .errors import ModelError
@@ -28,16 +29,27 @@ class EnergyGrid:
     __slots__ = ("lo", "hi", "mid", "width", "key")
 
     def __init__(self, lo, hi):
+        from_wavelength = (isinstance(lo, u.Quantity)
+                           and lo.unit.physical_type == "length")
         lo = np.atleast_1d(np.asarray(as_kev(lo, "energy_lo"), dtype=float))
         hi = np.atleast_1d(np.asarray(as_kev(hi, "energy_hi"), dtype=float))
         if lo.shape != hi.shape or lo.ndim != 1:
             raise ModelError("energy grid: lo and hi must be 1-d arrays of equal length")
-        if lo.size and (lo[0] > lo[-1]):  # wavelength order given; flip
-            lo, hi = hi[::-1].copy(), lo[::-1].copy()
         if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
             raise ModelError("energy grid: edges must be finite")
-        if np.any(lo <= 0) or np.any(hi <= lo) or np.any(np.diff(lo) <= 0):
-            raise ModelError("energy grid: bins must be positive, non-empty and increasing")
+        if lo.size and lo[0] > lo[-1]:
+            # bins listed in decreasing energy (e.g. converted from a
+            # wavelength-ordered grid): put them in increasing order
+            lo, hi = lo[::-1].copy(), hi[::-1].copy()
+        if from_wavelength and lo.size and np.all(lo > hi):
+            # wavelength bin lo/hi became energy hi/lo
+            lo, hi = hi, lo
+        if np.any(lo <= 0):
+            raise ModelError("energy grid: bin edges must be positive energies")
+        if np.any(hi <= lo):
+            raise ModelError("energy grid: every bin needs its upper edge above its lower edge")
+        if np.any(np.diff(lo) <= 0):
+            raise ModelError("energy grid: bins must be in monotonic order without repeats")
         self.lo = lo
         self.hi = hi
         self.mid = 0.5 * (lo + hi)
@@ -53,6 +65,8 @@ class EnergyGrid:
     def from_edges(cls, edges):
         """Grid from n+1 contiguous edges."""
         e = np.asarray(as_kev(edges, "edges"), dtype=float)
+        if e.size > 1 and e[0] > e[-1]:  # decreasing energy (e.g. wavelength edges)
+            e = e[::-1]
         return cls(e[:-1], e[1:])
 
     @classmethod
