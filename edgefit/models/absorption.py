@@ -236,7 +236,8 @@ class GasEdge(Component):
             sig = pre["sigma0"]
         else:
             sig = atomic.photoabsorption(self.element, grid.mid - shift * 1e-3) * _EDGE_COL_UNIT
-        trans = np.exp(-col * sig)
+        trans = sig * (-col)
+        np.exp(trans, out=trans)
         if self.n_lines and col > 0:
             c, area, s, g = self._line_arrays(v, col * _EDGE_COL_UNIT)
             trans *= _lines.binned_line_transmission(grid.lo, grid.hi, c, area, s, g)
@@ -291,6 +292,11 @@ class IonLines(Component):
     ----------
     ions : sequence of str
         Ion keys or names (``"si14"`` or ``"Si XIV"``); default all tabulated.
+    backend : {"auto", "numba", "numpy"}
+        How the bin-averaged transmission is computed: the compiled kernel
+        (numba, used by "auto" when importable) or the vectorised NumPy body;
+        both run the same algorithm and agree to rounding
+        (:func:`edgefit.physics.lines.binned_line_transmission`).
 
     Fit parameters: ``logn_<ion>`` [log10 cm^-2] ion column (one per ion);
     ``b`` [km/s] Doppler parameter shared by all lines; ``v`` [km/s]
@@ -303,7 +309,11 @@ class IonLines(Component):
     #: log10 column below which an ion is treated as absent (tau < 1e-8).
     LOGN_OFF = 5.0
 
-    def __init__(self, name=None, *, ions=None, fixed=(), **values):
+    def __init__(self, name=None, *, ions=None, backend="auto", fixed=(), **values):
+        if backend not in ("auto", "numba", "numpy"):
+            raise ModelError(f"IonLines backend must be 'auto', 'numba' or 'numpy', "
+                             f"not {backend!r}")
+        self.backend = backend
         keys = _lines.ion_keys() if ions is None else \
             tuple(dict.fromkeys(_lines.ion_lines(i)[0].key for i in ions))
         if not keys:
@@ -329,25 +339,34 @@ class IonLines(Component):
         """Line table and the grid arrays of :func:`edgefit.physics.lines.line_grid`."""
         return self._table() + (_lines.line_grid(grid.lo, grid.hi),)
 
-    def _line_arrays(self, pre, v):
+    def _columns(self, v):
+        """Ion columns (cm^-2) as a list; 0 for ions at or below LOGN_OFF."""
+        off = self.LOGN_OFF
+        return [10.0 ** min(x, 30.0) if x > off else 0.0
+                for x in [v["logn_" + k] for k in self.ions]]
+
+    def _line_arrays(self, pre, v, cols=None):
         owner, e0, area1, gam = pre[:4]
-        logn = np.array([v[f"logn_{k}"] for k in self.ions])
-        col = np.where(logn > self.LOGN_OFF, 10.0 ** np.minimum(logn, 30.0), 0.0)
-        centre = e0 / (1.0 + v["v"] / _lines.SPEED_OF_LIGHT_KMS)
-        return centre, col[owner] * area1, _lines.doppler_sigma(centre, v["b"]), gam
+        if cols is None:
+            cols = self._columns(v)
+        centre = e0 * (1.0 / (1.0 + v["v"] / _lines.SPEED_OF_LIGHT_KMS))
+        sigma = centre * (v["b"] / (_lines.SPEED_OF_LIGHT_KMS * np.sqrt(2.0)))
+        return centre, np.array(cols)[owner] * area1, sigma, gam
 
     def _evaluate(self, grid, pre, **v):
-        c, a, s, g = self._line_arrays(pre, v)
+        cols = self._columns(v)
+        c, a, s, g = self._line_arrays(pre, v, cols)
+        if not v["b"] > 0:       # b <= 0 from an unbounded caller: checked path
+            return _lines.binned_line_transmission(grid.lo, grid.hi, c, a, s, g,
+                                                   backend=self.backend)
         # parameter bounds keep b > 0 and gamma > 0, so only absent ions
         # need removing before the (unchecked) core routine
-        if not s[0] > 0:       # b <= 0 from an unbounded caller: checked path
-            return _lines.binned_line_transmission(grid.lo, grid.hi, c, a, s, g)
-        keep = a > 0
-        if not keep.all():
+        if not all(cols):
+            keep = a > 0
             if not keep.any():
                 return np.ones(len(grid))
             c, a, s, g = c[keep], a[keep], s[keep], g[keep]
-        return _lines._transmission(pre[4], c, a, s, g)
+        return _lines._transmission(pre[4], c, a, s, g, backend=self.backend)
 
     def optical_depth(self, energy_kev, **values):
         """Optical depth at ``energy_kev`` (unbinned Voigt profiles)."""
