@@ -23,7 +23,7 @@ import numpy as np
 from scipy import stats as sps
 
 from edgefit.inference import Dataset, fit_sightline, profile_intervals
-from edgefit.inference._testing import ToyEdgeAbsorber, gaussian_response, simulate_counts
+from edgefit.inference._testing import ToyEdgeAbsorber, simulate_counts, toy_response
 from edgefit.models.continuum import LineGaussian, PhotonPowerLaw
 
 TRUTH = {"abs_step": 0.3, "pl_index": 1.8, "pl_norm": 0.5, "ln_norm": 2e-3}
@@ -40,7 +40,7 @@ def main(argv=None):
     model = ToyEdgeAbsorber("abs", tau0=0.4, step=0.3, fixed=["tau0"]) * (
         PhotonPowerLaw("pl", index=1.8, norm=0.5)
         + LineGaussian("ln", center=1.95, sigma=0.004, norm=2e-3, fixed=["center", "sigma"]))
-    resp = gaussian_response(1.6, 2.2, n_channels=300)
+    resp = toy_response(1.6, 2.2, n_channels=300)
     rng = np.random.default_rng(args.seed)
     names = list(TRUTH)
     pulls = {k: [] for k in names}

@@ -19,7 +19,8 @@ from scipy.special import gammaln, xlogy
 
 __all__ = [
     "cash", "c_statistic", "deviance_residuals", "chi_square",
-    "profiled_background_statistic", "profiled_background_residuals",
+    "profiled_background_level", "profiled_background_statistic",
+    "profiled_background_residuals",
     "c_statistic_expectation", "c_statistic_expectation_kaastra",
     "MODEL_FLOOR",
 ]
@@ -92,14 +93,25 @@ def chi_square(model, counts, variance="data", sigma=None):
     return float(np.sum((n - m) ** 2 / var))
 
 
-def _profiled_background(model_src, counts, bkg_counts, ratio):
-    """Maximum-likelihood background expectation per bin.
+def profiled_background_level(model_src, counts, bkg_counts, ratio):
+    """Maximum-likelihood background expectation per bin, b-hat.
 
-    ``model_src`` is the expected source counts in the source region,
-    ``ratio`` = (t_s A_s) / (t_b A_b) (exposure times BACKSCAL ratio) so that
-    the background contributes ratio * b to the source region, where b is the
-    background expectation in the background region.  Solves
-    d lnL / d b = 0 in closed form (Wachter et al. 1979).
+    Source region: n ~ Poisson(s + r b); background region:
+    n_b ~ Poisson(b), with ``model_src`` = s the expected source counts in
+    the source region and ``ratio`` = r = (t_s A_s) / (t_b A_b) (exposure
+    times BACKSCAL/AREASCAL ratio).  Setting d lnL / d b = 0 gives the
+    quadratic (Wachter, Leach & Kellogg 1979)
+
+    .. math:: r (1 + r)\, b^2 + [(1 + r) s - r (n + n_b)]\, b - n_b s = 0,
+
+    whose non-negative root is returned (computed in the numerically
+    stable form; b-hat = n_b exactly when r = 0).
+
+    Returns
+    -------
+    ndarray
+        b-hat per bin, expected counts in the *background* region; the
+        background adds ``ratio * b`` to the source region.
     """
     s = np.asarray(model_src, dtype=float)
     n = np.asarray(counts, dtype=float)
@@ -119,6 +131,10 @@ def _profiled_background(model_src, counts, bkg_counts, ratio):
     return np.maximum(root, 0.0)
 
 
+#: Former private name, kept for code written against it.
+_profiled_background = profiled_background_level
+
+
 def profiled_background_residuals(model_src, counts, bkg_counts, ratio):
     """Signed deviance residuals of a source + Poisson background fit with
     the background expectation profiled out per bin.
@@ -128,7 +144,7 @@ def profiled_background_residuals(model_src, counts, bkg_counts, ratio):
     of squares equals :func:`profiled_background_statistic`.
     """
     s = np.asarray(model_src, dtype=float)
-    b = _profiled_background(s, counts, bkg_counts, ratio)
+    b = profiled_background_level(s, counts, bkg_counts, ratio)
     ms = s + np.asarray(ratio, dtype=float) * b
     d = _deviance_terms(ms, counts) + _deviance_terms(b, bkg_counts)
     return np.sign(np.asarray(counts, float) - ms) * np.sqrt(np.maximum(d, 0.0))

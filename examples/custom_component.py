@@ -23,7 +23,7 @@ import numpy as np
 from scipy import integrate
 
 from edgefit.inference import Dataset, fit_sightline
-from edgefit.inference._testing import gaussian_response, simulate_counts
+from edgefit.inference._testing import simulate_counts, toy_response
 from edgefit.models.base import ADDITIVE, Component, Param
 from edgefit.models.continuum import bin_integral
 
@@ -59,7 +59,7 @@ if __name__ == "__main__":
     g = EnergyGrid([1.8], [1.9])
     ref = integrate.quad(cutoff_power_law, 1.8, 1.9, args=(1.4, 3.0, 0.8))[0]
     print(f"bin integral {comp(g)[0]:.10g} vs quad {ref:.10g}")
-    resp = gaussian_response(1.6, 2.2, n_channels=300)
+    resp = toy_response(1.6, 2.2, n_channels=300)
     spec = simulate_counts(comp, resp, 2e4, seed=1)  # SIMULATED data
     res = fit_sightline(comp, Dataset(spec))
     print(res.summary())

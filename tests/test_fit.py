@@ -22,7 +22,7 @@ from edgefit import stats
 from edgefit.data.spectrum import Spectrum
 from edgefit.errors import ConvergenceWarning, ModelError
 from edgefit.inference import Dataset, JointLikelihood, fit_sightline
-from edgefit.inference._testing import ToyEdgeAbsorber, gaussian_response, simulate_counts
+from edgefit.inference._testing import ToyEdgeAbsorber, simulate_counts, toy_response
 from edgefit.models.base import ADDITIVE, Component, Param
 from edgefit.models.continuum import PhotonPowerLaw
 
@@ -36,7 +36,7 @@ def cheap_model():
 
 @pytest.fixture(scope="module")
 def response():
-    return gaussian_response(1.6, 2.2, n_channels=150)
+    return toy_response(1.6, 2.2, n_channels=150)
 
 
 def test_sum_of_squared_deviance_residuals_is_cash_deviance(response):
@@ -85,7 +85,7 @@ def test_joint_fit_matches_inverse_variance_mean_of_single_arms(response):
     within 0.15 sigma of the joint fit (for a linear-Gaussian problem they
     are identical; the small remainder is the model's non-linearity)."""
     model = cheap_model()
-    r2 = gaussian_response(1.6, 2.2, n_channels=120, area_cm2=60.0, area_slope=1.0)
+    r2 = toy_response(1.6, 2.2, n_channels=120, area_cm2=60.0, area_slope=1.0)
     a = Dataset(simulate_counts(model, response, 2e4, seed=1), label="arm A")
     b = Dataset(simulate_counts(model, r2, 2e4, seed=2), label="arm B")
     # the cross-normalisation is fixed so that the single-arm fits are the same model

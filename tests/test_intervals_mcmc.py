@@ -20,7 +20,7 @@ from edgefit.errors import ShortChainWarning
 from edgefit.inference import (Dataset, GaussianPrior, LogPosterior, delta_statistic,
                                derived_quantities, fit_sightline, posterior_predictive,
                                profile_intervals, run_mcmc)
-from edgefit.inference._testing import ToyEdgeAbsorber, gaussian_response, simulate_counts
+from edgefit.inference._testing import ToyEdgeAbsorber, simulate_counts, toy_response
 from edgefit.models.continuum import PhotonPowerLaw
 
 TRUTH = {"abs_step": 0.3, "pl_index": 1.8, "pl_norm": 0.5}
@@ -33,7 +33,7 @@ def cheap_model():
 
 @pytest.fixture(scope="module")
 def fitted():
-    resp = gaussian_response(1.6, 2.2, n_channels=120)
+    resp = toy_response(1.6, 2.2, n_channels=120)
     model = cheap_model()
     spec = simulate_counts(model, resp, 2e4, values=TRUTH, seed=77)
     return fit_sightline(model, Dataset(spec, ranges=(1.65, 2.15)))
@@ -51,7 +51,7 @@ def test_profile_of_single_poisson_normalisation_is_exact():
     the total count N only, and C(mu) - C(N) = 2[mu - N - N ln(mu/N)]
     (Cash 1979).  The profile interval must match the roots of that
     closed form to 1e-6 relative."""
-    resp = gaussian_response(1.6, 2.2, n_channels=60)
+    resp = toy_response(1.6, 2.2, n_channels=60)
     model = PhotonPowerLaw("pl", index=0.0, norm=1.0, fixed=["index"])
     spec = simulate_counts(model, resp, 3.0, seed=5)
     ds = Dataset(spec)
@@ -146,7 +146,7 @@ def test_mcmc_with_process_pool(fitted):
 def test_ppc_flags_wrong_model():
     """Data with a strong edge fitted by a model whose edge is fixed at zero:
     the posterior predictive p-value (Gelman, Meng & Stern 1996) is tiny."""
-    resp = gaussian_response(1.6, 2.2, n_channels=120)
+    resp = toy_response(1.6, 2.2, n_channels=120)
     truth = ToyEdgeAbsorber("abs", tau0=0.4, step=1.0) * PhotonPowerLaw("pl", index=1.8,
                                                                          norm=0.5)
     spec = simulate_counts(truth, resp, 3e4, seed=12)

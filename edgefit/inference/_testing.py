@@ -1,55 +1,41 @@
 """Small synthetic ingredients for tests and benchmarks of the inference
-layer (not physics): a Gaussian line-spread response and a toy absorber.
+layer (not physics): a toy grating-like response, a toy absorber and a
+Poisson simulation of a model.
 
-The toy absorber is exp(-tau) with tau = tau0 (E/E0)^-3 + step above an
-edge energy -- the textbook shape of photoabsorption (sigma ~ E^-3 far
-from edges) with a sharp K edge.  It is deliberately *not* registered in
+The response and the simulation are thin conveniences over the data
+layer (:func:`edgefit.data.gaussian_response`,
+:func:`edgefit.data.simulate_spectrum`); only the toy absorber is new.
+It is exp(-tau) with tau = tau0 (E/E0)^-3 + step above an edge energy --
+the textbook shape of photoabsorption (sigma ~ E^-3 far from edges) with a
+sharp K edge -- and is deliberately *not* registered in
 :data:`edgefit.models.base.COMPONENTS`.
 """
 from __future__ import annotations
 
 import numpy as np
-import scipy.sparse as sp
-from scipy import special
 
 from ..models.base import MULTIPLICATIVE, Component, Param
 
-__all__ = ["gaussian_response", "ToyEdgeAbsorber", "simulate_counts"]
+__all__ = ["toy_response", "ToyEdgeAbsorber", "simulate_counts"]
 
 
-def gaussian_response(emin=1.6, emax=2.2, n_channels=900, n_energy=None, fwhm_kev=None,
-                      area_cm2=100.0, area_slope=0.0, width_sigmas=5.0):
-    """A grating-like :class:`~edgefit.data.response.Response`: channels of
-    equal width in energy, a Gaussian line-spread function (FWHM default
-    2.5 channel widths) and an effective area ``area_cm2 (E/1.9)^slope``.
-    The model grid is 10 % wider than the channel range so that the edges
-    are fed."""
-    from ..data.response import Response
+def toy_response(emin=1.6, emax=2.2, n_channels=900, n_energy=None, fwhm_kev=None,
+                 area_cm2=100.0, area_slope=0.0):
+    """A grating-like response for tests: ``n_channels`` channels of equal
+    width in energy over [emin, emax] keV, a Gaussian line-spread function
+    of constant FWHM in energy (default 2.5 channel widths), an effective
+    area ``area_cm2 (E/1.9 keV)^area_slope`` cm^2, and ``n_energy`` model
+    bins (default 1.2 n_channels) over a range 10 % wider than the
+    channels so that the ends are fed.  Built by
+    :func:`edgefit.data.gaussian_response`."""
+    from ..data import gaussian_response
 
     n_energy = n_energy or int(1.2 * n_channels)
-    ch_edges = np.linspace(emin, emax, n_channels + 1)
     pad = 0.05 * (emax - emin)
-    en_edges = np.linspace(emin - pad, emax + pad, n_energy + 1)
     fwhm = fwhm_kev or 2.5 * (emax - emin) / n_channels
-    sig = fwhm / 2.3548200450309493
-    e_mid = 0.5 * (en_edges[1:] + en_edges[:-1])
-    rows, cols, vals = [], [], []
-    for j, e in enumerate(e_mid):
-        lo = np.searchsorted(ch_edges, e - width_sigmas * sig) - 1
-        hi = np.searchsorted(ch_edges, e + width_sigmas * sig) + 1
-        lo, hi = max(lo, 0), min(hi, n_channels)
-        if hi <= lo:
-            continue
-        z = (ch_edges[lo:hi + 1] - e) / sig
-        p = np.diff(special.ndtr(z))
-        keep = p > 1e-12
-        rows.extend(np.arange(lo, hi)[keep])
-        cols.extend([j] * int(keep.sum()))
-        vals.extend(p[keep])
-    mat = sp.csr_array((vals, (rows, cols)), shape=(n_channels, n_energy))
-    area = area_cm2 * (e_mid / 1.9) ** area_slope
-    return Response(en_edges[:-1], en_edges[1:], mat, ch_edges[:-1], ch_edges[1:],
-                    specresp=area)
+    return gaussian_response(np.linspace(emin - pad, emax + pad, n_energy + 1),
+                             np.linspace(emin, emax, n_channels + 1), fwhm,
+                             lambda e: area_cm2 * (e / 1.9) ** area_slope, fwhm_unit="kev")
 
 
 class ToyEdgeAbsorber(Component):
@@ -82,12 +68,13 @@ class ToyEdgeAbsorber(Component):
 
 
 def simulate_counts(model, response, exposure, values=None, seed=None, background=None):
-    """Poisson counts of ``model`` folded through ``response`` (a Spectrum)."""
-    from ..data.spectrum import Spectrum
+    """Poisson counts of ``model`` (at ``values``) folded through
+    ``response``: a :class:`~edgefit.data.spectrum.Spectrum` from
+    :func:`edgefit.data.simulate_spectrum` (``seed`` an int or a numpy
+    Generator), with ``background`` (a Spectrum) attached as given."""
+    from ..data import simulate_spectrum
 
-    rng = np.random.default_rng(seed)
-    mu = response.fold(model.evaluate(response.grid, values or {}), exposure)
-    counts = rng.poisson(mu).astype(float)
-    return Spectrum(counts=counts, exposure=exposure,
-                    channels=np.arange(1, response.n_channels + 1), response=response,
-                    background=background, meta={"path": "simulated"})
+    spec = simulate_spectrum(model.evaluate(response.grid, values or {}), response, exposure,
+                             seed)
+    spec.background = background
+    return spec

@@ -27,10 +27,11 @@ import numpy as np
 import scipy.sparse as sp
 from astropy import units as u
 
+from ..data.grouping import group_bounds, group_min_counts, grouping_matrix
 from ..errors import ModelError
 from .._units import as_kev
 
-__all__ = ["Dataset", "parse_ranges", "group_min_counts"]
+__all__ = ["Dataset", "parse_ranges"]
 
 
 def parse_ranges(ranges, unit="keV"):
@@ -61,28 +62,6 @@ def parse_ranges(ranges, unit="keV"):
             raise ModelError(f"fit range {pair!r} is empty or not positive")
         out.append((lo, hi))
     return out
-
-
-def group_min_counts(counts, min_counts):
-    """Group start flags (True where a new group starts) so that each group
-    of consecutive channels holds at least ``min_counts`` counts; a short
-    remainder at the end is merged into the last full group."""
-    counts = np.asarray(counts, dtype=float)
-    starts = np.zeros(counts.size, dtype=bool)
-    if counts.size == 0:
-        return starts
-    acc = 0.0
-    starts[0] = True
-    last_start = 0
-    for i, c in enumerate(counts):
-        if acc >= min_counts:
-            starts[i] = True
-            last_start = i
-            acc = 0.0
-        acc += c
-    if acc < min_counts and last_start > 0:
-        starts[last_start] = False  # merge the short tail into its predecessor
-    return starts
 
 
 class Dataset:
@@ -151,13 +130,9 @@ class Dataset:
             k = float(grouping)
             if k <= 0:
                 raise ModelError("grouping: minimum counts per group must be positive")
-            starts = np.zeros(sel.size, dtype=bool)
-            gap = np.r_[True, np.diff(sel) > 1]
-            # group each contiguous run of selected channels separately
-            run_starts = np.flatnonzero(gap)
-            run_ends = np.r_[run_starts[1:], sel.size]
-            for a, b in zip(run_starts, run_ends):
-                starts[a:b] = group_min_counts(counts_sel[a:b], k)
+            # each contiguous run of selected channels is grouped on its own;
+            # OGIP GROUPING: +1 starts a group, -1 continues it
+            starts = group_min_counts(spectrum.counts, k, mask=mask)[sel] != -1
         if channels_per_group:
             k = int(channels_per_group)
             if k < 1:
@@ -168,8 +143,8 @@ class Dataset:
         group_id = np.cumsum(starts) - 1
         n_groups = int(group_id[-1]) + 1
         self.group_of_channel = group_id
-        self.grouping_matrix = sp.csr_array(
-            (np.ones(sel.size), (group_id, np.arange(sel.size))), shape=(n_groups, sel.size))
+        ogip_grouping = np.where(starts, 1, -1)
+        self.grouping_matrix = grouping_matrix(ogip_grouping)
         g = self.grouping_matrix
         self.n_groups = n_groups
         self.n_channels_used = sel.size
@@ -184,8 +159,7 @@ class Dataset:
         self.counts = g @ counts_sel
         emin = resp.channel_emin[sel]
         emax = resp.channel_emax[sel]
-        self.group_emin = np.array([emin[group_id == i].min() for i in range(n_groups)])
-        self.group_emax = np.array([emax[group_id == i].max() for i in range(n_groups)])
+        self.group_emin, self.group_emax = group_bounds(emin, emax, ogip_grouping)
         self.group_channels = np.bincount(group_id).astype(float)
 
         bkg = spectrum.background

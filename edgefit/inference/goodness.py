@@ -24,7 +24,7 @@ import numpy as np
 from scipy import stats as sps
 
 from .. import stats
-from ..stats import _profiled_background  # the closed-form profiled background
+from ..stats import profiled_background_level
 
 __all__ = ["cstat_goodness", "posterior_predictive"]
 
@@ -35,7 +35,7 @@ def _means(likelihood, values):
     for ds, mu in zip(likelihood.datasets, likelihood.source_counts(values)):
         mu = np.maximum(mu, stats.MODEL_FLOOR)
         if ds.has_background:
-            b = _profiled_background(mu, ds.counts, ds.bkg_counts, ds.bkg_ratio)
+            b = profiled_background_level(mu, ds.counts, ds.bkg_counts, ds.bkg_ratio)
             out.append((mu + ds.bkg_ratio * b, b))
         else:
             out.append((mu, None))

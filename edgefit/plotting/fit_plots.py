@@ -17,6 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from .._units import HC_KEV_ANGSTROM
+from ..stats import deviance_residuals, profiled_background_level
 
 __all__ = ["plot_spectra", "plot_transmission", "plot_corner", "save_all"]
 
@@ -63,10 +64,8 @@ def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize
             ax, axr = axes[2 * k], axes[2 * k + 1]
             total = mu.copy()
             if ds.has_background:
-                from ..stats import _profiled_background
-
-                total = mu + ds.bkg_ratio * _profiled_background(mu, ds.counts, ds.bkg_counts,
-                                                                 ds.bkg_ratio)
+                total = mu + ds.bkg_ratio * profiled_background_level(
+                    mu, ds.counts, ds.bkg_counts, ds.bkg_ratio)
             st = _display_groups(ds.counts, display_min_counts)
             cnt = np.add.reduceat(ds.counts, st)
             mod = np.add.reduceat(total, st)
@@ -86,8 +85,6 @@ def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize
             order = np.argsort(x)
             edges = np.r_[xlo[order], xhi[order][-1]]
             ax.stairs((mod * norm)[order], edges, color="C3", label="model")
-            from ..stats import deviance_residuals
-
             res = deviance_residuals(np.maximum(mod, 1e-300), cnt)
             axr.axhline(0.0, color="0.5", lw=0.6)
             axr.errorbar(x, res, yerr=1.0, xerr=0.5 * width, fmt="none", ecolor="0.35",
