@@ -2,11 +2,23 @@
 
 The file format is documented in ``examples/CONFIG.md``.  Parsing is safe:
 TOML is read with :mod:`tomllib`; component types are looked up in
-:data:`edgefit.models.base.COMPONENTS`; the model recipe is a small
-expression of component names, ``*``, ``+`` and parentheses, read by the
-recursive-descent parser :func:`parse_recipe` below (no ``eval`` anywhere);
-parameter ties are limited to ``factor x other_parameter`` and are handed
-to lmfit as a generated expression of one validated name and one number.
+:data:`edgefit.models.base.COMPONENTS`; the model is given in structured
+form only -- lists of component names, never a text expression:
+
+.. code-block:: toml
+
+    [model]
+    absorbers = ["ism", "gas_si", "dust"]   # multiplied together
+    emission  = ["disk", "powlaw"]          # added together
+
+means (ism x gas_si x dust) x (disk + powlaw); several ``[[model.term]]``
+tables, each with its own ``absorbers`` and ``emission`` lists, are summed
+(model = sum over terms of prod(absorbers) x sum(emission)), and a
+component named in several terms is one shared object with shared
+parameters.  :func:`model_from_terms` builds the model with Python's ``*``
+and ``+`` on component objects (no ``eval`` anywhere); parameter ties are
+limited to ``factor x other_parameter`` and are handed to lmfit as a
+generated expression of one validated name and one number.
 
 Every error is a :class:`~edgefit.errors.ConfigError` naming the file and
 the offending key, e.g. ``sightline.toml: model.components.pl.type:
@@ -22,9 +34,10 @@ from pathlib import Path
 
 from astropy import units as u
 
-from .errors import ConfigError, EdgefitError, InputFileError, UnknownParameterError
+from .errors import (ConfigError, EdgefitError, InputFileError, ModelError,
+                     UnknownParameterError)
 
-__all__ = ["SightlineConfig", "load_config", "parse_recipe", "tokenize_recipe",
+__all__ = ["SightlineConfig", "load_config", "model_terms", "model_from_terms",
            "build_model", "apply_parameter_settings", "load_component_modules"]
 
 #: Modules whose import registers component types (absent ones are skipped).
@@ -49,108 +62,97 @@ def load_component_modules():
 
 
 # ---------------------------------------------------------------------------
-# recipe grammar:  sum := product ('+' product)* ; product := atom ('*' atom)* ;
-#                  atom := NAME | '(' sum ')'
-def tokenize_recipe(text, path=None, key="model.expression"):
-    """Tokens of a recipe: identifiers and the characters ``*+()``."""
-    if not isinstance(text, str):
-        raise ConfigError(path, f"{key}: must be a string such as \"abs * (pl + line)\"")
-    tokens = []
-    i = 0
-    while i < len(text):
-        ch = text[i]
-        if ch.isspace():
-            i += 1
-        elif ch in "*+()":
-            tokens.append(ch)
-            i += 1
-        elif ch.isalpha() or ch == "_":
-            j = i
-            while j < len(text) and (text[j].isalnum() or text[j] == "_"):
-                j += 1
-            tokens.append(text[i:j])
-            i = j
-        else:
-            raise ConfigError(path, f"{key}: character {ch!r} at position {i + 1} is not "
-                                    "allowed (only component names, *, + and parentheses)")
-    if not tokens:
-        raise ConfigError(path, f"{key}: empty recipe")
-    return tokens
+def _name_list(value, path, key):
+    """A list of component names (a TOML array of strings)."""
+    if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+        raise ConfigError(path, f"{key}: must be a list of component names, "
+                                "e.g. [\"ism\", \"dust\"]")
+    return value
 
 
-class _RecipeParser:
-    def __init__(self, tokens, components, path, key):
-        self.tokens = tokens
-        self.pos = 0
-        self.components = components
-        self.path = path
-        self.key = key
-        self.used = set()
+def model_terms(model_table, path=None):
+    """The model's terms from the ``[model]`` table, unchecked against the
+    components: a list of (key prefix, absorber names, emission names).
 
-    def error(self, msg):
-        raise ConfigError(self.path, f"{self.key}: {msg}")
-
-    def peek(self):
-        return self.tokens[self.pos] if self.pos < len(self.tokens) else None
-
-    def take(self):
-        tok = self.peek()
-        self.pos += 1
-        return tok
-
-    def parse(self):
-        node = self.sum()
-        if self.peek() is not None:
-            self.error(f"unexpected {self.peek()!r} after a complete expression")
-        return node
-
-    def combine(self, a, op, b):
-        from .errors import ModelError
-
-        try:
-            return a * b if op == "*" else a + b
-        except ModelError as exc:
-            self.error(str(exc))
-
-    def sum(self):
-        node = self.product()
-        while self.peek() == "+":
-            self.take()
-            node = self.combine(node, "+", self.product())
-        return node
-
-    def product(self):
-        node = self.atom()
-        while self.peek() == "*":
-            self.take()
-            node = self.combine(node, "*", self.atom())
-        return node
-
-    def atom(self):
-        tok = self.take()
-        if tok is None:
-            self.error("expression ends too early")
-        if tok == "(":
-            node = self.sum()
-            if self.take() != ")":
-                self.error("missing ')'")
-            return node
-        if tok in "*+)":
-            self.error(f"unexpected {tok!r}")
-        if tok not in self.components:
-            self.error(f"component {tok!r} is not defined under [model.components]; "
-                       f"defined: {sorted(self.components)}")
-        self.used.add(tok)
-        return self.components[tok]
+    Either ``absorbers``/``emission`` directly in ``[model]`` (one term) or
+    ``[[model.term]]`` tables (summed), not both."""
+    flat = {"absorbers", "emission"} & set(model_table)
+    terms = model_table.get("term")
+    if flat and terms is not None:
+        raise ConfigError(path, "model.term: give either absorbers/emission in [model] or "
+                                "[[model.term]] tables, not both")
+    if terms is None:
+        if "emission" not in model_table:
+            raise ConfigError(path, "model.emission: missing; list the emission (additive) "
+                                    "components, e.g. emission = [\"powlaw\"]")
+        return [("model", _name_list(model_table.get("absorbers", []), path,
+                                     "model.absorbers"),
+                 _name_list(model_table["emission"], path, "model.emission"))]
+    if not isinstance(terms, list) or not terms or not all(isinstance(t, dict) for t in terms):
+        raise ConfigError(path, "model.term: use one or more [[model.term]] tables")
+    out = []
+    for i, t in enumerate(terms):
+        key = f"model.term[{i}]"
+        bad = set(t) - {"absorbers", "emission"}
+        if bad:
+            raise ConfigError(path, f"{key}.{sorted(bad)[0]}: unknown key (use absorbers, "
+                                    "emission)")
+        if "emission" not in t:
+            raise ConfigError(path, f"{key}.emission: missing")
+        out.append((key, _name_list(t.get("absorbers", []), path, f"{key}.absorbers"),
+                    _name_list(t["emission"], path, f"{key}.emission")))
+    return out
 
 
-def parse_recipe(text, components, path=None, key="model.expression"):
-    """Build a model from a recipe string and {name: Component}.
+def model_from_terms(terms, components, path=None):
+    """Model = sum over terms of (product of absorbers) x (sum of emission).
 
-    The grammar has names, ``*``, ``+`` and parentheses only; ``*`` binds
-    tighter than ``+``.  Returns (model, set of names used)."""
-    parser = _RecipeParser(tokenize_recipe(text, path, key), components, path, key)
-    return parser.parse(), parser.used
+    Parameters
+    ----------
+    terms : list of (key, absorber names, emission names)
+        As returned by :func:`model_terms`; ``key`` prefixes error messages.
+    components : dict name -> Component
+
+    Returns
+    -------
+    (model, set of names used).  Every problem -- an unknown name, a name
+    listed twice in one list, an empty emission list, an additive component
+    among the absorbers or a multiplicative one among the emission -- is a
+    ConfigError naming the file and the key.
+    """
+    from .models.base import ADDITIVE, MULTIPLICATIVE
+
+    used = set()
+    model = None
+    for key, absorbers, emission in terms:
+        if not emission:
+            raise ConfigError(path, f"{key}.emission: empty; a model needs at least one "
+                                    "emission (additive) component")
+        for role, names, kind, other in (("absorbers", absorbers, MULTIPLICATIVE, "emission"),
+                                         ("emission", emission, ADDITIVE, "absorbers")):
+            for j, name in enumerate(names):
+                k = f"{key}.{role}[{j}]"
+                if name not in components:
+                    raise ConfigError(path, f"{k}: component {name!r} is not defined under "
+                                            f"[model.components]; defined: "
+                                            f"{sorted(components)}")
+                if names.index(name) != j:
+                    raise ConfigError(path, f"{k}: {name!r} is listed twice")
+                if components[name].kind != kind:
+                    raise ConfigError(path, f"{k}: {name!r} is {components[name].kind}; "
+                                            f"list it under {other}")
+                used.add(name)
+        emit = components[emission[0]]
+        for name in emission[1:]:
+            emit = emit + components[name]
+        term = emit
+        if absorbers:
+            absorb = components[absorbers[0]]
+            for name in absorbers[1:]:
+                absorb = absorb * components[name]
+            term = absorb * emit
+        model = term if model is None else model + term
+    return model, used
 
 
 # ---------------------------------------------------------------------------
@@ -182,10 +184,13 @@ def build_model(model_table, path=None):
 
     load_component_modules()
     if not isinstance(model_table, dict):
-        raise ConfigError(path, "model: must be a table with 'expression' and 'components'")
-    unknown = set(model_table) - {"expression", "components"}
+        raise ConfigError(path, "model: must be a table with 'absorbers', 'emission' (or "
+                                "[[model.term]] tables) and 'components'")
+    unknown = set(model_table) - {"absorbers", "emission", "term", "components"}
     if unknown:
-        raise ConfigError(path, f"model.{sorted(unknown)[0]}: unknown key")
+        raise ConfigError(path, f"model.{sorted(unknown)[0]}: unknown key (use absorbers, "
+                                "emission, term, components)")
+    terms = model_terms(model_table, path)
     comps_table = model_table.get("components")
     if not isinstance(comps_table, dict) or not comps_table:
         raise ConfigError(path, "model.components: define at least one component table")
@@ -253,11 +258,14 @@ def build_model(model_table, path=None):
                                     f"{bad_opt}") from None
         except EdgefitError as exc:
             raise ConfigError(path, f"{key}: {exc}") from None
-    model, used = parse_recipe(model_table.get("expression"), components, path)
+    try:
+        model, used = model_from_terms(terms, components, path)
+    except ModelError as exc:   # e.g. clashing parameter names
+        raise ConfigError(path, f"model: {exc}") from None
     unused = set(components) - used
     if unused:
         raise ConfigError(path, f"model.components.{sorted(unused)[0]}: defined but not used "
-                                "in model.expression")
+                                "in model.absorbers/emission")
     return model, components, settings
 
 
