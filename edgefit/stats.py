@@ -94,7 +94,7 @@ def chi_square(model, counts, variance="data", sigma=None):
 
 
 def profiled_background_level(model_src, counts, bkg_counts, ratio):
-    """Maximum-likelihood background expectation per bin, b-hat.
+    r"""Maximum-likelihood background expectation per bin, b-hat.
 
     Source region: n ~ Poisson(s + r b); background region:
     n_b ~ Poisson(b), with ``model_src`` = s the expected source counts in

@@ -18,10 +18,12 @@ each component of the model:
   dust mass column, self-shielding ratio, N_H), with the unit it states.
 * ``depletion_<element>`` = N_dust / (N_gas + N_dust) for every element
   that has both a gas-phase and a dust component.  A component takes part
-  when it has an ``element`` attribute (e.g. "Si"), a phase ("gas" or
-  "dust": its ``phase`` attribute, else guessed from its registry name)
-  and its ``derived`` dict has an element column in cm^-2 (a key in
-  :data:`COLUMN_KEYS`); several components of one phase add up.
+  when its class declares ``phase = "gas"`` or ``phase = "dust"`` and an
+  ``element`` (e.g. "Si"), and its ``derived`` dict has an element column
+  in cm^-2 under one of :data:`COLUMN_KEYS`; several components of one
+  phase add up.  No name is guessed: a component without ``phase`` never
+  enters a depletion (the one exception is a stop-gap for ``GasEdge``,
+  see :func:`_phase`).
 """
 from __future__ import annotations
 
@@ -32,7 +34,8 @@ import numpy as np
 
 from ..models.base import ADDITIVE
 
-__all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "REFERENCE_FACTOR"]
+__all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "REFERENCE_FACTOR",
+           "COLUMN_KEYS", "PHASES"]
 
 #: Default reference energy = REFERENCE_FACTOR x edge energy ("just above
 #: the edge": 0.5 %, about 9 eV above the Si K edge).
@@ -110,22 +113,31 @@ class DerivedSummary:
         return out
 
 
-#: Keys of ``derived()`` entries holding the element column in cm^-2.
+#: Keys of ``derived()`` entries that hold the column density of the
+#: component's ``element`` in cm^-2, looked up in this order:
+#:
+#: * ``"element_column"`` -- the generic key for new components;
+#: * ``"col_cm2"`` -- :class:`~edgefit.models.absorption.GasEdge`, gas-phase
+#:   column N_Z,gas (reported as ``<name>_col_cm2``);
+#: * ``"ndust_cm2"`` -- :class:`~edgefit.models.dust.DustEdge`, column of the
+#:   element locked in grains N_Z,dust (reported as ``<name>_ndust_cm2``).
 COLUMN_KEYS = ("element_column", "col_cm2", "ndust_cm2")
+
+#: Phases that enter a depletion.
+PHASES = ("gas", "dust")
 
 
 def _phase(comp):
-    """'gas', 'dust' or None: the ``phase`` attribute, else guessed from the
-    registry name (``gas_edge`` -> gas, anything with 'dust' -> dust)."""
+    """'gas', 'dust' or None, from the component class's ``phase``
+    attribute.
+
+    Stop-gap: ``GasEdge`` (registry name ``"gas_edge"``) does not declare
+    ``phase = "gas"`` yet (it will); until it does, that one registry name
+    is read as gas.  Remove the fallback once the attribute is there."""
     phase = getattr(comp, "phase", None)
-    if phase:
-        return phase
-    reg = getattr(comp, "registry_name", None) or ""
-    if "dust" in reg:
-        return "dust"
-    if reg.startswith("gas"):
-        return "gas"
-    return None
+    if phase is None and getattr(type(comp), "registry_name", None) == "gas_edge":
+        phase = "gas"  # fallback until GasEdge declares its phase
+    return phase if phase in PHASES else None
 
 
 def _reference_energy(comp, reference_energy):
@@ -172,7 +184,7 @@ def _evaluate_all(model, values, refs):
         element = getattr(comp, "element", None)
         phase = _phase(comp)
         col_key = next((k for k in COLUMN_KEYS if k in der), None)
-        if element and phase in ("gas", "dust") and col_key:
+        if element and phase and col_key:
             columns.setdefault(element, {}).setdefault(phase, 0.0)
             columns[element][phase] += float(der[col_key][0])
     for element, by_phase in columns.items():

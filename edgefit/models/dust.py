@@ -121,6 +121,9 @@ class DustEdge(Component):
     kind = MULTIPLICATIVE
     default_name = "dust"
     registry_name = "dust_edge"
+    #: Phase of the edge element this component carries (read by
+    #: :mod:`edgefit.inference.derived` to form depletions).
+    phase = "dust"
     _BASE_PARAMS = (
         Param("ndust", 10.0, 0.0, 1.0e5, "1e16 cm-2",
               "column density of the edge element locked in grains"),
