@@ -442,17 +442,16 @@ def _transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
         count = np.concatenate([j0 - i0, i1 - j1])
         line2 = np.concatenate([np.arange(nl), np.arange(nl)])
         if edges is not None:
-            # antiderivative at the shared edges of each wing range
-            ep, eo = _ranges(first, count + (count > 0))
+            # antiderivative at the shared edges of each wing range; the
+            # differences of consecutive edges are the bins, except where
+            # one range ends and the next begins (weight set to 0 there)
+            n_e = count + (count > 0)
+            ep, eo = _ranges(first, n_e)
             lo_ = line2[eo]
             fe = _wing_antiderivative(edges[ep] - c[lo_], g[lo_], s[lo_])
-            wb, wo = _ranges(first, count)
-            # position of bin wb's lower edge in ep: each non-empty range
-            # has one extra edge, so shift by the non-empty ranges before it
-            nonempty = count > 0
-            k = np.arange(wb.size) + (np.cumsum(nonempty) - nonempty)[wo]
-            dF = fe[k + 1] - fe[k]
-            wo = line2[wo]
+            wb, wo = np.minimum(ep[:-1], n - 1), lo_[:-1]
+            dF = np.diff(fe)
+            dF[(np.cumsum(n_e)[n_e > 0] - 1)[:-1]] = 0.0
         else:
             wb, wo = _ranges(first, count)
             wo = line2[wo]
@@ -462,7 +461,7 @@ def _transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
         if wb.size:
             tau_w = dF * (A * (1.0 / np.pi))[wo] / width[wb]
             tw = np.bincount(wb - span0, weights=tau_w, minlength=span1 - span0)
-            out[span0:span1] = np.exp(-tw)
+            out[span0:span1] = np.exp(-tw[:span1 - span0])   # (junction entries may add one)
 
     # -- core bins: sub-sampled --------------------------------------------------
     if not ivs:
