@@ -175,6 +175,24 @@ def _quantity(table, path, key):
         raise ConfigError(path, f"{key}: bad value/unit ({exc})") from None
 
 
+def _make_component(cls, name, options, init, fixed, path, key, ctype):
+    """``cls(name, fixed=fixed, **init, **options)`` with errors naming the key."""
+    clash = set(options) & {p.name for p in cls.params}
+    if clash:
+        raise ConfigError(path, f"{key}.options.{sorted(clash)[0]}: is a fit parameter; "
+                                "set it under params")
+    try:
+        return cls(name, fixed=fixed, **init, **options)
+    except TypeError as exc:
+        raise ConfigError(path, f"{key}.options: {exc}") from None
+    except UnknownParameterError:
+        bad_opt = sorted(set(options))
+        raise ConfigError(path, f"{key}.options: {ctype} does not take option(s) "
+                                f"{bad_opt}") from None
+    except EdgefitError as exc:
+        raise ConfigError(path, f"{key}: {exc}") from None
+
+
 def build_model(model_table, path=None):
     """Components and model from the ``[model]`` table.
 
@@ -216,7 +234,11 @@ def build_model(model_table, path=None):
         params = spec.get("params") or {}
         if not isinstance(params, dict):
             raise ConfigError(path, f"{key}.params: must be a table")
-        declared = {p.name for p in cls.params}
+        # parameters can depend on options (ions of ion_lines, the size
+        # family of dust_edge): read them from an instance built with the
+        # options alone
+        declared = {p.name for p in _make_component(cls, name, options, {}, (), path,
+                                                     key, ctype).params}
         init, fixed = {}, []
         for pname, pval in params.items():
             pkey = f"{key}.params.{pname}"
@@ -244,20 +266,7 @@ def build_model(model_table, path=None):
             if pval.get("fixed"):
                 fixed.append(pname)
             settings[f"{name}_{pname}"] = dict(pval, _key=pkey)
-        clash = set(options) & declared
-        if clash:
-            raise ConfigError(path, f"{key}.options.{sorted(clash)[0]}: is a fit parameter; "
-                                    "set it under params")
-        try:
-            components[name] = cls(name, fixed=fixed, **init, **options)
-        except TypeError as exc:
-            raise ConfigError(path, f"{key}.options: {exc}") from None
-        except UnknownParameterError:
-            bad_opt = sorted(set(options))
-            raise ConfigError(path, f"{key}.options: {ctype} does not take option(s) "
-                                    f"{bad_opt}") from None
-        except EdgefitError as exc:
-            raise ConfigError(path, f"{key}: {exc}") from None
+        components[name] = _make_component(cls, name, options, init, fixed, path, key, ctype)
     try:
         model, used = model_from_terms(terms, components, path)
     except ModelError as exc:   # e.g. clashing parameter names

@@ -11,7 +11,7 @@ from __future__ import annotations
 import sys
 import warnings
 
-__all__ = ["add_parser", "run"]
+__all__ = ["add_parser", "run", "fit_pipeline"]
 
 
 def add_parser(subparsers):
@@ -27,30 +27,67 @@ def add_parser(subparsers):
     return p
 
 
-def _say(args, msg):
-    if not args.quiet:
-        print(msg)
-
-
 def run(args) -> int:
+    from ..config import load_config
+
+    cfg = load_config(args.config)
+    fit_pipeline(cfg, args.output, mcmc=not args.no_mcmc, plots=not args.no_plots,
+                 steps=args.steps, quiet=args.quiet)
+    return 0
+
+
+def fit_pipeline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=False,
+                 command="fit"):
+    """Run every step a sightline configuration asks for and write the
+    results; returns the :class:`~edgefit.inference.FitResult`.
+
+    This is the whole of ``edgefit fit`` after reading the configuration
+    (``edgefit demo`` runs it too).  Steps: best fit; profile-likelihood
+    intervals (``[errors]``); MCMC (``[mcmc]``, unless ``mcmc`` is False;
+    ``steps`` overrides its length); posterior predictive check; derived
+    quantities; figures (unless ``plots`` is False).  The output folder
+    (``output``, default the configuration's) is rewritten after every
+    step; a failing step records ``failed_<step>`` in the result's meta,
+    writes what exists and raises (an EdgefitError naming the file and the
+    step's key).  ``quiet`` silences progress messages (warnings still go
+    to stderr, prefixed ``edgefit <command>: warning:``).
+
+    Notes
+    -----
+    * A profile scan that meets a lower statistic than the best fit refits
+      from there and records the flag ``refit_after_profile``; that flag is
+      informational (the final fit is the better one) and does not mark
+      the fit doubtful.
+    * With a background spectrum, the C-statistic goodness of fit treats
+      the profiled background levels like fitted parameters (their number
+      is subtracted from the expectation): an approximation.
+    * With ``statistic = "chi2"`` the scaled background is subtracted from
+      the counts and its variance added.
+    """
     from pathlib import Path
 
-    from ..config import apply_parameter_settings, load_config
+    from ..config import apply_parameter_settings
     from ..errors import ConvergenceWarning, EdgefitError, ShortChainWarning
     from ..inference import (derived_quantities, fit_sightline, posterior_predictive,
                              profile_intervals, run_mcmc)
     from ..inference.likelihood import JointLikelihood
     from ..inference.mcmc import GaussianPrior, LogUniformPrior
 
-    cfg = load_config(args.config)
-    out_dir = Path(args.output) if args.output else cfg.output
+    def say(msg):
+        if not quiet:
+            print(msg, flush=True)
+
+    def warn(w):
+        print(f"edgefit {command}: warning: {w.message}", file=sys.stderr)
+
+    out_dir = Path(output) if output else cfg.output
     datasets = cfg.load_datasets()
     fitc = cfg.fit
     like = JointLikelihood(cfg.model, datasets, statistic=fitc.get("statistic", "cstat"),
                            chi2_variance=fitc.get("chi2_variance", "data"))
     params = like.make_params(xnorm_free=fitc.get("xnorm_free", True))
     params = apply_parameter_settings(params, cfg.param_settings, cfg.model, cfg.path)
-    _say(args, f"{cfg.name}: {len(datasets)} spectra, {like.n_bins} bins; fitting ...")
+    say(f"{cfg.name}: {len(datasets)} spectra, {like.n_bins} bins; fitting ...")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ConvergenceWarning)
         result = fit_sightline(cfg.model, datasets, params=params,
@@ -58,11 +95,11 @@ def run(args) -> int:
                                method=fitc.get("method", "least_squares"),
                                chi2_variance=fitc.get("chi2_variance", "data"))
     for w in caught:
-        print(f"edgefit fit: warning: {w.message}", file=sys.stderr)
+        warn(w)
     result.meta["sightline"] = cfg.name
     result.meta["config"] = str(cfg.path)
     result.write(out_dir)
-    _say(args, f"best fit written to {out_dir}")
+    say(f"best fit written to {out_dir}")
 
     def stage(label, func):
         try:
@@ -72,7 +109,7 @@ def run(args) -> int:
                 func()
             for w in caught:
                 if issubclass(w.category, (ShortChainWarning, ConvergenceWarning)):
-                    print(f"edgefit fit: warning: {w.message}", file=sys.stderr)
+                    warn(w)
         except (EdgefitError, ValueError, ArithmeticError) as exc:
             result.meta[f"failed_{label}"] = str(exc)
             result.write(out_dir)
@@ -89,11 +126,11 @@ def run(args) -> int:
             if n not in result.free_names:
                 raise cfg.error("errors.profile", f"{n!r} is not a free parameter "
                                 f"(free: {result.free_names})")
-        _say(args, f"profiling {len(names)} parameter(s) ...")
+        say(f"profiling {len(names)} parameter(s) ...")
         stage("errors", lambda: profile_intervals(result, names, levels))
 
     mc = cfg.mcmc
-    if mc.get("enabled", False) and not args.no_mcmc:
+    if mc.get("enabled", False) and mcmc:
         priors = {}
         for name, spec in (mc.get("priors") or {}).items():
             if isinstance(spec, dict) and set(spec) == {"gaussian"} and \
@@ -104,13 +141,12 @@ def run(args) -> int:
             else:
                 raise cfg.error(f"mcmc.priors.{name}", "use { gaussian = [mean, sigma] } "
                                 "or \"log_uniform\"")
-        steps = args.steps or int(mc.get("steps", 2000))
-        _say(args, f"MCMC: {steps} steps ...")
+        steps = steps or int(mc.get("steps", 2000))
+        say(f"MCMC: {steps} steps ...")
         stage("mcmc", lambda: run_mcmc(result, nwalkers=mc.get("walkers"), nsteps=steps,
                                        burn=mc.get("burn"), thin=int(mc.get("thin", 1)),
                                        seed=int(mc.get("seed", 1)), priors=priors,
-                                       progress=bool(mc.get("progress", False))
-                                       and not args.quiet,
+                                       progress=bool(mc.get("progress", False)) and not quiet,
                                        processes=mc.get("processes")))
 
     ppc_draws = int(cfg.goodness.get("ppc_draws", 200 if result.mcmc is not None else 0))
@@ -130,7 +166,7 @@ def run(args) -> int:
                                                 levels=tuple(der.get("levels",
                                                                      (0.683, 0.90)))))
     pl = cfg.plots
-    if pl.get("enabled", True) and not args.no_plots:
+    if pl.get("enabled", True) and plots:
         from ..plotting.fit_plots import save_all
 
         window = pl.get("window")
@@ -138,6 +174,6 @@ def run(args) -> int:
                                         window=tuple(window) if window else None,
                                         display_min_counts=pl.get("display_min_counts", 20),
                                         fmt=pl.get("format", "png")))
-    _say(args, result.summary())
-    _say(args, f"results in {out_dir}")
-    return 0
+    say(result.summary())
+    say(f"results in {out_dir}")
+    return result

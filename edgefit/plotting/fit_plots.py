@@ -37,6 +37,38 @@ def _display_groups(counts, min_counts):
     return np.array(starts)
 
 
+def _edge_markers(result):
+    """(label, energy keV) of the edges the model's absorbers declare
+    (``edge_kev`` attribute or ``edge_energy()`` method, with ``element``),
+    one per element and energy."""
+    out = {}
+    for comp in result.model.components():
+        e = getattr(comp, "edge_kev", None)
+        if e is None and callable(getattr(comp, "edge_energy", None)):
+            try:
+                e = comp.edge_energy()
+            except (TypeError, ValueError):
+                e = None
+        el = getattr(comp, "element", None)
+        if e is not None and el:
+            edge = getattr(comp, "edge", None)
+            key = (el, round(float(e), 4))
+            if key not in out or (edge and " " not in out[key][0].replace(" edge", "")):
+                out[key] = (f"{el} {edge} edge" if edge else f"{el} edge", float(e))
+    return sorted(out.values(), key=lambda kv: kv[1])
+
+
+def _mark_edges(ax, edges, wave, label=True):
+    for name, e in edges:
+        x = HC_KEV_ANGSTROM / e if wave else e
+        lo, hi = sorted(ax.get_xlim())
+        if lo <= x <= hi:
+            ax.axvline(x, color="C0", ls=":", lw=0.8, zorder=0)
+            if label:
+                ax.text(x, 0.04, f" {name}", transform=ax.get_xaxis_transform(), color="C0",
+                        fontsize=7, ha="left", va="bottom")
+
+
 def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize=None):
     """Data, model and residuals of every dataset (one column of panels).
 
@@ -95,7 +127,7 @@ def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize
             ax.text(0.01, 0.96, ds.label, transform=ax.transAxes, va="top", ha="left",
                     fontsize=9)
             if k == 0:
-                ax.legend(loc="best", frameon=False)
+                ax.legend(loc="upper right", frameon=False, ncols=2)
             if window is not None:
                 ax.set_xlim(*window)
                 vis = (x >= min(window)) & (x <= max(window))
@@ -109,12 +141,18 @@ def plot_spectra(result, unit="keV", window=None, display_min_counts=20, figsize
                     r_vis = res[vis]
                     r_max = max(3.0, float(np.abs(r_vis).max()) + 1.2)
                     axr.set_ylim(-r_max, r_max)
+        edges = _edge_markers(result)
+        for k in range(n):
+            _mark_edges(axes[2 * k], edges, wave, label=True)
+            _mark_edges(axes[2 * k + 1], edges, wave, label=False)
         axes[-1].set_xlabel("wavelength (\u00c5)" if wave else "energy (keV)")
         fig.align_ylabels(axes)
+        fig.subplots_adjust(top=0.985, bottom=0.6 / fig.get_figheight(), left=0.11,
+                            right=0.98)
     return fig
 
 
-def plot_transmission(result, energy_range=None, n=2000, unit="keV", figsize=(3.5, 2.8)):
+def plot_transmission(result, energy_range=None, n=2000, unit="keV", figsize=(6.0, 2.8)):
     """Transmission of each multiplicative component (and their product) at
     the best fit, on a fine grid over ``energy_range`` (keV; default the
     span of the data)."""
@@ -143,20 +181,25 @@ def plot_transmission(result, energy_range=None, n=2000, unit="keV", figsize=(3.
         ax.plot(x, prod, color="k", lw=1.4, label="all absorbers")
         ax.set_xlabel("wavelength (\u00c5)" if wave else "energy (keV)")
         ax.set_ylabel("transmission")
-        ax.legend(frameon=False)
+        ax.set_xlim(x.min(), x.max())
+        _mark_edges(ax, _edge_markers(result), wave)
+        # outside the axes, so that no curve is hidden
+        ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
 
 
 def plot_corner(result, names=None, **kwargs):
     """Corner plot of the MCMC posterior (needs ``result.mcmc``); labels
-    carry each parameter's unit."""
+    carry each parameter's unit.  ``names`` default: the sampled
+    parameters without the cross-normalisation constants."""
     try:
         import corner
     except ImportError as exc:  # pragma: no cover - corner is a dependency
         raise ImportError("plot_corner needs the 'corner' package: pip install corner") from exc
     if result.mcmc is None:
         raise ValueError("no MCMC samples: run edgefit.inference.run_mcmc first")
-    names = names or result.mcmc.names
+    names = names or [n for n in result.mcmc.names if not n.startswith("xnorm_")] \
+        or result.mcmc.names
     samples = result.mcmc.flat_samples(names)
     labels = [f"{n}\n[{result.unit(n)}]" if result.unit(n) else n for n in names]
     kw = dict(labels=labels, quantiles=[0.1585, 0.5, 0.8415], show_titles=True,
