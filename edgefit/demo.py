@@ -283,8 +283,9 @@ def format_comparison(rows):
              f"{'68% interval':>26}{'pull':>7}"]
     lines.append("-" * len(lines[0]))
     for name, unit, t, est, lo, hi, p in rows:
+        ptxt = f"{p:.2f}" if math.isfinite(p) else "--"
         lines.append(f"{name:<26}{unit:<12}{t:>16.4g}{est:>12.4g}"
-                     f"{f'[{lo:.4g}, {hi:.4g}]':>26}{p:>7.2f}")
+                     f"{f'[{lo:.4g}, {hi:.4g}]':>26}{ptxt:>7}")
     return "\n".join(lines)
 
 
@@ -319,6 +320,9 @@ def run_demo(output="edgefit-demo", *, quick=False, quiet=False):
     (cfg.output / "truth_comparison.txt").write_text(text + "\n")
     say("")
     say(text)
+    if result.mcmc is not None and result.mcmc.short_chain:
+        say("note: the demo's MCMC is deliberately short (minutes, not hours); for "
+            "published numbers run mcmc.steps >= 50 autocorrelation times")
     say("")
     say(f"inputs (simulated spectra, responses, {cfg_path.name}): {output}/")
     say(f"results (fit.ecsv, fit.json, fit_summary.txt, truth_comparison.txt, "
