@@ -246,12 +246,14 @@ class Component(ModelNode):
             return pre
 
     def evaluate(self, grid, values=None):
-        own = dict(self.values)
         if values:
             prefix = self.name + "_"
-            for key, val in values.items():
-                if key.startswith(prefix) and key[len(prefix):] in own:
-                    own[key[len(prefix):]] = float(val)
+            own = {}
+            for key, default in self.values.items():
+                val = values.get(prefix + key)
+                own[key] = default if val is None else float(val)
+        else:
+            own = self.values
         return self._evaluate(grid, self.prepared(grid), **own)
 
     def __getstate__(self):
