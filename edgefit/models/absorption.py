@@ -190,6 +190,8 @@ class GasEdge(Component):
     kind = MULTIPLICATIVE
     default_name = "gas"
     registry_name = "gas_edge"
+    #: the phase of the element this component counts (used for depletion)
+    phase = "gas"
     params = (
         Param("col", 10.0, 0.0, 1e7, "1e16 cm-2", "gas-phase column of the element"),
         Param("shift", 0.0, -20.0, 20.0, "eV", "shift of the element's cross section",
