@@ -22,16 +22,13 @@ from edgefit import stats
 from edgefit.data.spectrum import Spectrum
 from edgefit.errors import ConvergenceWarning, ModelError
 from edgefit.inference import Dataset, JointLikelihood, fit_sightline
-from edgefit.inference._testing import ToyEdgeAbsorber, simulate_counts, toy_response
+from edgefit.inference._testing import (TOY_TRUTH, ToyEdgeAbsorber, simulate_counts,
+                                        toy_model, toy_response)
 from edgefit.models.base import ADDITIVE, Component, Param
 from edgefit.models.continuum import PhotonPowerLaw
 
-TRUTH = {"abs_step": 0.3, "pl_index": 1.8, "pl_norm": 0.5}
-
-
-def cheap_model():
-    return ToyEdgeAbsorber("abs", tau0=0.4, step=0.3, fixed=["tau0"]) * PhotonPowerLaw(
-        "pl", index=1.8, norm=0.5)
+TRUTH = TOY_TRUTH
+cheap_model = toy_model
 
 
 @pytest.fixture(scope="module")
@@ -250,3 +247,20 @@ def test_wrong_model_gives_small_goodness_p_value(response):
         warnings.simplefilter("ignore", ConvergenceWarning)
         res = fit_sightline(model, Dataset(spec), params=params)
     assert res.goodness["p_value"] < 1e-3
+
+
+@pytest.mark.parametrize("s,n,nb,r", [(5.0, 7.0, 3.0, 0.2), (20.0, 12.0, 40.0, 0.1),
+                                      (0.5, 0.0, 4.0, 1.0), (3.0, 10.0, 0.0, 0.5)])
+def test_profiled_background_level_maximises_the_likelihood(s, n, nb, r):
+    """b-hat of stats.profiled_background_level against scipy's bounded
+    scalar minimiser of the two-region Poisson deviance (Wachter, Leach &
+    Kellogg 1979 likelihood): same b within 1e-6 (absolute + relative)."""
+    from scipy.optimize import minimize_scalar
+
+    def dev(b):
+        return (stats.c_statistic([s + r * b], [n]) + stats.c_statistic([b], [nb]))
+
+    ref = minimize_scalar(dev, bounds=(0.0, 10 * (n + nb + 10)), method="bounded",
+                          options={"xatol": 1e-10}).x
+    got = float(stats.profiled_background_level([s], [n], [nb], r)[0])
+    assert got == pytest.approx(ref, rel=1e-6, abs=1e-6)

@@ -20,15 +20,12 @@ from edgefit.errors import ShortChainWarning
 from edgefit.inference import (Dataset, GaussianPrior, LogPosterior, delta_statistic,
                                derived_quantities, fit_sightline, posterior_predictive,
                                profile_intervals, run_mcmc)
-from edgefit.inference._testing import ToyEdgeAbsorber, simulate_counts, toy_response
+from edgefit.inference._testing import (TOY_TRUTH, ToyEdgeAbsorber, simulate_counts,
+                                        toy_model, toy_response)
 from edgefit.models.continuum import PhotonPowerLaw
 
-TRUTH = {"abs_step": 0.3, "pl_index": 1.8, "pl_norm": 0.5}
-
-
-def cheap_model():
-    return ToyEdgeAbsorber("abs", tau0=0.4, step=0.3, fixed=["tau0"]) * PhotonPowerLaw(
-        "pl", index=1.8, norm=0.5)
+TRUTH = TOY_TRUTH
+cheap_model = toy_model
 
 
 @pytest.fixture(scope="module")
@@ -155,3 +152,35 @@ def test_ppc_flags_wrong_model():
     res = fit_sightline(model, Dataset(spec), warn=False)
     ppc = posterior_predictive(res, n_draws=100, seed=1)
     assert ppc["p_value"] < 0.01
+
+
+class _Phased(ToyEdgeAbsorber):
+    """Toy absorber that reports an element column N = step x 1e16 cm^-2
+    and declares a phase (test only, not registered)."""
+
+    registry_name = None
+
+    def __init__(self, name, phase, **kw):
+        super().__init__(name, **kw)
+        self.phase = phase
+        self.element = "Si"
+
+    def derived(self, **values):
+        v = self._merged(values)
+        return {"element_column": (v["step"] * 1e16, "cm-2")}
+
+
+def test_depletion_uses_declared_phase_not_names():
+    """depletion = N_dust / (N_gas + N_dust) (definition) from components
+    that declare phase and element; a component named like dust without a
+    phase attribute does not take part."""
+    from edgefit.inference.derived import _evaluate_all
+
+    gas = _Phased("gas_like", "gas", step=0.3)
+    dust = _Phased("grains", "dust", step=0.9)
+    decoy = ToyEdgeAbsorber("dust_decoy", step=5.0)
+    model = gas * dust * decoy * PhotonPowerLaw("pl")
+    out = _evaluate_all(model, model.default_values(), {})
+    assert out["depletion_Si"][0] == pytest.approx(0.9 / 1.2, rel=1e-12)
+    gas.phase = "neither"
+    assert "depletion_Si" not in _evaluate_all(model, model.default_values(), {})

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..models.base import MULTIPLICATIVE, Component, Param
 
-__all__ = ["toy_response", "ToyEdgeAbsorber", "simulate_counts"]
+__all__ = ["toy_response", "ToyEdgeAbsorber", "toy_model", "TOY_TRUTH", "simulate_counts"]
 
 
 def toy_response(emin=1.6, emax=2.2, n_channels=900, n_energy=None, fwhm_kev=None,
@@ -65,6 +65,21 @@ class ToyEdgeAbsorber(Component):
     def derived(self, **values):
         v = self._merged(values)
         return {"edge_jump": (v["step"], "")}
+
+
+#: Values of :func:`toy_model`'s free parameters used as the truth of
+#: simulations (invented).
+TOY_TRUTH = {"abs_step": 0.3, "pl_index": 1.8, "pl_norm": 0.5}
+
+
+def toy_model():
+    """ToyEdgeAbsorber("abs", tau0 fixed at 0.4) x PhotonPowerLaw("pl"),
+    starting at :data:`TOY_TRUTH`: a cheap three-parameter model for fit
+    tests."""
+    from ..models.continuum import PhotonPowerLaw
+
+    return ToyEdgeAbsorber("abs", tau0=0.4, step=0.3, fixed=["tau0"]) * PhotonPowerLaw(
+        "pl", index=1.8, norm=0.5)
 
 
 def simulate_counts(model, response, exposure, values=None, seed=None, background=None):

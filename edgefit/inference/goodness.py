@@ -10,6 +10,11 @@ Two checks:
    freedom (common practice; Kaastra 2017 sect. 6 discusses it).  The
    z-score z = (C - E) / sqrt(Var) and the one-sided p-value
    P(Z >= z) of a normal distribution (valid for many bins) are reported.
+   With a background spectrum the check is approximate: the expectation
+   and variance are summed over source and background bins at the
+   profiled background levels (:func:`edgefit.stats.profiled_background_level`),
+   and one degree of freedom per profiled level is subtracted as if it
+   were a fitted parameter.
 2. :func:`posterior_predictive` -- posterior predictive check with the
    realised discrepancy of Gelman, Meng & Stern (1996, Stat. Sinica 6,
    733): for posterior draws theta_k, simulate counts from the model at

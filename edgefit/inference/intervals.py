@@ -13,7 +13,9 @@ S_prof(x) - S0 - Delta.  Every evaluation re-minimises all other free
 parameters, warm-started from the nearest point already profiled.  If a
 profile point has a lower statistic than the best fit (the fit had
 stopped short), the fit is redone from that point, the result updated
-(flag ``refit_after_profile``) and the scan restarted (at most twice).  If the
+(flag ``refit_after_profile``, informational: the final fit is the better
+one, so it does not make ``FitResult.converged`` False) and the scan
+restarted (at most twice).  If the
 parameter's bound is reached first, the bound is reported as a limit
 (``lower_at_bound``/``upper_at_bound``).  A profile point below S0 (a
 better fit than the "best" one) is noted on the interval.
