@@ -52,7 +52,7 @@ import math
 
 import numpy as np
 
-from .mie import MieEfficiencies, _check_inputs
+from .mie import MieEfficiencies, _prepare_index
 
 __all__ = ["adt_efficiencies", "adt_k"]
 
@@ -128,13 +128,7 @@ def adt_efficiencies(m, x, *, m_minus_1=None):
     For where these agree with exact Mie theory, see
     :func:`edgefit.dust.efficiencies.efficiencies`.
     """
-    if m_minus_1 is not None:
-        mm1 = np.asarray(m_minus_1).astype(complex)
-        m = 1.0 + mm1
-    m, x = _check_inputs(m, x)
-    if m_minus_1 is None:
-        mm1 = m - 1.0
-    mm1, x = np.broadcast_arrays(mm1, x)
+    _, mm1, x = _prepare_index(m, x, m_minus_1)
     w = -2j * x * mm1
     qext = 4.0 * np.real(adt_k(w))
     qabs = 2.0 * np.real(adt_k(2.0 * w.real))

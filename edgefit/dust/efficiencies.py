@@ -48,7 +48,7 @@ from __future__ import annotations
 import numpy as np
 
 from .adt import adt_efficiencies
-from .mie import MieEfficiencies, _check_inputs, mie_efficiencies
+from .mie import MieEfficiencies, _prepare_index, mie_efficiencies
 
 __all__ = ["efficiencies", "adt_error_bound", "DEFAULT_RTOL", "MAX_ERROR_RATIO"]
 
@@ -118,13 +118,7 @@ def efficiencies(m, x, method="auto", rtol=DEFAULT_RTOL, *, m_minus_1=None,
     if not (0 < rtol <= 0.1):
         raise ValueError("rtol must be in (0, 0.1]; ADT is not a useful "
                          "approximation beyond 10 %")
-    if m_minus_1 is not None:
-        mm1 = np.asarray(m_minus_1).astype(complex)
-        m = 1.0 + mm1
-    m, x = _check_inputs(m, x)
-    if m_minus_1 is None:
-        mm1 = m - 1.0
-    m, mm1, x = np.broadcast_arrays(m, mm1, x)
+    m, mm1, x = _prepare_index(m, x, m_minus_1)
     scalar = x.ndim == 0
     use_adt = adt_error_bound(None, x, m_minus_1=mm1) <= rtol
     out = [np.empty(x.shape) for _ in range(4)]

@@ -155,6 +155,19 @@ def _check_inputs(m, x):
     return m, x
 
 
+def _prepare_index(m, x, m_minus_1=None):
+    """Checked, broadcast (m, m - 1, x).  ``m_minus_1`` (= -delta + i beta),
+    when given, defines m and keeps the full precision of m - 1 for indices
+    very close to 1."""
+    if m_minus_1 is not None:
+        mm1 = np.asarray(m_minus_1).astype(complex)
+        m = 1.0 + mm1
+    m, x = _check_inputs(m, x)
+    if m_minus_1 is None:
+        mm1 = m - 1.0
+    return np.broadcast_arrays(m, mm1, x)
+
+
 # --------------------------------------------------------------------------
 # Kernel for one sphere (compiled by numba when available)
 # --------------------------------------------------------------------------
@@ -470,13 +483,7 @@ def mie_efficiencies(m, x, *, backend="auto", m_minus_1=None,
     >>> round(float(r.qext), 5), round(float(r.g), 5)
     (3.10543, 0.63314)
     """
-    if m_minus_1 is not None:
-        mm1 = np.asarray(m_minus_1).astype(complex)
-        m = 1.0 + mm1
-    m, x = _check_inputs(m, x)
-    if m_minus_1 is None:
-        mm1 = m - 1.0
-    m, mm1, x = np.broadcast_arrays(m, mm1, x)
+    m, mm1, x = _prepare_index(m, x, m_minus_1)
     shape = x.shape
     mf = np.ascontiguousarray(m.ravel())
     mm1f = np.ascontiguousarray(mm1.ravel())

@@ -34,6 +34,7 @@ import numpy as np
 from astropy import units as u
 
 from .._units import HC_KEV_ANGSTROM, as_kev, to_value
+from ..data.textcolumns import read_text_columns
 from ..errors import InputFileError, PhysicsDataError
 from ..physics import atomic
 from .kramers_kronig import kk_delta_f1
@@ -292,25 +293,7 @@ def read_lab_absorption(path, *, kind="mu", energy_unit="eV", thickness_um=None,
     path = os.fspath(path)
     if energy_unit not in ("eV", "keV"):
         raise InputFileError(path, f"energy_unit must be 'eV' or 'keV', not {energy_unit!r}")
-    rows = []
-    try:
-        with open(path, encoding="utf-8") as fh:
-            for lineno, line in enumerate(fh, 1):
-                text = line.split("#", 1)[0].strip()
-                if not text:
-                    continue
-                parts = text.replace(",", " ").split()
-                try:
-                    rows.append([float(parts[columns[0]]), float(parts[columns[1]])])
-                except (IndexError, ValueError):
-                    raise InputFileError(path, f"line {lineno}: expected numbers in "
-                                         f"columns {columns[0] + 1} and {columns[1] + 1}, "
-                                         f"got {text[:60]!r}") from None
-    except UnicodeDecodeError:
-        raise InputFileError(path, "not a plain-text table") from None
-    if not rows:
-        raise InputFileError(path, "no data rows")
-    data = np.array(rows)
+    data = read_text_columns(path, columns, f"energy ({energy_unit}) and {kind}")
     energy = data[:, 0] / (1e3 if energy_unit == "eV" else 1.0)
     return LabAbsorption(energy, data[:, 1], kind=kind, thickness_um=thickness_um,
                          source=path)

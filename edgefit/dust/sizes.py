@@ -269,23 +269,13 @@ def read_size_table(path):
     (µm) and n(a) (any scale), ``#`` comments.  Errors name the file."""
     import os
 
+    from ..data.textcolumns import read_text_columns
     from ..errors import InputFileError
 
     path = os.fspath(path)
-    rows = []
-    with open(path, encoding="utf-8") as fh:
-        for lineno, line in enumerate(fh, 1):
-            text = line.split("#", 1)[0].strip()
-            if not text:
-                continue
-            parts = text.replace(",", " ").split()
-            try:
-                rows.append((float(parts[0]), float(parts[1])))
-            except (IndexError, ValueError):
-                raise InputFileError(path, f"line {lineno}: expected two numbers (radius "
-                                     f"in um, n), got {text[:60]!r}") from None
+    rows = read_text_columns(path, (0, 1), "radius (um) and n(a)")
     try:
-        a, n = np.array(rows).T
+        a, n = rows.T
         return TabulatedSizes(a, n, source=path)
     except (ValueError, PhysicsDataError) as exc:
         raise InputFileError(path, str(exc).replace(f"{path}: ", "")) from None
