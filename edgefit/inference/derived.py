@@ -22,8 +22,7 @@ each component of the model:
   ``element`` (e.g. "Si"), and its ``derived`` dict has an element column
   in cm^-2 under one of :data:`COLUMN_KEYS`; several components of one
   phase add up.  No name is guessed: a component without ``phase`` never
-  enters a depletion (the one exception is a stop-gap for ``GasEdge``,
-  see :func:`_phase`).
+  enters a depletion.
 """
 from __future__ import annotations
 
@@ -128,15 +127,8 @@ PHASES = ("gas", "dust")
 
 
 def _phase(comp):
-    """'gas', 'dust' or None, from the component class's ``phase``
-    attribute.
-
-    Stop-gap: ``GasEdge`` (registry name ``"gas_edge"``) does not declare
-    ``phase = "gas"`` yet (it will); until it does, that one registry name
-    is read as gas.  Remove the fallback once the attribute is there."""
+    """'gas', 'dust' or None, from the component class's ``phase`` attribute."""
     phase = getattr(comp, "phase", None)
-    if phase is None and getattr(type(comp), "registry_name", None) == "gas_edge":
-        phase = "gas"  # fallback until GasEdge declares its phase
     return phase if phase in PHASES else None
 
 
