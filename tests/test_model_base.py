@@ -151,3 +151,12 @@ def test_composite_repr_and_component_lookup():
     assert model.component("pl").name == "pl"
     with pytest.raises(UnknownParameterError):
         model.component("nope")
+
+
+def test_structure_shows_grouping():
+    # Display only: sums inside products are bracketed, as in ordinary algebra.
+    from edgefit.models import GasEdge, LineGaussian, PhotonPowerLaw, SmoothISM
+
+    m = SmoothISM("ism") * GasEdge(element="Si") * (PhotonPowerLaw("pl") + LineGaussian("ln"))
+    assert m.structure() == ("ism [smooth_ism] * gas_si [gas_edge] * "
+                             "(pl [photon_power_law] + ln [line_gaussian])")

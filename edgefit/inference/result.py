@@ -164,7 +164,7 @@ class FitResult:
         lines = []
         title = self.meta.get("sightline", "sightline fit")
         lines.append(f"== {title} ==")
-        lines.append(f"model: {self.model!r}")
+        lines.append(f"model: {self.model.structure()}")
         for i, ds in enumerate(self.datasets):
             lines.append(f"data {i + 1}: {ds!r}")
         stat = "C (Poisson deviance)" if self.statistic_name == "cstat" else "chi-square"

@@ -122,6 +122,11 @@ class ModelNode:
                        vary=p.vary and p.name not in comp.fixed)
         return params
 
+    def structure(self) -> str:
+        """The model's shape in component names, e.g.
+        ``ism * gas_si * dust * (disk + powlaw)`` (for display only)."""
+        raise NotImplementedError
+
     # -- evaluation ----------------------------------------------------
     def evaluate(self, grid: EnergyGrid, values: Mapping[str, float] | None = None) -> np.ndarray:
         """Evaluate on ``grid`` with ``values`` (full names; missing ones take
@@ -201,6 +206,9 @@ class Component(ModelNode):
 
     def components(self):
         return [self]
+
+    def structure(self):
+        return f"{self.name} [{self.registry_name or type(self).__name__}]"
 
     # subclasses -------------------------------------------------------
     def precompute(self, grid: EnergyGrid) -> Any:
@@ -311,6 +319,15 @@ class CompositeModel(ModelNode):
         a = self.left.evaluate(grid, values)
         b = self.right.evaluate(grid, values)
         return a * b if self.op == "*" else a + b
+
+    def structure(self):
+        parts = []
+        for side in (self.left, self.right):
+            text = side.structure()
+            if self.op == "*" and isinstance(side, CompositeModel) and side.op == "+":
+                text = f"({text})"
+            parts.append(text)
+        return f" {self.op} ".join(parts)
 
     def __repr__(self):
         return f"({self.left!r} {self.op} {self.right!r})"
