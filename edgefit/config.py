@@ -1,6 +1,6 @@
 """Sightline configuration files (TOML) -> data, model and fit settings.
 
-The file format is documented in ``examples/CONFIG.md``.  Parsing is safe:
+The file format is documented in the README (section "Configuration files").  Parsing is safe:
 TOML is read with :mod:`tomllib`; component types are looked up in
 :data:`edgefit.models.base.COMPONENTS`; the model is given in structured
 form only -- lists of component names, never a text expression:
@@ -322,7 +322,7 @@ def apply_parameter_settings(params, settings, model=None, path=None):
 # ---------------------------------------------------------------------------
 @dataclass
 class SightlineConfig:
-    """A parsed configuration file (see ``examples/CONFIG.md``)."""
+    """A parsed configuration file (format: README, "Configuration files")."""
 
     path: Path
     name: str
