@@ -444,8 +444,8 @@ def load_config(path):
                            {"enabled", "unit", "window", "display_min_counts", "format"},
                            path),
     )
-    if cfg.fit.get("statistic", "cstat") not in ("cstat", "chi2"):
-        raise ConfigError(path, "fit.statistic: use \"cstat\" or \"chi2\"")
+    if cfg.fit.get("statistic", "poisson") not in ("poisson", "chi2"):
+        raise ConfigError(path, "fit.statistic: use \"poisson\" or \"chi2\"")
     for lev in cfg.errors.get("levels", []):
         if not (isinstance(lev, (int, float)) and 0 < lev < 1):
             raise ConfigError(path, f"errors.levels: {lev!r} is not a probability in (0, 1)")

@@ -126,7 +126,7 @@ params.index = {{ value = 2.0, min = 0.5, max = 4.0 }}
 params.norm = {{ value = 5.0, min = 0.01, max = 100.0 }}
 
 [fit]
-statistic = "cstat"
+statistic = "poisson"
 
 [errors]
 profile = ["gas_si_col", "dust_ndust"]

@@ -83,7 +83,7 @@ def fit_pipeline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=F
     out_dir = Path(output) if output else cfg.output
     datasets = cfg.load_datasets()
     fitc = cfg.fit
-    like = JointLikelihood(cfg.model, datasets, statistic=fitc.get("statistic", "cstat"),
+    like = JointLikelihood(cfg.model, datasets, statistic=fitc.get("statistic", "poisson"),
                            chi2_variance=fitc.get("chi2_variance", "data"))
     params = like.make_params(xnorm_free=fitc.get("xnorm_free", True))
     params = apply_parameter_settings(params, cfg.param_settings, cfg.model, cfg.path)
@@ -91,7 +91,7 @@ def fit_pipeline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=F
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ConvergenceWarning)
         result = fit_sightline(cfg.model, datasets, params=params,
-                               statistic=fitc.get("statistic", "cstat"),
+                               statistic=fitc.get("statistic", "poisson"),
                                method=fitc.get("method", "least_squares"),
                                chi2_variance=fitc.get("chi2_variance", "data"))
     for w in caught:
@@ -150,7 +150,7 @@ def fit_pipeline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=F
                                        processes=mc.get("processes")))
 
     ppc_draws = int(cfg.goodness.get("ppc_draws", 200 if result.mcmc is not None else 0))
-    if ppc_draws and result.statistic_name == "cstat":
+    if ppc_draws and result.statistic_name == "poisson":
         def do_ppc():
             result.ppc = posterior_predictive(result, n_draws=ppc_draws,
                                               seed=int(cfg.goodness.get("seed", 2)))

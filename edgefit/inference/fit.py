@@ -134,7 +134,7 @@ def _bound_flags(params, free):
     return flags
 
 
-def fit_sightline(model, datasets, *, statistic="cstat", method="least_squares",
+def fit_sightline(model, datasets, *, statistic="poisson", method="least_squares",
                   params=None, chi2_variance="data", fallback=True, xnorm_free=True,
                   goodness=True, warn=True):
     """Fit ``model`` jointly to ``datasets``.
@@ -146,7 +146,7 @@ def fit_sightline(model, datasets, *, statistic="cstat", method="least_squares",
     datasets : Dataset or sequence of Dataset
         Physical parameters are shared; each dataset gets a constant
         ``xnorm_i`` (the first fixed at 1).
-    statistic : {"cstat", "chi2"}
+    statistic : {"poisson", "chi2"}
     method : {"least_squares", "leastsq", "nelder", "lbfgsb", "powell"}
     params : lmfit.Parameters, optional
         Starting values, bounds, fixed flags and ``expr`` ties; default
@@ -185,10 +185,10 @@ def fit_sightline(model, datasets, *, statistic="cstat", method="least_squares",
     result = FitResult(likelihood=like, params=out.params, statistic=stat,
                        covariance=covar, covariance_names=var_names, flags=flags,
                        method=method, nfev=int(getattr(out, "nfev", 0) or 0))
-    if goodness and statistic == "cstat" and math.isfinite(stat):
-        from .goodness import cstat_goodness
+    if goodness and statistic == "poisson" and math.isfinite(stat):
+        from .goodness import c_statistic_goodness
 
-        result.goodness = cstat_goodness(result)
+        result.goodness = c_statistic_goodness(result)
     if flags and warn:
         warnings.warn(f"fit convergence is doubtful: {', '.join(flags)}", ConvergenceWarning,
                       stacklevel=2)

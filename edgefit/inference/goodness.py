@@ -2,7 +2,7 @@
 
 Two checks:
 
-1. :func:`cstat_goodness` -- the C statistic of the best fit against its
+1. :func:`c_statistic_goodness` -- the C statistic of the best fit against its
    expected value and variance for Poisson data drawn from the best-fit
    model (Kaastra 2017, A&A 605, A51; exact per-bin Poisson sums from
    :func:`edgefit.stats.c_statistic_expectation`).  The expectation is
@@ -31,7 +31,7 @@ from scipy import stats as sps
 from .. import stats
 from ..stats import profiled_background_level
 
-__all__ = ["cstat_goodness", "posterior_predictive"]
+__all__ = ["c_statistic_goodness", "posterior_predictive"]
 
 
 def _means(likelihood, values):
@@ -47,7 +47,7 @@ def _means(likelihood, values):
     return out
 
 
-def cstat_goodness(result):
+def c_statistic_goodness(result):
     """Goodness of fit of a C-statistic fit (see module docstring).
 
     Returns a dict: ``expected``, ``variance``, ``z``, ``p_value``,

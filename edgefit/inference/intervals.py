@@ -159,9 +159,9 @@ def _refit_from(result, params, name, method):
         if note not in result.flags:
             result.flags.append(note)
         if result.goodness is not None:
-            from .goodness import cstat_goodness
+            from .goodness import c_statistic_goodness
 
-            result.goodness = cstat_goodness(result)
+            result.goodness = c_statistic_goodness(result)
         result.intervals.clear()  # intervals stored earlier refer to the old minimum
 
 

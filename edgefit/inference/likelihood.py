@@ -38,7 +38,7 @@ __all__ = ["JointLikelihood", "ParameterVector", "BAD_RESIDUAL", "XNORM_PREFIX"]
 BAD_RESIDUAL = 1e6
 #: Prefix of the cross-normalisation constants (``xnorm_1``, ``xnorm_2``...).
 XNORM_PREFIX = "xnorm_"
-STATISTICS = ("cstat", "chi2")
+STATISTICS = ("poisson", "chi2")
 
 
 def _finite_non_negative(m):
@@ -55,15 +55,15 @@ class JointLikelihood:
     model : ModelNode
         An additive model (photons cm^-2 s^-1 per bin).
     datasets : sequence of Dataset
-    statistic : {"cstat", "chi2"}
-        ``cstat``: Poisson deviance (profiled background where present);
+    statistic : {"poisson", "chi2"}
+        ``poisson``: Poisson deviance (profiled background where present);
         ``chi2``: chi-square with ``chi2_variance`` (see
         :func:`edgefit.stats.chi_square`; background, if any, is
         subtracted after scaling and its variance added).
     chi2_variance : {"data", "model", "gehrels"}
     """
 
-    def __init__(self, model, datasets, statistic="cstat", chi2_variance="data"):
+    def __init__(self, model, datasets, statistic="poisson", chi2_variance="data"):
         from ..models.base import ADDITIVE
 
         if getattr(model, "kind", None) != ADDITIVE:
@@ -154,7 +154,7 @@ class JointLikelihood:
         return mus
 
     def _residual_one(self, ds, mu):
-        if self.statistic_name == "cstat":
+        if self.statistic_name == "poisson":
             if ds.has_background:
                 return stats.profiled_background_residuals(mu, ds.counts, ds.bkg_counts,
                                                            ds.bkg_ratio)
@@ -189,7 +189,7 @@ class JointLikelihood:
             return math.inf
         total = 0.0
         for ds, mu in zip(self.datasets, mus):
-            if self.statistic_name == "cstat" and not ds.has_background:
+            if self.statistic_name == "poisson" and not ds.has_background:
                 total += stats.c_statistic(mu, ds.counts)  # = sum of squared residuals
             else:
                 total += float(np.sum(self._residual_one(ds, mu) ** 2))

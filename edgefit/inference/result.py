@@ -167,7 +167,7 @@ class FitResult:
         lines.append(f"model: {self.model.structure()}")
         for i, ds in enumerate(self.datasets):
             lines.append(f"data {i + 1}: {ds!r}")
-        stat = "C (Poisson deviance)" if self.statistic_name == "cstat" else "chi-square"
+        stat = "C (Poisson deviance)" if self.statistic_name == "poisson" else "chi-square"
         lines.append(f"statistic {stat} = {self.statistic:.3f} for {self.n_bins} bins, "
                      f"{self.n_free} free parameters, dof = {self.dof}")
         if self.goodness:
