@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["SOURCE", "TRUTH", "INSTRUMENT", "EXPOSURE_S", "SEED", "build_model",
-           "write_sightline", "truth_comparison", "run_demo"]
+           "instrument_responses", "simulate_observation", "write_sightline", "truth_comparison", "run_demo"]
 
 #: Name of the invented source (always shown with "simulated").
 SOURCE = "SIM-J1746 (simulated)"
@@ -173,6 +173,36 @@ def _area(area_19):
     return lambda e: area_19 * (1.0 + 0.3 * (np.asarray(e) - 1.9))
 
 
+def instrument_responses():
+    """The invented instrument's four responses (in memory), in the order
+    of :data:`INSTRUMENT`: :func:`edgefit.data.gaussian_response` with the
+    FWHM constant in wavelength and channels in wavelength order."""
+    from astropy import units as u
+
+    from .data import gaussian_response
+
+    energy = np.linspace(*ENERGY_KEV[:2], ENERGY_KEV[2] + 1)
+    out = []
+    for _tag, _label, fwhm, area, dlam in INSTRUMENT:
+        n_ch = int(round((CHANNELS_ANGSTROM[1] - CHANNELS_ANGSTROM[0]) / dlam))
+        channels = np.linspace(*CHANNELS_ANGSTROM, n_ch + 1) * u.AA
+        out.append(gaussian_response(energy, channels, fwhm, _area(area),
+                                     wavelength_order=True, meta={"simulated": True}))
+    return out
+
+
+def simulate_observation(model, response, rng, tag, values=None):
+    """One Poisson realisation of the simulated sightline through
+    ``response`` (with its background), as a Spectrum."""
+    from .data import simulate_spectrum
+
+    flux = model.evaluate(response.grid, TRUTH if values is None else values)
+    return simulate_spectrum(flux, response, EXPOSURE_S, rng,
+                             background_rate=np.full(response.n_channels, BACKGROUND_RATE),
+                             backscal=1.0, background_backscal=BACKSCAL_BKG,
+                             meta={"order": -1 if tag.endswith("m1") else 1, "object": SOURCE})
+
+
 def write_sightline(folder, *, stem="sim_j1746", seed=SEED, walkers=32, steps=1200,
                     ppc_draws=200, levels=(0.6827, 0.90), output="results"):
     """Simulate the sightline and write it into ``folder``.
@@ -188,29 +218,17 @@ def write_sightline(folder, *, stem="sim_j1746", seed=SEED, walkers=32, steps=12
 
     Returns the path of the configuration file.
     """
-    from astropy import units as u
-
-    from .data import gaussian_response, simulate_spectrum, write_pha, write_response
+    from .data import write_pha, write_response
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     model = build_model()
     rng = np.random.default_rng(seed)
-    energy = np.linspace(*ENERGY_KEV[:2], ENERGY_KEV[2] + 1)
     spectra = []
-    for tag, label, fwhm, area, dlam in INSTRUMENT:
-        n_ch = int(round((CHANNELS_ANGSTROM[1] - CHANNELS_ANGSTROM[0]) / dlam))
-        channels = np.linspace(*CHANNELS_ANGSTROM, n_ch + 1) * u.AA
-        resp = gaussian_response(energy, channels, fwhm, _area(area), wavelength_order=True,
-                                 meta={"simulated": True})
+    for (tag, label, *_), resp in zip(INSTRUMENT, instrument_responses()):
         rmf, arf = folder / f"{stem}_{tag}.rmf", folder / f"{stem}_{tag}.arf"
         write_response(resp, rmf, arf, overwrite=True, simulated=True)
-        flux = model.evaluate(resp.grid, TRUTH)
-        spec = simulate_spectrum(flux, resp, EXPOSURE_S, rng,
-                                 background_rate=np.full(resp.n_channels, BACKGROUND_RATE),
-                                 backscal=1.0, background_backscal=BACKSCAL_BKG,
-                                 meta={"order": -1 if tag.endswith("m1") else 1,
-                                       "object": SOURCE})
+        spec = simulate_observation(model, resp, rng, tag)
         bkg = folder / f"{stem}_{tag}_bkg.pha"
         write_pha(bkg, spec.background, overwrite=True, background=True, object_name=SOURCE)
         write_pha(folder / f"{stem}_{tag}.pha", spec, overwrite=True, respfile=rmf.name,
