@@ -32,6 +32,7 @@ __all__ = [
     "ConvergenceWarning",
     "ShortChainWarning",
     "PhysicsWarning",
+    "InputWarning",
 ]
 
 
@@ -142,3 +143,8 @@ class ShortChainWarning(EdgefitWarning):
 
 class PhysicsWarning(EdgefitWarning):
     """A physically suspect input (e.g. a grain size outside the tables)."""
+
+
+class InputWarning(EdgefitWarning):
+    """An input file is usable but probably not what was meant (e.g. an ARF
+    given with a response matrix that already includes the area)."""

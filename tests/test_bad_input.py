@@ -206,3 +206,26 @@ def test_installed_console_script_reports_bad_file(tmp_path):
     assert proc.stderr.strip().count("\n") == 0
     assert "plain.txt" in proc.stderr and "not a FITS file" in proc.stderr
     assert "Traceback" not in proc.stderr
+
+
+def test_first_channel_mismatch_is_refused(tmp_path, small_response):
+    # OGIP/92-007: CHANNEL numbering starts at TLMIN of the spectrum's CHANNEL
+    # column; CAL/GEN/92-002: at TLMIN of F_CHAN in the RMF.  The same number
+    # of channels starting one apart would shift every channel by one.
+    write_rmf(tmp_path / "s.rmf", small_response)
+    p = _pha(tmp_path, small_response, respfile="s.rmf")
+    _edit(p, lambda h: h["SPECTRUM"].data.__setitem__(
+        "CHANNEL", h["SPECTRUM"].data["CHANNEL"] - 1))
+    _edit(p, lambda h: h["SPECTRUM"].header.__setitem__("TLMIN1", 0))
+    with pytest.raises(errors.ChannelMismatchError, match=r"s\.pha.*start at 0.*start at 1"):
+        read_pha(p)
+
+
+def test_arf_with_full_matrix_warns(tmp_path, small_response):
+    # CAL/GEN/92-002a: HDUCLAS3 = 'FULL' marks a matrix that includes the
+    # effective area; multiplying in an ARF as well counts the area twice.
+    write_rmf(tmp_path / "full.rsp", small_response, include_area=True)
+    write_arf(tmp_path / "a.arf", small_response.energy_lo, small_response.energy_hi,
+              small_response.specresp)
+    with pytest.warns(errors.InputWarning, match="full.rsp.*FULL"):
+        read_response(tmp_path / "full.rsp", tmp_path / "a.arf")

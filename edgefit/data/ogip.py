@@ -26,13 +26,14 @@ from __future__ import annotations
 
 import os
 import re
+import warnings
 
 import numpy as np
 import scipy.sparse as sp
 from astropy.io import fits
 
 from ..errors import (BadCountsError, BadExposureError, BadGridError, ChannelMismatchError,
-                      GridMismatchError, InputFileError, MissingColumnError,
+                      GridMismatchError, InputFileError, InputWarning, MissingColumnError,
                       MissingExtensionError, MissingRowError)
 from .._units import HC_KEV_ANGSTROM
 from ._fitsio import (Table, as_str, energy_scale, find_hdu, find_hdu_or_none, open_fits,
@@ -286,6 +287,11 @@ def read_rmf(path, arf=None) -> Response:
                 f"{arfd.energy_hi[-1]:.6g} keV) differs from the RMF's ({lo.size} bins, "
                 f"{lo[0]:.6g}-{hi[-1]:.6g} keV in {os.fspath(path)})")
         specresp = arfd.specresp
+        if str(meta.get("hduclas3", "")).strip().upper() == "FULL":
+            warnings.warn(InputWarning(
+                f"{os.fspath(path)}: the matrix already includes the effective area "
+                f"(HDUCLAS3 = 'FULL'); multiplying in the ARF {arf_path} counts the area "
+                "twice -- give the ARF only with a redistribution-only RMF"), stacklevel=2)
     return Response(lo, hi, mat, eb.e_min, eb.e_max, channels=eb.channels,
                     specresp=specresp, rmf_path=os.fspath(path), arf_path=arf_path, meta=meta)
 
@@ -544,6 +550,11 @@ def _check_channels(spec, resp, path):
         raise ChannelMismatchError(
             path, f"spectrum has {spec.n_channels} channels but its response "
                   f"({resp.rmf_path or 'in memory'}) has {resp.n_channels}")
+    if spec.n_channels and int(spec.channels[0]) != int(resp.channels[0]):
+        raise ChannelMismatchError(
+            path, f"spectrum channels start at {int(spec.channels[0])} but its response's "
+                  f"({resp.rmf_path or 'in memory'}) start at {int(resp.channels[0])} "
+                  "(check TLMIN of CHANNEL / F_CHAN)")
 
 
 def _open_pha(path):
