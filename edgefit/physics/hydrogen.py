@@ -16,7 +16,9 @@
   cross section per molecule is about 2.85 times the atomic one (Wilms,
   Allen & McCray 2000, ApJ 542, 914, after the calculation of Yan,
   Sadeghpour & Dalgarno 1998, ApJ 496, 1044).  **The factor 2.85 is from
-  memory, not confirmed against the paper.**
+  memory, not confirmed against the paper** (a search on 2026-12-01 reached
+  only the opening of a stored copy of Wilms et al. 2000 and found no library
+  or page quoting the factor with its source).
 
 Units: energy keV (or spectral Quantity), cross sections cm^2 per atom
 (per molecule for H2).
