@@ -7,24 +7,48 @@ factors (:func:`edgefit.dust.optical.delta_beta`), so built-in materials
 have smooth edges (isolated-atom f2, no fine structure); no measured
 near-edge data are bundled.
 
-Built-in materials (densities in g cm^-3 and where they come from):
+Built-in materials (densities in g cm^-3 and where they come from; checked
+2026-12-01, "via" names the public copy the value was read from):
 
 =============  ==================  =======  ===========================================
 name           formula             density  density source
 =============  ==================  =======  ===========================================
 olivine        MgFeSiO4            3.8      value used in dust models (from memory);
-                                            a linear mix of forsterite 3.27 and
-                                            fayalite 4.39 gives 3.83
-forsterite     Mg2SiO4             3.27     from memory (mineral handbooks)
-pyroxene       MgSiO3              3.20     enstatite, from memory
-pyroxene_mgfe  Mg0.6Fe0.4SiO3      3.52     linear mix of enstatite 3.2 and ferrosilite
-                                            ≈ 4.0 (from memory)
-silica         SiO2                2.20     amorphous (fused) silica, from memory;
-                                            quartz is 2.65 (``silica_quartz``)
-silica_quartz  SiO2                2.65     quartz, from memory
-iron           Fe                  7.87     metallic iron, from memory
+                                            ideal mixing of the end-member molar
+                                            volumes (forsterite 3.227, fayalite
+                                            4.392) gives 3.83
+forsterite     Mg2SiO4             3.22     X-ray density of synthetic Mg2SiO4 at
+                                            room temperature: 3.227 (Fujino et al.
+                                            1981, Acta Cryst. B37, 513) and 3.219
+                                            (Smyth & Hazen 1973, Am. Mineral. 58,
+                                            588), via AMCSD records 0019694 and
+                                            0000328 (rruff.geo.arizona.edu); was
+                                            3.27 from memory
+pyroxene       MgSiO3              3.21     synthetic orthoenstatite, D = 3.208
+                                            (Stephenson, Sclar & Smith 1966,
+                                            Mineral. Mag. 35, 838, via the
+                                            Mineralogical Society archive
+                                            abstract); was 3.20 from memory
+pyroxene_mgfe  Mg0.6Fe0.4SiO3      3.52     linear mix of enstatite 3.21 and
+                                            ferrosilite ≈ 4.0 (ferrosilite from
+                                            memory, unconfirmed)
+silica         SiO2                2.196    amorphous (fused) silica, CRC Handbook
+                                            of Chemistry and Physics via the
+                                            Wikipedia "Silicon dioxide" infobox;
+                                            was 2.20 from memory
+silica_quartz  SiO2                2.648    alpha-quartz (Lager, Jorgensen &
+                                            Rotella 1982, J. Appl. Phys. 53, 6751,
+                                            via the Wikipedia "Silicon dioxide"
+                                            polymorph table); was 2.65 from memory
+iron           Fe                  7.874    metallic iron at 20 C, CRC Handbook of
+                                            Chemistry and Physics 80th ed. (1999),
+                                            via periodictable (density.py); was
+                                            7.87 from memory
 graphite       C                   2.24     Draine 2003 / REFERENCE-VALUES [P]
 =============  ==================  =======  ===========================================
+
+Fayalite (Fe2SiO4, not built in) has specific gravity 4.392 (via the
+Wikipedia "Fayalite" infobox, which cites the Handbook of Mineralogy).
 
 Any other material: ``Material("name", "Mg1.6Fe0.4SiO4", 3.6)`` or
 :func:`get_material` with a formula and density.
@@ -182,14 +206,19 @@ def atoms_per_grain(material: Material, element, a_um):
 #: Built-in materials by name; see the module docstring for densities' sources.
 MATERIALS: dict[str, Material] = {m.name: m for m in (
     Material("olivine", "MgFeSiO4", 3.8,
-             "dust-model value (from memory); forsterite/fayalite mix gives 3.83"),
-    Material("forsterite", "Mg2SiO4", 3.27, "from memory"),
-    Material("pyroxene", "MgSiO3", 3.20, "enstatite, from memory"),
+             "dust-model value (from memory); ideal forsterite/fayalite mix gives 3.83"),
+    Material("forsterite", "Mg2SiO4", 3.22,
+             "X-ray density of synthetic Mg2SiO4 (Fujino et al. 1981: 3.227; "
+             "Smyth & Hazen 1973: 3.219)"),
+    Material("pyroxene", "MgSiO3", 3.21,
+             "synthetic orthoenstatite 3.208 (Stephenson, Sclar & Smith 1966)"),
     Material("pyroxene_mgfe", "Mg0.6Fe0.4SiO3", 3.52,
-             "linear mix of enstatite 3.2 and ferrosilite ~4.0 g/cm3 (from memory)"),
-    Material("silica", "SiO2", 2.20, "amorphous silica, from memory"),
-    Material("silica_quartz", "SiO2", 2.65, "quartz, from memory"),
-    Material("iron", "Fe", 7.87, "metallic iron, from memory"),
+             "linear mix of enstatite 3.21 and ferrosilite ~4.0 g/cm3 "
+             "(ferrosilite from memory)"),
+    Material("silica", "SiO2", 2.196, "amorphous silica (CRC Handbook)"),
+    Material("silica_quartz", "SiO2", 2.648,
+             "alpha-quartz (Lager, Jorgensen & Rotella 1982)"),
+    Material("iron", "Fe", 7.874, "metallic iron (CRC Handbook, 80th ed.)"),
     Material("graphite", "C", 2.24, "Draine 2003 (REFERENCE-VALUES.md)"),
 )}
 
