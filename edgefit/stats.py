@@ -42,33 +42,27 @@ def cash(model, counts):
     return float(2.0 * np.sum(m - xlogy(counts, m)))
 
 
-#: Below this |n - m| / m the per-bin deviance is summed as a series.
-_SERIES_SWITCH = 1e-2
-#: Coefficients (-1)^k / (k (k - 1)) of h(x) = (1 + x) ln(1 + x) - x,
-#: k = 2..11 (truncation error below |x|^12 / 132 < 1e-24 x^2 there).
-_H_COEFFS = np.array([(-1.0) ** k / (k * (k - 1)) for k in range(11, 1, -1)] + [0.0, 0.0])
-
-
 def _deviance_terms(model, counts):
     """Per-bin deviance 2 [m - n + n ln(n/m)] (n ln n = 0 at n = 0).
 
-    Written as 2 m h(x) with x = (n - m)/m and h(x) = (1 + x) ln(1 + x) - x,
-    h summed as its Taylor series where |x| < 1e-2: the direct formula
-    subtracts numbers of size n to leave one of size (n - m)^2 / m and so
-    loses all its digits as n -> m, which makes the square-root residuals
-    (and any finite-difference Jacobian of them) noisy near a good fit.
+    Written as 2 m [(1 + x) log1p(x) - x] with x = (n - m)/m.  The direct
+    formula subtracts numbers of size n to leave one of size (n - m)^2/m,
+    so its absolute error (~1e-16 n) swamps the deviance as n -> m and
+    makes the square-root residuals (and any finite-difference Jacobian of
+    them) noisy near a good fit; the log1p form keeps the error relative
+    to (n - m).  Bins where it is not finite (n = 0, or m at the floor)
+    take the direct formula, which has no cancellation there.
     """
     m = _floor(model)
     n = np.asarray(counts, dtype=float)
-    direct = 2.0 * (m - n + xlogy(n, n) - xlogy(n, m))
-    with np.errstate(over="ignore", invalid="ignore"):
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         x = (n - m) / m
-    near = np.abs(x) < _SERIES_SWITCH
-    if np.any(near):
-        xs = np.where(near, x, 0.0)
-        series = 2.0 * m * np.polyval(_H_COEFFS, xs)
-        direct = np.where(near, series, direct)
-    return direct
+        d = np.asarray(2.0 * m * ((1.0 + x) * np.log1p(x) - x))
+    bad = ~np.isfinite(d)
+    if np.any(bad):
+        mb, nb = np.broadcast_to(m, d.shape)[bad], np.broadcast_to(n, d.shape)[bad]
+        d[bad] = 2.0 * (mb - nb + xlogy(nb, nb) - xlogy(nb, mb))
+    return d
 
 
 def c_statistic(model, counts):
