@@ -138,7 +138,9 @@ def test_gas_edge_column_shift_and_derived():
     assert np.all(np.isfinite(ts)) and not np.allclose(ts, t)
     d = gas.derived()
     assert d["col_cm2"][0] == 3e17
-    assert d["edge_energy"][0] == pytest.approx(1.839)
+    # the edge as placed by the Chantler f2 the cross section comes from:
+    # within 2 eV of the Elam et al. (2002) Si K energy 1839.0 eV (xraydb)
+    assert d["edge_energy"][0] == pytest.approx(1.839, abs=2e-3)
     # Si K jump ratio (xraydb/Elam jump_ratio 10.37 for Si K): 8-12 across +-1 %
     assert 8 < d["tau_above"][0] / d["tau_below"][0] < 12
     with pytest.raises(ModelError):
@@ -211,3 +213,22 @@ def test_ion_lines_backends_and_direct_reference():
     # b <= 0 from an unbounded caller is refused by the checked path
     with pytest.raises(PhysicsDataError):
         comp.evaluate(grid, {"ions_b": -5.0})
+
+
+@pytest.mark.parametrize("element, edge", [("O", "K"), ("Ne", "K"), ("Mg", "K"), ("Si", "K"),
+                                           ("Fe", "L3"), ("Fe", "L2")])
+def test_edge_position_sits_on_the_tabulated_jump(element, edge):
+    # Outside reference: xraydb's Chantler f2 (the source of our tables) must
+    # jump across edge_position (sigma proportional to f2/E: compare f2 at
+    # +-3 eV, ratio > 1.15 even for the small L2 jump on top of L3), and the
+    # position lies within 15 eV of the Elam et al. (2002) edge energy
+    # (O K: Chantler 532 eV against Elam 543.1 eV).
+    xraydb = pytest.importorskip("xraydb")
+    pos = atomic.edge_position(element, edge)
+    assert abs(pos - atomic.edge_energy(element, edge)) < 0.015
+    f2_lo = xraydb.f2_chantler(element, (pos - 0.003) * 1e3)
+    f2_hi = xraydb.f2_chantler(element, (pos + 0.003) * 1e3)
+    assert f2_hi / f2_lo > 1.15
+    # and the gas edge's derived jump across it is positive
+    gas = GasEdge(element=element, edge=edge, col=100.0)
+    assert gas.derived()["tau_jump"][0] > 0

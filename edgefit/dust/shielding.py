@@ -47,7 +47,8 @@ def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
         Radii in µm (default 60 radii from 0.001 to 5 µm).
     edge : str
         Edge name (``"K"``, ``"L3"``...), energy from
-        :func:`edgefit.physics.atomic.edge_energy`.
+        :func:`edgefit.physics.atomic.edge_position` (the edge as placed by the
+        atomic tables the optical constants come from).
     offset_kev : float
         ΔE: the ratios compare E_edge ± ΔE (keV).
     method, rtol :
@@ -68,7 +69,7 @@ def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
         a = np.geomspace(0.001, 5.0, 60)
     else:
         a = sizes.a if isinstance(sizes, SizeGrid) else np.atleast_1d(np.asarray(sizes, float))
-    e0 = atomic.edge_energy(element, edge)
+    e0 = atomic.edge_position(element, edge)  # where the tabulated f2 jumps
     energies = np.array([e0 - offset_kev, e0 + offset_kev])
     mm1 = material.m_minus_1(energies)
     area = np.pi * (a * 1e-4) ** 2

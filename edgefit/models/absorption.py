@@ -201,7 +201,9 @@ class GasEdge(Component):
     def __init__(self, name=None, *, element="Si", edge="K", lines=(), fixed=(), **values):
         self.element = atomic.element_symbol(element)
         self.edge = str(edge).upper()
-        self.edge_kev = atomic.edge_energy(self.element, self.edge)
+        # the edge where edgefit's own cross section jumps (the Chantler
+        # tables put some edges several eV from the Elam table energies)
+        self.edge_kev = atomic.edge_position(self.element, self.edge)
         lines = tuple(dict(ln) for ln in lines)
         self.n_lines = len(lines)
         self.params = type(self).params + _line_params(self.n_lines)

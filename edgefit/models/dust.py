@@ -296,10 +296,12 @@ class DustEdge(Component):
         return float(out) if out.ndim == 0 else out
 
     def edge_energy(self) -> float:
-        """Tabulated edge energy (keV) of the edge element (K, or L3 for
-        Fe-group L edges per the default regions)."""
+        """Edge energy (keV) of the edge element (K, or L3 for Fe-group L
+        edges per the default regions) as placed by the atomic tables that
+        the optical constants come from
+        (:func:`edgefit.physics.atomic.edge_position`)."""
         edge = _tables().region_for(self.element)[0]
-        return atomic.edge_energy(self.element, edge)
+        return atomic.edge_position(self.element, edge)
 
     def derived(self, **values):
         """N_Z in dust (cm^-2), grain column (cm^-2), dust mass column
