@@ -310,7 +310,7 @@ class DustEdge(Component):
         distribution: the jump of ⟨σ_abs⟩ per Z atom over the unshielded
         jump of the same atoms, σ_Z(E+) − σ_Z(E−) plus the other atoms'
         (small) change, as in :mod:`edgefit.dust.shielding`.  For Fe the
-        edge is L3 (0.707 keV) and E± = 0.687 / 0.727 keV straddle both L3
+        edge is L3 (0.708 keV in the tables) and E± = 0.688 / 0.728 keV straddle both L3
         and L2, so the jump is that of the whole L2,3 pair."""
         vals = self._merged(values)
         e0 = self.edge_energy() + vals["shift"] * 1e-3
