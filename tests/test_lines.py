@@ -28,6 +28,8 @@
 """
 import numpy as np
 import pytest
+from astropy import constants as const
+from astropy import units as u
 from scipy.integrate import quad
 from scipy.special import voigt_profile
 
@@ -56,7 +58,9 @@ def test_thin_equivalent_width(b, nbins):
     n = 1e12  # tau0 ~ 1e-4 .. 1e-3: linear regime
     w = _ew_angstrom(n, b, lo_e=1.9, hi_e=2.1, nbins=nbins)
     ref = np.pi * RE * n * SI14.f * (SI14.wavelength * 1e-8) ** 2 / 1e-8
-    assert L.thin_equivalent_width(n, SI14.f, SI14.wavelength) == pytest.approx(ref, rel=1e-12)
+    # abs=0: pytest.approx's default absolute tolerance (1e-12) exceeds W ~ 1e-7 A x 1e-12
+    assert L.thin_equivalent_width(n, SI14.f, SI14.wavelength) == pytest.approx(ref, rel=1e-12,
+                                                                               abs=0)
     assert w == pytest.approx(ref, rel=0.005)
 
 
@@ -170,11 +174,19 @@ def test_h_like_lyman_alpha_against_verner_1996(ion, lam1, lam2):
 
 
 def test_voigt_cross_section_integrates_to_pi_re_hc_f():
-    # int sigma dE = pi r_e h c f (Draine 2011 eq. 9.8 in energy units); 1e-4
+    # int sigma dE = pi r_e h c f (Draine 2011 eq. 9.8 in energy units), less
+    # the Lorentzian wings beyond +-0.5 keV, 1 - (2/pi) arctan(0.5 keV / gamma)
+    # (closed form; the Gaussian core is 2000 sigma inside the limits).
+    # scipy.integrate.quad with epsabs=0: its default absolute tolerance
+    # (1.5e-8) dwarfs an integrand of ~1e-17 cm^2 and stops it early.
+    # Tolerance 1e-7 relative (quad's relative error is ~1e-11 here).
     e0 = SI14.energy
     val, _ = quad(lambda e: L.voigt_cross_section(e, e0, SI14.f, 50.0, SI14.gamma),
-                  e0 - 0.5, e0 + 0.5, points=[e0], limit=400)
-    assert val == pytest.approx(np.pi * RE * HC * 1e-8 * SI14.f, rel=1e-3)
+                  e0 - 0.5, e0 + 0.5, points=[e0], limit=400, epsabs=0, epsrel=1e-10)
+    hwhm = const.hbar.to_value(u.keV * u.s) * SI14.gamma / 2   # Lorentzian HWHM, keV (astropy)
+    wings = 1 - 2 / np.pi * np.arctan(0.5 / hwhm)
+    assert wings > 1e-6   # the wing term is resolved by the tolerance below
+    assert val == pytest.approx(np.pi * RE * HC * 1e-8 * SI14.f * (1 - wings), rel=1e-7, abs=0)
 
 
 def test_huge_optical_depth_is_zero_not_nan():
