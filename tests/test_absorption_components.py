@@ -15,6 +15,7 @@ import pickle
 
 import numpy as np
 import pytest
+import xraydb
 
 from edgefit.errors import ModelError, PhysicsDataError
 from edgefit.models.absorption import GasEdge, IonLines, SmoothISM
@@ -83,12 +84,14 @@ def test_tau_1e3_gives_zero_not_nan():
 
 
 def test_morrison_mccammon_1kev():
+    # abs=0 in this file: pytest.approx's default absolute tolerance (1e-12)
+    # would accept any cross section of order 1e-22 cm^2.
     ism = SmoothISM(abundances="angr89", mol_frac=0.0)
-    assert ism.sigma_per_h(1.0) == pytest.approx(2.42e-22, rel=0.10)
+    assert ism.sigma_per_h(1.0) == pytest.approx(2.42e-22, rel=0.10, abs=0)
     # and with the MM83 Table 2 polynomial at 0.9 and 1.2 keV (same interval)
     for e in (0.9, 1.2):
         mm = (120.6 + 169.3 * e - 47.7 * e ** 2) / e ** 3 * 1e-24
-        assert ism.sigma_per_h(e) == pytest.approx(mm, rel=0.10)
+        assert ism.sigma_per_h(e) == pytest.approx(mm, rel=0.10, abs=0)
 
 
 def test_smooth_ism_beer_lambert_and_options():
@@ -103,13 +106,19 @@ def test_smooth_ism_beer_lambert_and_options():
     from edgefit.physics.abundances import abundance
     diff = ism.sigma_per_h(1.9) - ex.sigma_per_h(1.9)
     assert diff == pytest.approx(abundance("Si", "wilms00") * atomic.photoabsorption("Si", 1.9),
-                                 rel=1e-10)
-    # depletion keeps only the gas fraction (Wilms Table 2: Si 0.1)
+                                 rel=1e-10, abs=0)
+    # depletion keeps only the gas fraction: Si's share of what depletion
+    # removes is (1 - beta_Si) A_Si sigma_Si with beta_Si = 0.1 (Wilms, Allen &
+    # McCray 2000, Table 2), isolated by repeating the difference without Si
     dep = SmoothISM(abundances="wilms00", mol_frac=0.0, depletion="wilms00_gas")
-    assert ism.sigma_per_h(1.9) - dep.sigma_per_h(1.9) > 0.8 * diff
+    dep_ex = SmoothISM(abundances="wilms00", mol_frac=0.0, depletion="wilms00_gas",
+                       exclude=("Si",))
+    removed = ism.sigma_per_h(1.9) - dep.sigma_per_h(1.9)
+    removed_without_si = ex.sigma_per_h(1.9) - dep_ex.sigma_per_h(1.9)
+    assert removed - removed_without_si == pytest.approx((1 - 0.1) * diff, rel=1e-9, abs=0)
     # molecular hydrogen: per H nucleus sigma(H2)/2 = 1.425 sigma(HI) (Wilms 2000, from memory)
     d_mol = ism.sigma_per_h(1.0, mol_frac=1.0) - ism.sigma_per_h(1.0, mol_frac=0.0)
-    assert d_mol == pytest.approx(0.425 * hydrogen.sigma_hi(1.0), rel=1e-10)
+    assert d_mol == pytest.approx(0.425 * hydrogen.sigma_hi(1.0), rel=1e-10, abs=0)
     d = ism.derived(nh=2.0, mol_frac=0.4)
     assert d["nh_cm2"][0] == 2e22 and d["n_h2_cm2"][0] == pytest.approx(4e21)
     with pytest.raises(PhysicsDataError):
@@ -141,14 +150,21 @@ def test_gas_edge_column_shift_and_derived():
     # the edge as placed by the Chantler f2 the cross section comes from:
     # within 2 eV of the Elam et al. (2002) Si K energy 1839.0 eV (xraydb)
     assert d["edge_energy"][0] == pytest.approx(1.839, abs=2e-3)
-    # Si K jump ratio (xraydb/Elam jump_ratio 10.37 for Si K): 8-12 across +-1 %
-    assert 8 < d["tau_above"][0] / d["tau_below"][0] < 12
+    # jump across +-1 % of the edge against the same ratio of xraydb's
+    # mu_chantler(photo=True) (same Chantler nodes; observed 1e-5): 1e-3
+    e_edge = d["edge_energy"][0] * 1e3
+    chantler = (xraydb.mu_chantler("Si", 1.01 * e_edge, photo=True)
+                / xraydb.mu_chantler("Si", 0.99 * e_edge, photo=True))
+    assert d["tau_above"][0] / d["tau_below"][0] == pytest.approx(chantler, rel=1e-3)
     with pytest.raises(ModelError):
         GasEdge(element="Si", lines=[dict(centre=1.8)])
-    # other edges named in the brief exist
+    # other edges named in the brief exist, placed where the tabulated jump is
+    # (edge_position, tested below) and within 15 eV of the Elam et al. (2002)
+    # energies of xraydb.xray_edge (O K: Chantler 532 eV against 543.1 eV)
     for el, edge in [("Mg", "K"), ("Fe", "L3"), ("Fe", "L2"), ("O", "K"), ("Ne", "K")]:
         g = GasEdge(element=el, edge=edge)
-        assert 0.5 < g.edge_kev < 1.4
+        assert g.edge_kev == atomic.edge_position(el, edge)
+        assert abs(g.edge_kev - xraydb.xray_edge(el, edge).energy * 1e-3) < 0.015, (el, edge)
 
 
 def test_gas_edge_resonance_line_equivalent_width():
