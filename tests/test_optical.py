@@ -21,8 +21,8 @@ def test_reference_olivine_at_1p85_kev():
     # delta = 2.125e-4, beta = 3.588e-5; tolerance 0.1 % (xraydb uses its own
     # interpolation of the same Chantler tables and slightly different constants).
     d, b = delta_beta("MgFeSiO4", 3.8, 1.85)
-    assert d == pytest.approx(2.125e-4, rel=1e-3)
-    assert b == pytest.approx(3.588e-5, rel=1e-3)
+    assert d == pytest.approx(2.125e-4, rel=1e-3, abs=0)
+    assert b == pytest.approx(3.588e-5, rel=1e-3, abs=0)
 
 
 @pytest.mark.parametrize("formula,density", [
@@ -37,8 +37,8 @@ def test_delta_beta_against_xraydb(formula, density):
     d, b = delta_beta(formula, density, energies)
     for e, di, bi in zip(energies, d, b):
         rd, rb, _ = xraydb.xray_delta_beta(formula, density, e * 1e3)
-        assert di == pytest.approx(rd, rel=5e-3), (formula, e)
-        assert bi == pytest.approx(rb, rel=5e-3), (formula, e)
+        assert di == pytest.approx(rd, rel=5e-3, abs=0), (formula, e)
+        assert bi == pytest.approx(rb, rel=5e-3, abs=0), (formula, e)
 
 
 def test_refractive_index_sign_and_quantities():
@@ -46,8 +46,10 @@ def test_refractive_index_sign_and_quantities():
     # edgefit.dust.mie); density and energy as Quantities give the same numbers.
     m = refractive_index("MgFeSiO4", 3.8 * u.g / u.cm ** 3, 1850 * u.eV)
     d, b = delta_beta("MgFeSiO4", 3.8, 1.85)
-    assert m.imag == pytest.approx(b, rel=1e-12) and m.imag > 0
-    assert 1 - m.real == pytest.approx(d, rel=1e-9)
+    # abs=0: beta ~ 4e-5 and delta ~ 2e-4 are small enough that pytest.approx's
+    # default absolute tolerance (1e-12) would loosen the stated relative bars
+    assert m.imag == pytest.approx(b, rel=1e-12, abs=0) and m.imag > 0
+    assert 1 - m.real == pytest.approx(d, rel=1e-9, abs=0)
     m2 = refractive_index("MgFeSiO4", 3800 * u.kg / u.m ** 3, 6.7018 * u.AA)
     assert m2 == pytest.approx(m, rel=1e-4)
 

@@ -32,10 +32,12 @@ def test_mrn_moments_closed_form():
     # <a^3> = ∫ a^-3.5 a^3 da / ∫ a^-3.5 da = [2 a^0.5] / [-(2/5) a^-2.5]; 1e-9
     for k in (0, 1, 2, 3):
         ref = _powerlaw_integral(k, 3.5, 0.005, 0.25) / _powerlaw_integral(0, 3.5, 0.005, 0.25)
-        assert MRN.moment(k) == pytest.approx(ref, rel=1e-9)
+        # abs=0 throughout: moments in um^k reach ~1e-5, where pytest.approx's
+        # default absolute tolerance (1e-12) would loosen the stated bars
+        assert MRN.moment(k) == pytest.approx(ref, rel=1e-9, abs=0)
     assert MRN.mean_volume() == pytest.approx(
         4 * np.pi / 3 * 2 * (0.25 ** 0.5 - 0.005 ** 0.5) /
-        (0.4 * (0.005 ** -2.5 - 0.25 ** -2.5)), rel=1e-9)
+        (0.4 * (0.005 ** -2.5 - 0.25 ** -2.5)), rel=1e-9, abs=0)
 
 
 def test_grain_column_and_mass_column_by_hand():
@@ -63,7 +65,8 @@ def test_lognormal_moments():
     # tails (>= 7 w) so truncation is < 1e-9; tolerance 1e-7.
     d = LogNormal(center=0.05, width=0.3, amin=0.005, amax=2.0)
     for k in (1, 2, 3):
-        assert d.moment(k) == pytest.approx(0.05 ** k * math.exp(k * k * 0.09 / 2), rel=1e-7)
+        assert d.moment(k) == pytest.approx(0.05 ** k * math.exp(k * k * 0.09 / 2), rel=1e-7,
+                                            abs=0)
 
 
 def test_cutoff_powerlaw_against_quad():
@@ -76,7 +79,7 @@ def test_cutoff_powerlaw_against_quad():
 
     norm = quad(n, 0.005, 3.0, points=[0.2], limit=200, epsrel=1e-12)[0]
     a3 = quad(lambda a: a ** 3 * n(a), 0.005, 3.0, points=[0.2], limit=200, epsrel=1e-12)[0]
-    assert d.moment(3) == pytest.approx(a3 / norm, rel=1e-7)
+    assert d.moment(3) == pytest.approx(a3 / norm, rel=1e-7, abs=0)
 
 
 def test_size_grid_weights_reproduce_moments():
@@ -86,10 +89,10 @@ def test_size_grid_weights_reproduce_moments():
     w = grid.weights(MRN)
     for k in (2, 3):
         ref = _powerlaw_integral(k, 3.5, 0.005, 0.25) / _powerlaw_integral(0, 3.5, 0.005, 0.25)
-        assert w @ grid.a ** k == pytest.approx(ref, rel=1e-5)
+        assert w @ grid.a ** k == pytest.approx(ref, rel=1e-5, abs=0)
     ws = grid.weights(SingleSize(123 * u.nm))
-    assert ws @ grid.a ** 3 == pytest.approx(0.123 ** 3, rel=1e-10)
-    assert ws @ grid.a ** 2 == pytest.approx(0.123 ** 2, rel=1e-5)
+    assert ws @ grid.a ** 3 == pytest.approx(0.123 ** 3, rel=1e-10, abs=0)
+    assert ws @ grid.a ** 2 == pytest.approx(0.123 ** 2, rel=1e-5, abs=0)
     with pytest.raises(PhysicsDataError, match="table covers"):
         grid.weights(PowerLaw(3.5, 0.0005, 0.25))
 
@@ -116,10 +119,10 @@ def test_tabulated_sizes_and_reader(tmp_path):
     a = np.geomspace(0.005, 0.25, 30)
     tab = TabulatedSizes(a, 7.0 * a ** -3.5)
     ref = _powerlaw_integral(3, 3.5, 0.005, 0.25) / _powerlaw_integral(0, 3.5, 0.005, 0.25)
-    assert tab.moment(3) == pytest.approx(ref, rel=1e-7)
+    assert tab.moment(3) == pytest.approx(ref, rel=1e-7, abs=0)
     path = tmp_path / "sizes.txt"
     path.write_text("# radius um, n (simulated)\n" + "\n".join(f"{x} {7 * x ** -3.5}" for x in a))
-    assert read_size_table(path).moment(3) == pytest.approx(ref, rel=1e-6)
+    assert read_size_table(path).moment(3) == pytest.approx(ref, rel=1e-6, abs=0)
     bad = tmp_path / "bad.txt"
     bad.write_text("0.01 1\n0.02 x\n")
     with pytest.raises(InputFileError, match="bad.txt.*line 2"):
