@@ -52,11 +52,17 @@ def test_demo_recovers_si_columns_within_three_sigma(demo_run, name):
     assert abs(best - TRUTH[name]) < 3.0 * half, (name, best, lo, hi)
     # measured, not just bounded: the 68 % interval excludes zero by far
     assert lo > 3.0 * (best - lo)
-    # the one-row table carries the column densities in cm^-2 with units
+    # the one-row table carries the column densities in cm^-2 with units: the
+    # derived best value is N = parameter x 1e16 cm^-2 exactly (definition of
+    # the GasEdge/DustEdge column unit; 1e-12), and the table's column is the
+    # same posterior median that fit.json reports (1e-12)
     t = QTable.read(out / "results" / "fit.ecsv")
     key = {"gas_si_col": "gas_si_col_cm2", "dust_ndust": "dust_ndust_cm2"}[name]
+    q = {x["name"]: x for x in d["derived"]["quantities"]}[key]
+    assert q["best"] == pytest.approx(1e16 * best, rel=1e-12)
     assert str(t[key].unit) == "1 / cm2"
-    assert float(t[key][0].value) == pytest.approx(1e16 * best, rel=0.2)
+    assert float(t[key][0].value) == pytest.approx(q["median"], rel=1e-12)
+    assert q["lo68"] < q["median"] < q["hi68"]
 
 
 def test_demo_depletion_and_comparison(demo_run):
