@@ -126,8 +126,11 @@ def test_precompute_cached_per_grid_and_pickling():
     model(EnergyGrid.linear(1.0, 2.0, 10))
     assert ab.n_pre == 2
     clone = pickle.loads(pickle.dumps(model))
+    cab = clone.components()[0]
+    assert cab._cache == {}          # grids are re-prepared after unpickling
+    n_before = cab.n_pre
     np.testing.assert_array_equal(clone(GRID), model(GRID))
-    assert clone.components()[0]._cache == {} or len(clone.components()[0]._cache) == 1
+    assert cab.n_pre == n_before + 1 and list(cab._cache) == [GRID.key]
 
 
 def test_energy_grid_rules():
