@@ -37,10 +37,13 @@ def fitted():
 
 
 def test_delta_statistic_is_chi2_quantile():
-    # chi-square(1 dof) quantiles: 1.0 at 68.27 %, 2.706 at 90 %, 6.635 at 99 %
+    # chi-square(1 dof) quantiles: 1.0 at 68.27 %, 2.7055 at 90 %, 6.6349 at
+    # 99 % to the quoted digits, and scipy.stats.chi2.ppf(level, 1) to 1e-9
     assert delta_statistic(0.682689) == pytest.approx(1.0, abs=1e-5)
     assert delta_statistic(0.90) == pytest.approx(2.7055, abs=1e-4)
     assert delta_statistic(0.99) == pytest.approx(6.6349, abs=1e-4)
+    for level in (0.5, 0.6827, 0.95, 0.9973):
+        assert delta_statistic(level) == pytest.approx(sps.chi2.ppf(level, 1), rel=1e-9)
 
 
 def test_profile_of_single_poisson_normalisation_is_exact():
@@ -134,10 +137,16 @@ def test_log_posterior_picklable_with_priors(fitted):
 
 
 def test_mcmc_with_process_pool(fitted):
+    # a process pool only distributes the likelihood calls: with the same seed
+    # the chain equals the serial one exactly (emcee's moves draw all random
+    # numbers in the parent process)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ShortChainWarning)
         mc = run_mcmc(fitted, nwalkers=8, nsteps=30, seed=2, processes=2, store=False)
+        serial = run_mcmc(fitted, nwalkers=8, nsteps=30, seed=2, store=False)
     assert mc.chain.shape == (30, 8, 3) and np.all(np.isfinite(mc.log_prob))
+    np.testing.assert_array_equal(mc.chain, serial.chain)
+    np.testing.assert_array_equal(mc.log_prob, serial.log_prob)
 
 
 def test_ppc_flags_wrong_model():
