@@ -178,13 +178,16 @@ def test_gas_edge_resonance_line_equivalent_width():
 
 
 def test_ion_lines_equivalent_width_and_velocity():
-    grid = EnergyGrid.linear(1.95, 2.05, 500)  # 0.2 eV bins, narrower than nothing in particular
+    # thin Si XIV doublet (N = 1e12 cm^-2): W = pi r_e N f lambda^2 per line
+    # (Draine 2011 eq. 9.15; r_e CODATA 2018), summed -- 0.5 %; 0.2 eV bins
+    grid = EnergyGrid.linear(1.95, 2.05, 500)
     zero = {f"logn_{k}": 0.0 for k in IonLines().ions}
     vals = dict(zero, logn_si14=12.0, b=50.0, v=0.0)
     ions = IonLines(**vals)
     t = ions(grid)
     w_kev = np.sum((1 - t) * grid.width)
-    w_ang = sum(L.thin_equivalent_width(1e12, ln.f, ln.wavelength) for ln in L.ion_lines("si14"))
+    w_ang = sum(np.pi * 2.8179403262e-13 * 1e12 * ln.f * (ln.wavelength * 1e-8) ** 2 / 1e-8
+                for ln in L.ion_lines("si14"))
     lam = L.ion_lines("si14")[0].wavelength
     assert w_kev * lam ** 2 / 12.398419843320026 == pytest.approx(w_ang, rel=0.005)
     # velocity: +1000 km/s moves the absorption minimum to lambda (1 + v/c)
