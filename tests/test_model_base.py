@@ -1,6 +1,9 @@
 """Composition rules of edgefit.models.base: kinds, names, parameters,
 evaluation, caching, pickling.  (Rules of the package itself; the numbers
-checked are exact products/sums of component outputs.)"""
+checked are exact products/sums of component outputs.)  The one physical
+conversion checked, Angstrom -> keV, uses E = hc / lambda with
+hc = 12.398419843320026 keV Angstrom (CODATA 2018 h and c, as in
+astropy.constants), to 1e-12."""
 import pickle
 
 import numpy as np

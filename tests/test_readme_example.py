@@ -2,8 +2,9 @@
 sightline, with a shorter chain) and recovers the simulated Si columns.
 
 Reference: the invented truth of the simulated sightline
-(edgefit.demo.TRUTH); 4 sigma of the profile interval (normal tails,
-seeded simulation, so deterministic).
+(edgefit.demo.TRUTH); tolerance 4 sigma of the 68 % profile-likelihood
+interval (Delta C = 1 for one parameter, Wilks 1938, Ann. Math. Stat. 9,
+60; normal tails; seeded simulation, so deterministic).
 """
 import re
 from pathlib import Path
