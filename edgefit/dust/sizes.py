@@ -42,7 +42,6 @@ from scipy.interpolate import CubicSpline
 
 from .._units import to_value
 from ..errors import PhysicsDataError
-from ..physics import atomic
 
 __all__ = ["SizeDistribution", "PowerLaw", "SingleSize", "LogNormal", "CutoffPowerLaw",
            "TabulatedSizes", "MRN", "FAMILIES", "make_distribution", "SizeGrid",
@@ -313,7 +312,7 @@ def grain_column(n_element_dust, dist: SizeDistribution, material, element) -> f
 def dust_mass_column(n_element_dust, material, element) -> float:
     """Dust mass per cm² (g cm^-2): N_Z,dust M / (N_A c_Z)."""
     n = to_value(n_element_dust, u.cm ** -2, "column")
-    return n * material.formula_mass / (atomic.AVOGADRO * material.count(element))
+    return n * material.mass_per_atom(element)
 
 
 # ---------------------------------------------------------------------------

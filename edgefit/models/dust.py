@@ -324,8 +324,7 @@ class DustEdge(Component):
         abs_lo, abs_hi = np.interp(eq, pre["energy"], s_abs)
         sig_lo, sig_hi = atomic.photoabsorption(self.element, eq) + np.interp(
             eq, pre["energy"], pre["other_atoms"])
-        mass = n * self.material.formula_mass / (atomic.AVOGADRO *
-                                                 self.material.count(self.element))
+        mass = n * self.material.mass_per_atom(self.element)
         return {
             "ndust_cm2": (n, "cm-2"),
             "grain_column": (n / atoms, "cm-2"),
