@@ -562,6 +562,20 @@ def _open_pha(path):
     return Table(find_hdu(hdul, path, SPECTRUM_EXT, ("SPECTRUM",), "SPECTRUM (PHA)"), path)
 
 
+def _read_type1(t: Table, path, row, order, arm, attach):
+    """The spectrum of a type I PHA table, checked against a ``row``/
+    ``order``/``arm`` request (MissingRowError if it does not match)."""
+    if row not in (None, 0):
+        raise MissingRowError(path, f"row {row} requested from a type I file (one spectrum)")
+    spec = _spectrum_from_row(t, path, None, False)
+    for key, want in (("order", order), ("arm", arm)):
+        have = spec.meta.get(key)
+        if want is not None and str(have).upper() != str(want).upper():
+            raise MissingRowError(path, f"{key}={want} requested but the type I file has "
+                                        f"{key}={have}")
+    return _attach_companions(spec, path, None, order, arm, attach)
+
+
 def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spectrum]:
     """Every spectrum in a PHA file: one for type I, one per row for type II
     (optionally only the rows matching ``row``/``order``/``arm``).
@@ -578,10 +592,7 @@ def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spe
     """
     t = _open_pha(path)
     if not _is_type2(t):
-        if row is None and order is None and arm is None:
-            return [_attach_companions(_spectrum_from_row(t, path, None, False), path,
-                                       None, None, None, attach)]
-        return [read_pha(path, row=row, order=order, arm=arm, attach=attach)]
+        return [_read_type1(t, path, row, order, arm, attach)]
     out, cache = [], {}
     for i in _select_rows(t, path, row, order, arm):
         s = _spectrum_from_row(t, path, i, True)
@@ -620,15 +631,7 @@ def read_pha(path, row=None, order=None, arm=None, attach=True) -> Spectrum:
     """
     t = _open_pha(path)
     if not _is_type2(t):
-        if row not in (None, 0):
-            raise MissingRowError(path, f"row {row} requested from a type I file (one spectrum)")
-        spec = _spectrum_from_row(t, path, None, False)
-        for key, want in (("order", order), ("arm", arm)):
-            have = spec.meta.get(key)
-            if want is not None and str(have).upper() != str(want).upper():
-                raise MissingRowError(path, f"{key}={want} requested but the type I file has "
-                                            f"{key}={have}")
-        return _attach_companions(spec, path, None, order, arm, attach)
+        return _read_type1(t, path, row, order, arm, attach)
     rows = _select_rows(t, path, row, order, arm)
     if len(rows) > 1:
         raise AmbiguousRowError(path, f"{len(rows)} rows match (row={row}, order={order}, "
