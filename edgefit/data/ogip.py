@@ -893,7 +893,6 @@ def write_rmf(path, response: Response, *, overwrite=False, include_area=False,
     """
     mat = response.matrix() if include_area else response.rmf
     csc = sp.csc_array(mat)
-    csc.sort_indices()
     if lo_thresh > 0:
         csc.data[np.abs(csc.data) < lo_thresh] = 0.0
     csc.eliminate_zeros()
