@@ -173,10 +173,9 @@ def read_ebounds(path) -> EboundsData:
 
 
 def _ragged(col, nrows, path, name):
-    """Column of a response table as (flat values, per-row lengths available).
-
-    Returns a list of 1-d arrays, one per row, for scalar, fixed-length
-    vector and variable-length columns alike."""
+    """Column of a response table, one row per energy bin: a 2-d array
+    (nrows x width) for scalar and fixed-length vector columns, a list of
+    1-d arrays for variable-length ones (:func:`_take_prefix` takes both)."""
     if isinstance(col, np.ndarray) and col.dtype != object:
         arr = np.asarray(col)
         if arr.ndim == 1:
@@ -208,7 +207,8 @@ def _take_prefix(rows, lengths, path, name):
 
 
 def _read_matrix_hdu(hdu, path, n_chan_hint=None, chan_offset_hint=None):
-    """Parse a MATRIX/SPECRESP MATRIX table into (lo, hi, csr (chan x energy), first_chan)."""
+    """Parse a MATRIX/SPECRESP MATRIX table into (lo, hi, csr (chan x energy),
+    first_chan, Table)."""
     t = Table(hdu, path)
     scale = energy_scale(t.tunit("ENERG_LO"))
     lo, hi = _check_energy_grid(to_float_array(t.column("ENERG_LO"), path, "ENERG_LO") * scale,
