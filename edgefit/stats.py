@@ -147,10 +147,6 @@ def profiled_background_level(model_src, counts, bkg_counts, ratio):
     return np.maximum(root, 0.0)
 
 
-#: Former private name, kept for code written against it.
-_profiled_background = profiled_background_level
-
-
 def profiled_background_residuals(model_src, counts, bkg_counts, ratio):
     """Signed deviance residuals of a source + Poisson background fit with
     the background expectation profiled out per bin.
