@@ -38,6 +38,13 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def error_line(command, exc) -> str:
+    """The one stderr line that reports ``exc`` for sub-command ``command``:
+    the first line of its message (or its class name when it has none)."""
+    msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    return f"edgefit {command}: error: {msg}"
+
+
 def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -49,8 +56,7 @@ def main(argv=None) -> int:
     except (EdgefitError, OSError) as exc:
         if args.debug:
             raise
-        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        print(f"edgefit {args.command}: error: {msg}", file=sys.stderr)
+        print(error_line(args.command, exc), file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("edgefit: interrupted", file=sys.stderr)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import sys
 
 from ..errors import EdgefitError
+from . import error_line
 
 COLUMNS = ("file", "kind", "row", "order", "arm", "channels", "energy_keV", "wavelength_A",
            "exposure_s", "counts", "note")
@@ -80,8 +81,7 @@ def run(args) -> int:
             if getattr(args, "debug", False):
                 raise
             failed += 1
-            msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-            print(f"edgefit inspect: error: {msg}", file=sys.stderr)
+            print(error_line("inspect", exc), file=sys.stderr)
     if rows:
         print(format_table(rows))
     return 2 if failed else 0
