@@ -217,11 +217,9 @@ def gaussian_response(energy_edges_kev, channel_edges_kev, fwhm, area_cm2=1.0, *
     if fwhm_unit == "angstrom":
         x0 = HC_KEV_ANGSTROM / mid
         xe = HC_KEV_ANGSTROM / c_edges[::-1]      # increasing wavelength edges
-        to_energy_index = lambda k: n_ch - 1 - k  # noqa: E731 (local, never stored)
     else:
         x0 = mid
         xe = c_edges
-        to_energy_index = lambda k: k  # noqa: E731
     half = n_sigma * sigma
     k_lo = np.clip(np.searchsorted(xe, x0 - half, side="right") - 1, 0, n_ch)
     k_hi = np.clip(np.searchsorted(xe, x0 + half, side="left"), 0, n_ch)
@@ -234,7 +232,7 @@ def gaussian_response(energy_edges_kev, channel_edges_kev, fwhm, area_cm2=1.0, *
     a = (np.maximum(xe[k], centre - half) - centre) / sigma
     b = (np.minimum(xe[k + 1], centre + half) - centre) / sigma
     prob = np.where(b > a, _gaussian_bin_probability(a, b), 0.0)
-    kk = to_energy_index(k)  # channel index in energy order
+    kk = n_ch - 1 - k if fwhm_unit == "angstrom" else k  # channel index in energy order
     emin_e, emax_e = c_edges[:-1], c_edges[1:]
     if wavelength_order:
         chan_index = n_ch - 1 - kk
