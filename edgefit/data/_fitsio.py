@@ -157,16 +157,13 @@ class Table:
         val = self.header.get(name.upper(), default)
         return default if val is None else val
 
-    def get(self, name, row=None, default=None, required=False):
+    def get(self, name, row=None, default=None):
         """Column value (for ``row`` if given) or keyword, else ``default``."""
         col = self.column(name, required=False)
         if col is not None:
             return col if row is None else col[row]
         if name.upper() in self.header:
             return self.header[name.upper()]
-        if required:
-            raise MissingColumnError(self.path, f"extension {self.hdu.name} has neither a "
-                                                f"{name} column nor a {name} keyword")
         return default
 
 
