@@ -35,7 +35,6 @@ import numpy as np
 from astropy import units as u
 
 from ..errors import ModelError, ParameterClashError, UnknownParameterError
-from .._units import as_kev  # noqa: F401
 from ..grid import EnergyGrid
 
 __all__ = ["EnergyGrid", "Param", "ModelNode", "Component", "CompositeModel",
