@@ -93,8 +93,7 @@ def sigma_hei(energy_kev):
 def sigma_h2(energy_kev):
     """Photoabsorption cross section of H2 (cm^2 per molecule), taken as
     :data:`H2_TO_HI` x sigma(H I) (X-ray approximation; see module notes)."""
-    return H2_TO_HI * np.asarray(sigma_hi(energy_kev)) if np.ndim(energy_kev) else \
-        H2_TO_HI * sigma_hi(energy_kev)
+    return H2_TO_HI * sigma_hi(energy_kev)
 
 
 def hydrogenic_ground_state(energy_kev, z=1):
