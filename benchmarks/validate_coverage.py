@@ -52,30 +52,12 @@ def main(argv=None):
         PhotonPowerLaw("pl", index=1.8, norm=0.5)
         + LineGaussian("ln", center=1.95, sigma=0.004, norm=2e-3, fixed=["center", "sigma"]))
     resp = toy_response(1.6, 2.2, n_channels=300)
-    rng = np.random.default_rng(args.seed)
-    names = list(TRUTH)
-    pulls = {k: [] for k in names}
-    cov_hits = {k: 0 for k in names}
-    prof_hits = {k: 0 for k in names}
-    flagged = 0
-    t0 = time.perf_counter()
-    for _ in range(args.n):
+
+    def simulate(rng):
         spec = simulate_counts(model, resp, args.exposure, values=TRUTH, seed=rng)
-        res = fit_sightline(model, Dataset(spec, ranges=(1.65, 2.15)), goodness=False,
-                            warn=False)
-        flagged += not res.converged
-        for k in names:
-            pull = (res.values[k] - TRUTH[k]) / res.error(k)
-            pulls[k].append(pull)
-            cov_hits[k] += abs(pull) <= 1.0
-        if args.profile:
-            ivs = profile_intervals(res, names, [0.6827], store=False)
-            for k in names:
-                iv = ivs[k][0.6827]
-                prof_hits[k] += (iv.lower is not None and iv.upper is not None
-                                 and iv.lower <= TRUTH[k] <= iv.upper)
-    _report(args, names, pulls, cov_hits, prof_hits if args.profile else None, flagged,
-            time.perf_counter() - t0)
+        return Dataset(spec, ranges=(1.65, 2.15))
+
+    _coverage(args, model, None, TRUTH, list(TRUTH), list(TRUTH), simulate)
 
 
 SIGHTLINE_FREE = ("ism_nh", "gas_si_col", "dust_ndust", "ions_logn_si13", "ions_logn_si14",
@@ -93,29 +75,43 @@ def sightline_coverage(args):
         par.value = DEMO_TRUTH[name]
         par.vary = name in SIGHTLINE_FREE
     responses = instrument_responses()
+
+    def simulate(rng):
+        return [Dataset(simulate_observation(model, resp, rng, tag), resp, ranges=(1.6, 2.2))
+                for (tag, *_), resp in zip(INSTRUMENT, responses)]
+
+    _coverage(args, model, params, DEMO_TRUTH, list(SIGHTLINE_FREE),
+              ["gas_si_col", "dust_ndust"], simulate, progress_every=25)
+
+
+def _coverage(args, model, params, truth, names, profile_names, simulate, progress_every=None):
+    """Simulate ``args.n`` data sets (``simulate(rng)`` -> Dataset or list of
+    them), fit each from ``params`` (None: the model's own starting values),
+    tally the pulls and covariance hits of ``names`` and, with
+    ``args.profile``, the profile-interval hits of ``profile_names``; then
+    print the report."""
     rng = np.random.default_rng(args.seed)
-    names = list(SIGHTLINE_FREE)
     pulls = {k: [] for k in names}
     cov_hits = {k: 0 for k in names}
-    prof_hits = {k: 0 for k in ("gas_si_col", "dust_ndust")}
+    prof_hits = {k: 0 for k in profile_names}
     flagged = 0
     t0 = time.perf_counter()
     for i in range(args.n):
-        data = [Dataset(simulate_observation(model, resp, rng, tag), resp, ranges=(1.6, 2.2))
-                for (tag, *_), resp in zip(INSTRUMENT, responses)]
-        res = fit_sightline(model, data, params=params.copy(), goodness=False, warn=False)
+        res = fit_sightline(model, simulate(rng),
+                            params=None if params is None else params.copy(),
+                            goodness=False, warn=False)
         flagged += not res.converged
         for k in names:
-            pull = (res.values[k] - DEMO_TRUTH[k]) / res.error(k)
+            pull = (res.values[k] - truth[k]) / res.error(k)
             pulls[k].append(pull)
             cov_hits[k] += abs(pull) <= 1.0
         if args.profile:
-            ivs = profile_intervals(res, ["gas_si_col", "dust_ndust"], [0.6827], store=False)
+            ivs = profile_intervals(res, profile_names, [0.6827], store=False)
             for k, by_level in ivs.items():
                 iv = by_level[0.6827]
                 prof_hits[k] += (iv.lower is not None and iv.upper is not None
-                                 and iv.lower <= DEMO_TRUTH[k] <= iv.upper)
-        if (i + 1) % 25 == 0:
+                                 and iv.lower <= truth[k] <= iv.upper)
+        if progress_every and (i + 1) % progress_every == 0:
             print(f"  {i + 1}/{args.n} fits, {time.perf_counter() - t0:.0f} s", flush=True)
     _report(args, names, pulls, cov_hits, prof_hits if args.profile else None, flagged,
             time.perf_counter() - t0)
