@@ -30,6 +30,7 @@ from .._units import HC_KEV_ANGSTROM
 from ..physics import atomic
 from .materials import get_material
 from .sizes import SizeGrid
+from .tables import grain_cross_sections
 
 __all__ = ["shielding_table"]
 
@@ -62,8 +63,6 @@ def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
         grain diameter at E+), ``ratio_abs`` and ``ratio_ext``
         (dimensionless); meta holds material, element, edge energies.
     """
-    from .tables import q_efficiencies
-
     material = get_material(material)
     if sizes is None:
         a = np.geomspace(0.001, 5.0, 60)
@@ -71,14 +70,8 @@ def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
         a = sizes.a if isinstance(sizes, SizeGrid) else np.atleast_1d(np.asarray(sizes, float))
     e0 = atomic.edge_position(element, edge)  # where the tabulated f2 jumps
     energies = np.array([e0 - offset_kev, e0 + offset_kev])
-    mm1 = material.m_minus_1(energies)
-    area = np.pi * (a * 1e-4) ** 2
-    sig_abs, sig_ext = [], []
-    for e, mi in zip(energies, mm1):
-        x = 2 * np.pi * a * 1e4 / (HC_KEV_ANGSTROM / e)
-        qext, qsca, qabs, _ = q_efficiencies(mi, x, method, rtol)
-        sig_abs.append(qabs * area)
-        sig_ext.append(qext * area)
+    sig_abs, sig_sca, _ = grain_cross_sections(material, energies, a, method, rtol)
+    sig_ext = sig_abs + sig_sca
     n_atoms = material.atoms_per_grain(element, a)
     atom_jump = sum(c / material.count(element) * np.diff(atomic.photoabsorption(el, energies))[0]
                     for el, c in material.composition.items())
@@ -89,7 +82,7 @@ def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
     table["radius"] = a * u.um
     table["atoms_per_grain"] = n_atoms
     table["x_edge"] = 2 * np.pi * a / lam_um
-    table["tau_grain"] = 8 * np.pi * mm1[1].imag * a / lam_um
+    table["tau_grain"] = 8 * np.pi * material.delta_beta(energies[1])[1] * a / lam_um
     table["ratio_abs"] = ratio_abs
     table["ratio_ext"] = ratio_ext
     table.meta.update({"material": material.name, "formula": material.formula,

@@ -45,8 +45,8 @@ from .materials import Material, get_material
 from .sizes import SizeDistribution, SizeGrid
 
 __all__ = ["TABLE_FORMAT_VERSION", "EDGE_REGIONS", "DEFAULT_SIZE_GRID", "DustTable",
-           "edge_energy_grid", "region_for", "compute_table", "table_key", "table_path",
-           "load_or_build", "default_table", "list_cached_tables", "DEFAULT_MATERIALS",
+           "edge_energy_grid", "region_for", "grain_cross_sections", "compute_table",
+           "table_key", "table_path", "load_or_build", "default_table", "list_cached_tables", "DEFAULT_MATERIALS",
            "build_default_tables"]
 
 #: Bumped whenever the stored layout or the meaning of the arrays changes.
@@ -163,8 +163,11 @@ def q_efficiencies(m_minus_1, x, method="auto", rtol=None):
     return tuple(np.asarray(v, dtype=float) for v in res)
 
 
-def _rows(material, energies, sizes_um, method, rtol):
-    """σ_abs, σ_sca, g for a block of energies (worker function)."""
+def grain_cross_sections(material, energies, sizes_um, method="auto", rtol=None):
+    """σ_abs, σ_sca (cm² per grain) and g of ``material`` grains, stacked as
+    an array (3, n_energies, n_sizes): σ = π a² Q(m(E), 2πa/λ).  Energies in
+    keV (1-d array), radii in µm (1-d array); the worker function of
+    :func:`compute_table`, also used by :func:`edgefit.dust.shielding.shielding_table`."""
     mm1 = np.atleast_1d(material.m_minus_1(energies))
     area = np.pi * (sizes_um * 1e-4) ** 2
     x = 2 * np.pi * sizes_um[None, :] * 1e4 / (HC_KEV_ANGSTROM / energies[:, None])
@@ -233,7 +236,7 @@ def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
 
             ctx = multiprocessing.get_context("spawn")
             with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-                futs = {pool.submit(_rows, material, energy[b], sizes.a, method, rtol): b
+                futs = {pool.submit(grain_cross_sections, material, energy[b], sizes.a, method, rtol): b
                         for b in blocks}
                 for fut in cf.as_completed(futs):
                     b = futs[fut]
@@ -242,7 +245,7 @@ def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
                         bar.update(b.size)
         else:
             for b in blocks:
-                result[:, b] = _rows(material, energy[b], sizes.a, method, rtol)
+                result[:, b] = grain_cross_sections(material, energy[b], sizes.a, method, rtol)
                 if bar:
                     bar.update(b.size)
     finally:
