@@ -696,23 +696,34 @@ def _common_header(h, telescope=None, instrument=None, simulated=False):
         h["SIMULATD"] = (True, "simulated data (not an observation)")
 
 
-def _spectrum_columns_type1(spec: Spectrum):
-    n = spec.n_channels
-    cols = [fits.Column("CHANNEL", "J", array=np.asarray(spec.channels, np.int32))]
-    if _is_integral(spec.counts):
-        cols.append(fits.Column("COUNTS", "J", unit="count",
-                                array=np.round(spec.counts).astype(np.int32)))
+def _channel_columns(specs, type2):
+    """CHANNEL, COUNTS, STAT_ERR, QUALITY and GROUPING columns: one value
+    per channel (type I, one spectrum) or one vector per row (type II).
+    Counts are written as integers when they all are."""
+    n = specs[0].n_channels
+    rep = f"{n}" if type2 else ""
+
+    def rows(values):
+        arr = np.stack(values)
+        return arr if type2 else arr[0]
+
+    cols = [fits.Column("CHANNEL", f"{rep}J",
+                        array=rows([np.asarray(s.channels, np.int32) for s in specs]))]
+    cnt = rows([s.counts for s in specs])
+    if _is_integral(cnt):
+        cols.append(fits.Column("COUNTS", f"{rep}J", unit="count",
+                                array=np.round(cnt).astype(np.int32)))
     else:
-        cols.append(fits.Column("COUNTS", "D", unit="count", array=spec.counts))
-    if spec.stat_err is not None:
-        cols.append(fits.Column("STAT_ERR", "D", unit="count", array=spec.stat_err))
-    cols.append(fits.Column("QUALITY", "I", array=np.asarray(spec.quality, np.int16)))
-    if spec.grouping is not None:
-        cols.append(fits.Column("GROUPING", "I", array=np.asarray(spec.grouping, np.int16)))
-    for name in ("backscal", "areascal"):
-        v = getattr(spec, name)
-        if np.ndim(v):
-            cols.append(fits.Column(name.upper(), "D", array=np.broadcast_to(v, (n,))))
+        cols.append(fits.Column("COUNTS", f"{rep}D", unit="count", array=cnt))
+    if all(s.stat_err is not None for s in specs):
+        cols.append(fits.Column("STAT_ERR", f"{rep}D", unit="count",
+                                array=rows([s.stat_err for s in specs])))
+    cols.append(fits.Column("QUALITY", f"{rep}I",
+                            array=rows([np.asarray(s.quality, np.int16) for s in specs])))
+    if any(s.grouping is not None for s in specs):
+        cols.append(fits.Column("GROUPING", f"{rep}I", array=rows(
+            [np.zeros(n, np.int16) if s.grouping is None else np.asarray(s.grouping, np.int16)
+             for s in specs])))
     return cols
 
 
@@ -765,7 +776,12 @@ def write_pha(path, spectra, *, overwrite=False, respfile=None, ancrfile=None, b
 
     if not type2:
         s = first
-        hdu = fits.BinTableHDU.from_columns(_spectrum_columns_type1(s), name="SPECTRUM")
+        cols = _channel_columns(specs, False)
+        for name in ("backscal", "areascal"):
+            v = getattr(s, name)
+            if np.ndim(v):
+                cols.append(fits.Column(name.upper(), "D", array=np.broadcast_to(v, (n,))))
+        hdu = fits.BinTableHDU.from_columns(cols, name="SPECTRUM")
         h = hdu.header
         h["EXPOSURE"] = (float(s.exposure), "[s] exposure time")
         for name in ("BACKSCAL", "AREASCAL"):
@@ -791,23 +807,7 @@ def write_pha(path, spectra, *, overwrite=False, respfile=None, ancrfile=None, b
                 else:
                     cols.append(fits.Column(name, "16A", array=np.array(
                         ["" if v is None else str(v) for v in vals])))
-        ch = np.stack([np.asarray(s.channels, np.int32) for s in specs])
-        cols.append(fits.Column("CHANNEL", f"{n}J", array=ch))
-        cnt = np.stack([s.counts for s in specs])
-        if _is_integral(cnt):
-            cols.append(fits.Column("COUNTS", f"{n}J", unit="count",
-                                    array=np.round(cnt).astype(np.int32)))
-        else:
-            cols.append(fits.Column("COUNTS", f"{n}D", unit="count", array=cnt))
-        if all(s.stat_err is not None for s in specs):
-            cols.append(fits.Column("STAT_ERR", f"{n}D", unit="count",
-                                    array=np.stack([s.stat_err for s in specs])))
-        cols.append(fits.Column("QUALITY", f"{n}I",
-                                array=np.stack([np.asarray(s.quality, np.int16) for s in specs])))
-        if any(s.grouping is not None for s in specs):
-            g = np.stack([np.zeros(n, np.int16) if s.grouping is None else
-                          np.asarray(s.grouping, np.int16) for s in specs])
-            cols.append(fits.Column("GROUPING", f"{n}I", array=g))
+        cols += _channel_columns(specs, True)
         cols.append(fits.Column("EXPOSURE", "D", unit="s",
                                 array=np.array([s.exposure for s in specs], float)))
         for name in ("backscal", "areascal"):
