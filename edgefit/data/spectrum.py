@@ -108,11 +108,6 @@ class Spectrum:
             raise ValueError(f"{self.name}: no response attached, channel energies unknown")
         return self.response.channel_emin, self.response.channel_emax
 
-    def channel_wavelength_bounds(self):
-        """(lambda_min, lambda_max) of each channel in Angstrom."""
-        emin, emax = self.channel_bounds()
-        return HC_KEV_ANGSTROM / emax, HC_KEV_ANGSTROM / emin
-
     def select(self, lo, hi, unit="keV", good_only=False) -> np.ndarray:
         """Channels whose centre lies in a range, as a boolean mask.
 
