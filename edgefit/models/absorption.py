@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .._units import as_kev
 from ..errors import ModelError
 from ..physics import abundances as _ab
 from ..physics import atomic, hydrogen, lines as _lines
@@ -30,7 +31,6 @@ _EDGE_COL_UNIT = 1e16
 
 def _energies(energy_kev):
     scalar = np.ndim(energy_kev) == 0
-    from .._units import as_kev
     e = np.atleast_1d(np.asarray(as_kev(energy_kev), dtype=float))
     return e, scalar
 
@@ -225,7 +225,7 @@ class GasEdge(Component):
         return float(out[0]) if scalar else out
 
     def precompute(self, grid: EnergyGrid):
-        return {"sigma0": atomic.photoabsorption(self.element, grid.mid) * _EDGE_COL_UNIT}
+        return {"sigma0": self.sigma(grid.mid) * _EDGE_COL_UNIT}
 
     def _line_arrays(self, v, n_z):
         c = np.array([v[f"line{i}_energy"] for i in range(1, self.n_lines + 1)])
@@ -239,7 +239,7 @@ class GasEdge(Component):
         if shift == 0.0:
             sig = pre["sigma0"]
         else:
-            sig = atomic.photoabsorption(self.element, grid.mid - shift * 1e-3) * _EDGE_COL_UNIT
+            sig = self.sigma(grid.mid, shift) * _EDGE_COL_UNIT
         trans = sig * (-col)
         np.exp(trans, out=trans)
         if self.n_lines and col > 0:
@@ -253,7 +253,7 @@ class GasEdge(Component):
         v = self._merged(values)
         e, scalar = _energies(energy_kev)
         n_z = v["col"] * _EDGE_COL_UNIT
-        tau = n_z * atomic.photoabsorption(self.element, e - v["shift"] * 1e-3)
+        tau = n_z * self.sigma(e, v["shift"])
         if self.n_lines:
             c, area, _, g = self._line_arrays(v, n_z)
             for ci, ai, gi in zip(c, area, g):
@@ -267,9 +267,8 @@ class GasEdge(Component):
         v = self._merged(values)
         n_z = v["col"] * _EDGE_COL_UNIT
         e_edge = self.edge_kev + v["shift"] * 1e-3
-        shift = v["shift"] * 1e-3
-        above = n_z * atomic.photoabsorption(self.element, e_edge * 1.01 - shift)
-        below = n_z * atomic.photoabsorption(self.element, e_edge * 0.99 - shift)
+        above = n_z * self.sigma(e_edge * 1.01, v["shift"])
+        below = n_z * self.sigma(e_edge * 0.99, v["shift"])
         return {"col_cm2": (n_z, "cm-2"),
                 "tau_above": (float(above), ""),
                 "tau_below": (float(below), ""),
