@@ -353,8 +353,7 @@ class IonLines(Component):
         if cols is None:
             cols = self._columns(v)
         centre = e0 * (1.0 / (1.0 + v["v"] / _lines.SPEED_OF_LIGHT_KMS))
-        sigma = centre * (v["b"] / (_lines.SPEED_OF_LIGHT_KMS * np.sqrt(2.0)))
-        return centre, np.array(cols)[owner] * area1, sigma, gam
+        return centre, np.array(cols)[owner] * area1, _lines.doppler_sigma(centre, v["b"]), gam
 
     def _evaluate(self, grid, pre, **v):
         cols = self._columns(v)

@@ -59,6 +59,7 @@ __all__ = ["IonLine", "ion_lines", "ion_keys", "SPEED_OF_LIGHT_KMS", "HBAR_KEV_S
 SPEED_OF_LIGHT_KMS = 299792.458
 #: Reduced Planck constant, keV s (CODATA 2018).
 HBAR_KEV_S = 6.582119569e-19
+_SQRT2 = np.sqrt(2.0)
 #: pi r_e h c in cm^2 keV: integral of the cross section over energy per unit f.
 _PI_RE_HC = np.pi * CLASSICAL_ELECTRON_RADIUS_CM * HC_KEV_ANGSTROM * 1e-8
 
@@ -129,7 +130,7 @@ def doppler_sigma(energy_kev, b_kms):
     """Gaussian standard deviation (keV) of a line at ``energy_kev`` with
     Doppler parameter b (km/s): sigma = E b / (c sqrt 2)."""
     return np.asarray(energy_kev, dtype=float) * np.asarray(b_kms, dtype=float) \
-        / (SPEED_OF_LIGHT_KMS * np.sqrt(2.0))
+        / (SPEED_OF_LIGHT_KMS * _SQRT2)
 
 
 def lorentz_hwhm(gamma_s):
@@ -176,7 +177,6 @@ _TAB_NA = int(round(_TAB_AMAX / _TAB_DA)) + 2
 #: smallest distance from a line centre, in sqrt(2) sigma, at which the
 #: far-wing expansion is used (truncation error 945 (2u^2)^-5 < 3e-5 there).
 _U_WING = 4.0
-_SQRT2 = np.sqrt(2.0)
 _SQRT2PI = np.sqrt(2.0 * np.pi)
 #: Gauss-Legendre 2-point nodes on [0, 1] (equal weights 1/2).
 _GL2 = np.array([0.5 - 0.5 / np.sqrt(3.0), 0.5 + 0.5 / np.sqrt(3.0)])
