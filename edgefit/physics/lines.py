@@ -681,16 +681,16 @@ def _numba_kernel(required=False):
             if numba is not None:
                 try:
                     jit = numba.njit(cache=True)
-                    _NUMBA["kernel"] = _compile(numba, jit)
+                    _NUMBA["kernel"] = _compile(jit)
                 except RuntimeError:          # no writable cache: compile only
-                    _NUMBA["kernel"] = _compile(numba, numba.njit)
+                    _NUMBA["kernel"] = _compile(numba.njit)
     if required and _NUMBA["kernel"] is None:
         raise PhysicsDataError("backend='numba' requested but numba is not available "
                                "(pip install numba, or unset EDGEFIT_NO_NUMBA)")
     return _NUMBA["kernel"]
 
 
-def _compile(numba, jit):
+def _compile(jit):
     from numba.extending import register_jitable
 
     for fn in (_wing_antiderivative, _wing_point, _bisect, _kernel):
