@@ -34,10 +34,12 @@ from ..stats import profiled_background_level
 __all__ = ["c_statistic_goodness", "posterior_predictive"]
 
 
-def _means(likelihood, values):
-    """Per dataset: (source-region means, background-region means or None)."""
+def _means(likelihood, mus):
+    """Per dataset: (source-region means, background-region means or None),
+    from the expected source counts ``mus`` of
+    :meth:`~edgefit.inference.likelihood.JointLikelihood.source_counts`."""
     out = []
-    for ds, mu in zip(likelihood.datasets, likelihood.source_counts(values)):
+    for ds, mu in zip(likelihood.datasets, mus):
         mu = np.maximum(mu, stats.MODEL_FLOOR)
         if ds.has_background:
             b = profiled_background_level(mu, ds.counts, ds.bkg_counts, ds.bkg_ratio)
@@ -55,7 +57,8 @@ def c_statistic_goodness(result):
     """
     mean = 0.0
     var = 0.0
-    for src, bkg in _means(result.likelihood, result.values):
+    like = result.likelihood
+    for src, bkg in _means(like, like.source_counts(result.values)):
         for m in (src, bkg):
             if m is None:
                 continue
@@ -108,11 +111,10 @@ def posterior_predictive(result, samples=None, n_draws=200, seed=None):
     c_obs = np.empty(pick.size)
     c_sim = np.empty(pick.size)
     for k, i in enumerate(pick):
-        vals = pv.values(samples[i])
+        mus = like.source_counts(pv.values(samples[i]))
         obs = 0.0
         sim = 0.0
-        for ds, (src, bkg), mu in zip(like.datasets, _means(like, vals),
-                                       like.source_counts(vals)):
+        for ds, (src, bkg), mu in zip(like.datasets, _means(like, mus), mus):
             n_sim = rng.poisson(src).astype(float)
             if bkg is None:
                 obs += stats.c_statistic(src, ds.counts)
