@@ -253,23 +253,22 @@ class DustEdge(Component):
             raise ModelError(f"{self.name}: {exc}") from exc
 
     def _per_atom(self, table, pre, vals):
-        """(σ_abs, σ_sca, σ_sca lost) per edge atom in grains, cm², on the
-        table energies, and the mean atoms per grain."""
+        """(σ_abs, σ_sca lost from the extraction region) per edge atom in
+        grains, cm², on the table energies, and the mean atoms per grain."""
         try:
             w = table.sizes.weights(self.distribution(**vals))
         except PhysicsDataError as exc:
             raise ModelError(f"{self.name}: {exc}") from exc
         atoms = 4.0 * math.pi / 3.0 * float(pre["a3"] @ w) * pre["atoms_per_um3"]
         s_abs = pre["abs"] @ w / atoms
-        s_sca = pre["sca"] @ w / atoms
         if pre["sca_out"] is not None:
             lost = pre["sca_out"] @ w / atoms
         else:
-            lost = (1.0 - vals["fin"]) * s_sca
-        return s_abs, s_sca, lost, atoms
+            lost = (1.0 - vals["fin"]) * (pre["sca"] @ w / atoms)
+        return s_abs, lost, atoms
 
     def _tau_table(self, table, pre, vals):
-        s_abs, _, lost, _ = self._per_atom(table, pre, vals)
+        s_abs, lost, _ = self._per_atom(table, pre, vals)
         return vals["ndust"] * 1e16 * (s_abs + lost - pre["other"])
 
     # -- Component interface ---------------------------------------------
@@ -316,7 +315,7 @@ class DustEdge(Component):
         e0 = self.edge_energy() + vals["shift"] * 1e-3
         e_lo, e_hi = e0 - _EDGE_OFFSET_KEV, e0 + _EDGE_OFFSET_KEV
         table, pre = self._table_for(e_lo - 0.02, e_hi + 0.02)
-        s_abs, s_sca, lost, atoms = self._per_atom(table, pre, vals)
+        s_abs, lost, atoms = self._per_atom(table, pre, vals)
         n = vals["ndust"] * 1e16
         tau_t = n * (s_abs + lost - pre["other"])
         eq = np.array([e_lo, e_hi]) - vals["shift"] * 1e-3
