@@ -228,10 +228,8 @@ def derived_quantities(result, reference_energy=None, levels=(0.683, 0.90), max_
         samples = result.mcmc.flat_samples(pv.free)
         source = "MCMC posterior"
     elif result.covariance is not None and len(pv):
-        idx = [result.covariance_names.index(n) for n in pv.free]
-        cov = np.asarray(result.covariance)[np.ix_(idx, idx)]
-        samples = np.clip(rng.multivariate_normal(pv.vector(), cov, size=max_draws),
-                          pv.lower, pv.upper)
+        samples = np.clip(rng.multivariate_normal(pv.vector(), result.covariance_of(pv.free),
+                                                  size=max_draws), pv.lower, pv.upper)
         source = "covariance Gaussian"
     else:
         samples = pv.vector()[None, :]

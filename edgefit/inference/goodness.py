@@ -99,9 +99,8 @@ def posterior_predictive(result, samples=None, n_draws=200, seed=None):
         if result.mcmc is not None:
             samples = result.mcmc.flat_samples(pv.free)
         elif result.covariance is not None:
-            idx = [result.covariance_names.index(n) for n in pv.free]
-            cov = np.asarray(result.covariance)[np.ix_(idx, idx)]
-            samples = rng.multivariate_normal(pv.vector(), cov, size=4 * n_draws)
+            samples = rng.multivariate_normal(pv.vector(), result.covariance_of(pv.free),
+                                              size=4 * n_draws)
             samples = np.clip(samples, pv.lower, pv.upper)
         else:
             raise ValueError("posterior predictive check needs MCMC samples or a covariance")

@@ -204,10 +204,9 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
     nwalkers += nwalkers % 2
     rng = np.random.default_rng(seed)
     x0 = pv.vector(result.params)
-    if result.covariance is not None:
-        idx = [result.covariance_names.index(n) for n in pv.free]
-        cov = np.asarray(result.covariance)[np.ix_(idx, idx)] * init_scale ** 2
-        start = rng.multivariate_normal(x0, cov, size=nwalkers)
+    cov = result.covariance_of(pv.free)
+    if cov is not None:
+        start = rng.multivariate_normal(x0, cov * init_scale ** 2, size=nwalkers)
     else:
         scale = 1e-3 * np.where(x0 != 0, np.abs(x0), 1.0)
         start = x0 + scale * rng.standard_normal((nwalkers, ndim))

@@ -147,6 +147,14 @@ class FitResult:
         i = self.covariance_names.index(name)
         return float(math.sqrt(self.covariance[i, i]))
 
+    def covariance_of(self, names):
+        """Covariance submatrix of the free parameters ``names`` (in that
+        order), or None without a covariance."""
+        if self.covariance is None:
+            return None
+        idx = [self.covariance_names.index(n) for n in names]
+        return np.asarray(self.covariance)[np.ix_(idx, idx)]
+
     def unit(self, name):
         pars = self.model.parameters()
         if name in pars:
