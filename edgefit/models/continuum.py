@@ -288,7 +288,7 @@ class BlackbodyPhotons(_QuadratureContinuum):
     ``norm`` = (R / km)^2 / (D / 10 kpc)^2."""
 
     registry_name = "blackbody_photons"
-    default_name = "bbody"
+    default_name = "blackbody"
     params = (
         Param("kt", 0.5, 0.01, 50.0, "keV", "temperature"),
         Param("norm", 100.0, 0.0, 1e12, "", "(R/km)^2 / (D/10 kpc)^2"),
