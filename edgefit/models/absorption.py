@@ -132,9 +132,7 @@ class SmoothISM(Component):
 
     def optical_depth(self, energy_kev, **values):
         v = self._merged(values)
-        e, scalar = _energies(energy_kev)
-        tau = v["nh"] * _NH_UNIT * self.sigma_per_h(e, v["mol_frac"])
-        return float(tau[0]) if scalar else tau
+        return v["nh"] * _NH_UNIT * self.sigma_per_h(energy_kev, v["mol_frac"])
 
     def derived(self, **values):
         v = self._merged(values)
