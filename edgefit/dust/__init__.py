@@ -5,9 +5,12 @@ Pure computation only (the table cache in :mod:`edgefit.dust.tables` is the
 one place that reads and writes files).  Units: energy keV, radius µm,
 density g cm^-3, cross sections cm², columns cm^-2.
 """
+from .adt import adt_efficiencies
+from .efficiencies import efficiencies
 from .halo import HaloGeometry, fraction_in_region, rg_gaussian_width_arcmin
 from .kramers_kronig import kk_delta_f1, kk_f1_from_f2, kk_principal_value, relativistic_z_star
 from .materials import MATERIALS, Material, atoms_per_grain, get_material
+from .mie import mie_efficiencies
 from .optical import (LabAbsorption, NearEdgeCorrection, delta_beta, formula_mass,
                       nearedge_correction, number_densities, parse_formula,
                       read_lab_absorption, refractive_index)
@@ -19,6 +22,7 @@ from .tables import (EDGE_REGIONS, DustTable, compute_table, default_table, edge
                      list_cached_tables, load_or_build)
 
 __all__ = [
+    "mie_efficiencies", "adt_efficiencies", "efficiencies",
     "HaloGeometry", "fraction_in_region", "rg_gaussian_width_arcmin",
     "kk_delta_f1", "kk_f1_from_f2", "kk_principal_value", "relativistic_z_star",
     "MATERIALS", "Material", "atoms_per_grain", "get_material",
@@ -32,19 +36,3 @@ __all__ = [
     "list_cached_tables", "load_or_build",
 ]
 
-# Efficiencies are written by another module owner; re-export what exists.
-try:
-    from .mie import mie_efficiencies  # noqa: F401
-    __all__.append("mie_efficiencies")
-except ImportError:  # pragma: no cover - during development only
-    pass
-try:
-    from .adt import adt_efficiencies  # noqa: F401
-    __all__.append("adt_efficiencies")
-except ImportError:  # pragma: no cover
-    pass
-try:
-    from .efficiencies import efficiencies  # noqa: F401
-    __all__.append("efficiencies")
-except ImportError:  # pragma: no cover
-    pass
