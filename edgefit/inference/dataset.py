@@ -151,8 +151,6 @@ class Dataset:
 
         areascal = np.broadcast_to(np.asarray(spectrum.areascal, dtype=float),
                                    (spectrum.n_channels,))[sel]
-        backscal = np.broadcast_to(np.asarray(spectrum.backscal, dtype=float),
-                                   (spectrum.n_channels,))[sel]
         fold = sp.csr_array(sp.diags_array(areascal * self.exposure) @ self.sub.matrix())
         self.matrix = sp.csr_array(g @ fold)
         self.matrix.sum_duplicates()
@@ -169,12 +167,8 @@ class Dataset:
             if bkg.n_channels != spectrum.n_channels:
                 raise ModelError(f"spectrum {self.label!r}: background has {bkg.n_channels} "
                                  f"channels, source has {spectrum.n_channels}")
-            b_area = np.broadcast_to(np.asarray(bkg.areascal, dtype=float),
-                                     (bkg.n_channels,))[sel]
-            b_back = np.broadcast_to(np.asarray(bkg.backscal, dtype=float),
-                                     (bkg.n_channels,))[sel]
-            ratio_ch = (self.exposure * backscal * areascal) / (float(bkg.exposure) * b_back
-                                                                 * b_area)
+            ratio_ch = np.broadcast_to(spectrum.background_scale(),
+                                       (spectrum.n_channels,))[sel]
             self.bkg_counts = g @ np.asarray(bkg.counts, dtype=float)[sel]
             # one ratio per group: channel mean (exact when constant)
             self.bkg_ratio = (g @ ratio_ch) / self.group_channels
