@@ -8,7 +8,7 @@ Writes, in the folder holding this script:
   Chantler tables (Chantler 1995, J. Phys. Chem. Ref. Data 24, 71;
   Chantler 2000, JPCRD 29, 597; NIST SRD 66, 2005 release) as shipped in
   the xraydb package.  Every tabulated point of the source between 0.05
-  and 15 keV is kept, plus one point beyond each end.
+  and 15 keV is kept, plus two points beyond each end.
 * ``atomic_elements.txt``: atomic number, symbol and standard atomic mass
   (u) from xraydb.
 * ``atomic_edges.txt``: absorption-edge energies (eV) from xraydb's edge
@@ -90,7 +90,7 @@ def main():
             "source: Chantler tables (C. T. Chantler 1995, J. Phys. Chem. Ref. Data 24, 71;",
             "  2000, JPCRD 29, 597; NIST Standard Reference Database 66, 2005 release)",
             f"  as distributed in xraydb {version} (M. Newville et al.)",
-            "grid: every tabulated point of the source from 0.05 to 15 keV plus one beyond",
+            "grid: every tabulated point of the source from 0.05 to 15 keV plus two beyond",
             "  each end (logarithmic, 1 % steps, refined to 0.0004-0.02 % steps across edges)",
             "f1 includes Z: f1 = Z + f' (xraydb's f1_chantler returns f' = f1 - Z)",
             "photoabsorption cross section per atom: sigma = 2 r_e lambda f2",
