@@ -128,7 +128,7 @@ class Material:
     @property
     def formula_units_per_cm3(self) -> float:
         """n_fu = ρ N_A / M, cm^-3."""
-        return self.density * atomic.AVOGADRO / self.formula_mass
+        return optical._formula_units_per_cm3(self._comp, self.density)
 
     def atoms_per_cm3(self, element) -> float:
         """Atoms of ``element`` per cm^3 of grain material."""

@@ -140,12 +140,17 @@ def as_density(density) -> float:
     return float(rho)
 
 
+def _formula_units_per_cm3(comp, density) -> float:
+    """n_fu = ρ N_A / M, formula units per cm^3 (ρ in g cm^-3, M the formula
+    mass in g/mol)."""
+    return as_density(density) * atomic.AVOGADRO / formula_mass(comp)
+
+
 def number_densities(composition, density) -> dict[str, float]:
     """Atoms per cm^3 of each element: n_j = ρ N_A c_j / M, with c_j atoms
     of j per formula unit and M the formula mass (g/mol)."""
     comp = _composition(composition)
-    rho = as_density(density)
-    n_fu = rho * atomic.AVOGADRO / formula_mass(comp)
+    n_fu = _formula_units_per_cm3(comp, density)
     return {el: n_fu * c for el, c in comp.items()}
 
 
@@ -185,7 +190,7 @@ def delta_beta(composition, density, energy_kev, corrections=()):
     comp = _composition(composition)
     scalar = np.ndim(energy_kev) == 0
     e = np.atleast_1d(np.asarray(as_kev(energy_kev), dtype=float))
-    n_fu = as_density(density) * atomic.AVOGADRO / formula_mass(comp)
+    n_fu = _formula_units_per_cm3(comp, density)
     f1, f2 = _formula_f1f2(comp, e)
     for corr in corrections:
         d1, d2 = corr(e)
@@ -383,7 +388,7 @@ def nearedge_correction(composition, density, lab: LabAbsorption, edge_kev,
     w[lo] = 0.5 - 0.5 * np.cos(np.pi * t[lo] / taper)
     w[hi] = 0.5 - 0.5 * np.cos(np.pi * (1 - t[hi]) / taper)
     dbeta = dbeta * w
-    n_fu = as_density(density) * atomic.AVOGADRO / formula_mass(comp)
+    n_fu = _formula_units_per_cm3(comp, density)
     lam_cm = HC_KEV_ANGSTROM / e * 1e-8
     dF2 = dbeta * 2 * np.pi / (CLASSICAL_ELECTRON_RADIUS_CM * lam_cm ** 2 * n_fu)
     ext_lo = np.geomspace(e[0] / 3, e[0], 60, endpoint=False)
