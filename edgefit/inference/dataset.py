@@ -101,8 +101,8 @@ class Dataset:
         if not self.exposure > 0:
             raise ModelError(f"spectrum {self.label!r}: exposure must be positive")
         self.ranges_kev = parse_ranges(ranges, unit)
-        centre = 0.5 * (resp.channel_emin + resp.channel_emax)
-        mask = np.asarray(spectrum.quality) == 0
+        centre = resp.channel_mid
+        mask = spectrum.good
         if self.ranges_kev is not None:
             inr = np.zeros_like(mask)
             for lo, hi in self.ranges_kev:
@@ -142,7 +142,6 @@ class Dataset:
         starts |= np.r_[True, np.diff(sel) > 1]  # never across gaps
         group_id = np.cumsum(starts) - 1
         n_groups = int(group_id[-1]) + 1
-        self.group_of_channel = group_id
         ogip_grouping = np.where(starts, 1, -1)
         self.grouping_matrix = grouping_matrix(ogip_grouping)
         g = self.grouping_matrix
@@ -177,11 +176,6 @@ class Dataset:
     @property
     def has_background(self) -> bool:
         return self.bkg_counts is not None
-
-    @property
-    def group_energy(self):
-        """Nominal centre energy of each group, keV."""
-        return 0.5 * (self.group_emin + self.group_emax)
 
     def fold(self, flux):
         """Expected source counts per group for ``flux`` (photons cm^-2 s^-1
