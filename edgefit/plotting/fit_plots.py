@@ -30,7 +30,7 @@ def _display_groups(counts, min_counts):
     starts = [0]
     acc = 0.0
     for i, c in enumerate(counts):
-        if acc >= min_counts:
+        if i and acc >= min_counts:  # channel 0 already starts the first bin
             starts.append(i)
             acc = 0.0
         acc += c
