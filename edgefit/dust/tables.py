@@ -175,6 +175,13 @@ def grain_cross_sections(material, energies, sizes_um, method="auto", rtol=None)
     return np.stack([qabs * area, qsca * area, g])
 
 
+def _as_size_grid(sizes) -> SizeGrid:
+    """A SizeGrid from None (:data:`DEFAULT_SIZE_GRID`), a SizeGrid or radii (µm)."""
+    if sizes is None:
+        return SizeGrid.log(*DEFAULT_SIZE_GRID)
+    return sizes if isinstance(sizes, SizeGrid) else SizeGrid(sizes)
+
+
 def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
                   rtol: float | None = None, workers: int | None = 1,
                   progress: bool | None = None) -> DustTable:
@@ -209,10 +216,7 @@ def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
     energy = np.asarray(as_kev(energy_kev, "energy"), dtype=float)
     if energy.ndim != 1 or energy.size < 2 or np.any(np.diff(energy) <= 0):
         raise PhysicsDataError("dust table: energies must be an increasing 1-d array")
-    if sizes is None:
-        sizes = SizeGrid.log(*DEFAULT_SIZE_GRID)
-    elif not isinstance(sizes, SizeGrid):
-        sizes = SizeGrid(sizes)
+    sizes = _as_size_grid(sizes)
     work = energy.size * len(sizes)
     if workers is None:
         workers = 1
@@ -319,10 +323,7 @@ def load_or_build(material, energy_kev, sizes=None, *, method="auto", rtol=None,
     touching the disk.  See :func:`compute_table` for the arguments."""
     material = get_material(material)
     energy = np.asarray(as_kev(energy_kev, "energy"), dtype=float)
-    if sizes is None:
-        sizes = SizeGrid.log(*DEFAULT_SIZE_GRID)
-    elif not isinstance(sizes, SizeGrid):
-        sizes = SizeGrid(sizes)
+    sizes = _as_size_grid(sizes)
     if not cache:
         return compute_table(material, energy, sizes, method=method, rtol=rtol,
                              workers=workers, progress=progress)
