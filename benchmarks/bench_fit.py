@@ -27,15 +27,15 @@ from edgefit.inference.likelihood import ParameterVector
 from edgefit.models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
 
 TRUTH = {"ism_nh": 2.0, "gas_si_col": 6.0, "gas_si_shift": 0.0, "dust_ndust": 30.0,
-         "dust_amax": 0.3, "dust_index": 3.5, "dust_shift": 2.0, "powlaw_index": 1.7,
-         "powlaw_norm": 1.5}
+         "dust_amax": 0.3, "dust_index": 3.5, "dust_shift": 2.0, "continuum_index": 1.7,
+         "continuum_norm": 1.5}
 
 
 def build_model():
     ism = SmoothISM("ism", exclude=("Si",))
     gas = GasEdge("gas_si", element="Si")
     dust = DustEdge("dust", material="olivine", element="Si")
-    return ism * gas * dust * PhotonPowerLaw("powlaw")
+    return ism * gas * dust * PhotonPowerLaw("continuum")
 
 
 def make_datasets(model, seed=1):
@@ -69,7 +69,7 @@ def main(argv=None):
         params[name].vary = True
     # start away from the truth
     start = {"ism_nh": 1.5, "gas_si_col": 10.0, "dust_ndust": 20.0, "dust_amax": 0.2,
-             "dust_index": 3.3, "powlaw_index": 2.0, "powlaw_norm": 1.0}
+             "dust_index": 3.3, "continuum_index": 2.0, "continuum_norm": 1.0}
     for k, v in start.items():
         params[k].value = v
     n_free = sum(p.vary and not p.expr for p in params.values())

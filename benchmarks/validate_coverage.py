@@ -61,7 +61,7 @@ def main(argv=None):
 
 
 SIGHTLINE_FREE = ("ism_nh", "gas_si_col", "dust_ndust", "ions_logn_si13", "ions_logn_si14",
-                  "powlaw_index", "powlaw_norm")
+                  "continuum_index", "continuum_norm")
 
 
 def sightline_coverage(args):

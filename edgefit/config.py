@@ -9,9 +9,9 @@ form only -- lists of component names, never a text expression:
 
     [model]
     absorbers = ["ism", "gas_si", "dust"]   # multiplied together
-    emission  = ["disk", "powlaw"]          # added together
+    emission  = ["disk", "pl"]          # added together
 
-means (ism x gas_si x dust) x (disk + powlaw); several ``[[model.term]]``
+means (ism x gas_si x dust) x (disk + pl); several ``[[model.term]]``
 tables, each with its own ``absorbers`` and ``emission`` lists, are summed
 (model = sum over terms of prod(absorbers) x sum(emission)), and a
 component named in several terms is one shared object with shared
@@ -84,7 +84,7 @@ def model_terms(model_table, path=None):
     if terms is None:
         if "emission" not in model_table:
             raise ConfigError(path, "model.emission: missing; list the emission (additive) "
-                                    "components, e.g. emission = [\"powlaw\"]")
+                                    "components, e.g. emission = [\"continuum\"]")
         return [("model", _name_list(model_table.get("absorbers", []), path,
                                      "model.absorbers"),
                  _name_list(model_table["emission"], path, "model.emission"))]

@@ -54,8 +54,8 @@ TRUTH = {
     "ions_logn_si14": 16.0,
     "ions_b": 300.0,            # km/s
     "ions_v": 0.0,              # km/s
-    "powlaw_index": 1.8,
-    "powlaw_norm": 8.0,         # ph cm-2 s-1 keV-1 at 1 keV
+    "continuum_index": 1.8,
+    "continuum_norm": 8.0,         # ph cm-2 s-1 keV-1 at 1 keV
 }
 
 #: Invented grating-like instrument: (file tag, label, FWHM in Angstrom,
@@ -89,7 +89,7 @@ output = "{output}"
 {spectra}
 [model]
 absorbers = ["ism", "gas_si", "dust", "ions"]   # multiplied together
-emission = ["powlaw"]                           # added together
+emission = ["continuum"]                           # added together
 
 [model.components.ism]
 type = "smooth_ism"
@@ -120,7 +120,7 @@ params.logn_si14 = {{ value = 16.0, min = 12.0, max = 19.0 }}
 params.b = {{ value = 300.0, fixed = true }}
 params.v = {{ value = 0.0, fixed = true }}
 
-[model.components.powlaw]
+[model.components.continuum]
 type = "photon_power_law"
 params.index = {{ value = 2.0, min = 0.5, max = 4.0 }}
 params.norm = {{ value = 5.0, min = 0.01, max = 100.0 }}
@@ -164,7 +164,7 @@ def build_model():
 
     return (SmoothISM("ism", exclude=("Si",)) * GasEdge("gas_si", element="Si")
             * DustEdge("dust", material="olivine", element="Si")
-            * IonLines("ions", ions=["Si XIII", "Si XIV"]) * PhotonPowerLaw("powlaw"))
+            * IonLines("ions", ions=["Si XIII", "Si XIV"]) * PhotonPowerLaw("continuum"))
 
 
 def _area(area_19):

@@ -123,7 +123,7 @@ class ModelNode:
 
     def structure(self) -> str:
         """The model's shape in component names, e.g.
-        ``ism * gas_si * dust * (disk + powlaw)`` (for display only)."""
+        ``ism * gas_si * dust * (disk + pl)`` (for display only)."""
         raise NotImplementedError
 
     # -- evaluation ----------------------------------------------------

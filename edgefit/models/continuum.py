@@ -237,7 +237,7 @@ class PhotonPowerLaw(Component):
 
     kind = ADDITIVE
     registry_name = "photon_power_law"
-    default_name = "powlaw"
+    default_name = "pl"
     params = (
         Param("index", 2.0, -3.0, 10.0, "", "photon index (N ~ E^-index)"),
         Param("norm", 1.0, 0.0, 1e10, "ph cm-2 s-1 keV-1", "photon flux density at 1 keV"),
