@@ -92,12 +92,6 @@ class SizeDistribution:
             return values[name]
         raise AttributeError(name)
 
-    def __getstate__(self):
-        return self.__dict__
-
-    def __setstate__(self, state):
-        self.__dict__.update(state)
-
     def support(self) -> tuple[float, float]:
         """(amin, amax) in µm."""
         return self.values["amin"], self.values["amax"]
@@ -114,10 +108,9 @@ class SizeDistribution:
         out = np.where(inside, self.shape(np.clip(a, lo, hi)), 0.0) / self.moment(0, raw=True)
         return float(out) if out.ndim == 0 else out
 
-    def _nodes(self, lo=None, hi=None, n_per_decade=40):
+    def _nodes(self, n_per_decade=40):
         """Gauss-Legendre nodes (a, weight for ∫ da) on the support."""
-        lo = self.support()[0] if lo is None else lo
-        hi = self.support()[1] if hi is None else hi
+        lo, hi = self.support()
         nseg = max(4, int(math.ceil(n_per_decade * math.log10(hi / lo))))
         edges = np.linspace(math.log(lo), math.log(hi), nseg + 1)
         half = 0.5 * np.diff(edges)
