@@ -134,7 +134,7 @@ def test_tabulated_sizes_and_reader(tmp_path):
 
 
 def test_families_and_quantities():
-    d = make_distribution("powerlaw", index=3.5, amin=5 * u.nm, amax=0.25 * u.um)
+    d = make_distribution("power_law", index=3.5, amin=5 * u.nm, amax=0.25 * u.um)
     assert d.support() == pytest.approx((0.005, 0.25))
     assert make_distribution("single", size=0.1).moment(3) == pytest.approx(1e-3)
     # MRN density normalised in closed form (1e-12)

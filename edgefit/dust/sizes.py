@@ -7,7 +7,7 @@ p(a) = n(a) / ∫ n da.
 
 Families (``FAMILIES``, by name):
 
-``powerlaw``  n ∝ a^-q on [amin, amax] -- MRN (Mathis, Rumpl & Nordsieck
+``power_law`` n ∝ a^-q on [amin, amax] -- MRN (Mathis, Rumpl & Nordsieck
               1977, ApJ 217, 425: q = 3.5, 0.005-0.25 µm) is the default.
 ``single``    all grains of one radius.
 ``lognormal`` n ∝ a^-1 exp(−ln²(a/a0) / 2w²) on [amin, amax].
@@ -145,7 +145,7 @@ _AMAX = ("amax", 0.25, 0.006, 5.0, "um", "largest grain radius", True)
 class PowerLaw(SizeDistribution):
     """n(a) ∝ a^-q on [amin, amax] (Mathis, Rumpl & Nordsieck 1977)."""
 
-    family = "powerlaw"
+    family = "power_law"
     PARAMS = (_AMIN, _AMAX,
               ("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False))
 

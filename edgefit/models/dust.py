@@ -42,7 +42,7 @@ Parameters of the component (full names ``<name>_<param>``)
 -----------------------------------------------------------
 ``ndust``  column of the edge element in grains, 1e16 cm^-2;
 size-distribution parameters of the chosen family
-(:data:`edgefit.dust.sizes.FAMILIES`: ``powerlaw`` amin/amax/index,
+(:data:`edgefit.dust.sizes.FAMILIES`: ``power_law`` amin/amax/index,
 ``single`` size, ``lognormal`` center/width/amin/amax, ``cutoff``
 amin/index/atrans/acut/amax; radii in µm; none for a user table);
 ``shift`` a shift of the dust cross sections in energy (eV; a chemical
@@ -92,7 +92,7 @@ class DustEdge(Component):
     element : str
         The edge element Z whose dust column is the parameter ``ndust``.
     sizes : str or SizeDistribution
-        Family name (``"powerlaw"`` -- MRN defaults --, ``"single"``,
+        Family name (``"power_law"`` -- MRN defaults --, ``"single"``,
         ``"lognormal"``, ``"cutoff"``) whose parameters become fit
         parameters, or a fixed :class:`~edgefit.dust.sizes.TabulatedSizes`.
     count_once : bool
@@ -140,7 +140,7 @@ class DustEdge(Component):
         ("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False),
     )) + _TAIL_PARAMS
 
-    def __init__(self, name=None, *, material="olivine", element="Si", sizes="powerlaw",
+    def __init__(self, name=None, *, material="olivine", element="Si", sizes="power_law",
                  count_once=True, halo=None, energy_range=None, table=None, size_grid=None,
                  method="auto", rtol=None, cache=True, fixed=(), **values):
         from ..dust.materials import get_material
