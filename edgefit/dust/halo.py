@@ -127,10 +127,3 @@ class HaloGeometry:
         return fraction_in_region(energy_kev, a_um, self.halfwidth_arcsec, self.position,
                                   geometry=self.geometry,
                                   along_halfwidth_arcsec=self.along_halfwidth_arcsec)
-
-    def averaged(self, table, dist):
-        """f_in(E) over a size distribution, weighted by σ_sca: Σ W σ_sca f /
-        Σ W σ_sca on ``table``'s energies."""
-        w = table.sizes.weights(dist)
-        f = self.fraction(table.energy_kev[:, None], table.sizes.a[None, :])
-        return (table.sigma_sca * f) @ w / (table.sigma_sca @ w)
