@@ -44,7 +44,7 @@ def main(n_bins=8192, repeat=7, number=200):
     t_load = time.perf_counter() - t0
 
     grid = EnergyGrid.linear(1.6, 2.2, n_bins)
-    dust = DustEdge(material="olivine", element="Si", ndust=20.0)
+    dust = DustEdge(material="olivine", element="Si", col=20.0)
     values = dust.default_values()
     dust.evaluate(grid, values)  # prepares the grid (loads the table)
     x = -np.linspace(0.0, 5.0, n_bins)

@@ -26,7 +26,7 @@ from edgefit.inference import Dataset, JointLikelihood, fit_sightline, run_mcmc
 from edgefit.inference.likelihood import ParameterVector
 from edgefit.models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
 
-TRUTH = {"ism_nh": 2.0, "gas_si_col": 6.0, "gas_si_shift": 0.0, "dust_ndust": 30.0,
+TRUTH = {"ism_nh": 2.0, "gas_si_col": 6.0, "gas_si_shift": 0.0, "dust_col": 30.0,
          "dust_amax": 0.3, "dust_index": 3.5, "dust_shift": 2.0, "continuum_index": 1.7,
          "continuum_norm": 1.5}
 
@@ -68,7 +68,7 @@ def main(argv=None):
     for name in ("gas_si_shift", "dust_index", "dust_shift"):
         params[name].vary = True
     # start away from the truth
-    start = {"ism_nh": 1.5, "gas_si_col": 10.0, "dust_ndust": 20.0, "dust_amax": 0.2,
+    start = {"ism_nh": 1.5, "gas_si_col": 10.0, "dust_col": 20.0, "dust_amax": 0.2,
              "dust_index": 3.3, "continuum_index": 2.0, "continuum_norm": 1.0}
     for k, v in start.items():
         params[k].value = v
@@ -84,7 +84,7 @@ def main(argv=None):
         t_fit = time.perf_counter() - t0
     print(f"best fit: {t_fit:.2f} s (target <= 5 s), {res.nfev} function evaluations, "
           f"C = {res.statistic:.1f} for dof {res.dof}, flags: {res.flags or 'none'}")
-    for k in ("dust_amax", "dust_ndust", "gas_si_col"):
+    for k in ("dust_amax", "dust_col", "gas_si_col"):
         print(f"   {k:<12} fit {res.values[k]:.4g} +/- {res.error(k) or float('nan'):.2g}"
               f"   (simulated truth {TRUTH[k]})")
     print("   (a timing scenario: with the size index, both shifts and amax free, this "

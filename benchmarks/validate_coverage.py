@@ -60,7 +60,7 @@ def main(argv=None):
     _coverage(args, model, None, TRUTH, list(TRUTH), list(TRUTH), simulate)
 
 
-SIGHTLINE_FREE = ("ism_nh", "gas_si_col", "dust_ndust", "ions_logn_si13", "ions_logn_si14",
+SIGHTLINE_FREE = ("ism_nh", "gas_si_col", "dust_col", "ions_logn_si13", "ions_logn_si14",
                   "continuum_index", "continuum_norm")
 
 
@@ -81,7 +81,7 @@ def sightline_coverage(args):
                 for (tag, *_), resp in zip(INSTRUMENT, responses)]
 
     _coverage(args, model, params, DEMO_TRUTH, list(SIGHTLINE_FREE),
-              ["gas_si_col", "dust_ndust"], simulate, progress_every=25)
+              ["gas_si_col", "dust_col"], simulate, progress_every=25)
 
 
 def _coverage(args, model, params, truth, names, profile_names, simulate, progress_every=None):

@@ -44,7 +44,7 @@ TRUTH = {
     "ism_mol_frac": 0.2,
     "gas_si_col": 12.0,         # 1e16 cm-2, Si in the gas phase
     "gas_si_shift": 0.0,        # eV
-    "dust_ndust": 28.0,         # 1e16 cm-2, Si locked in grains
+    "dust_col": 28.0,           # 1e16 cm-2, Si locked in grains
     "dust_amin": 0.005,         # um
     "dust_amax": 0.5,           # um
     "dust_index": 3.5,
@@ -104,7 +104,7 @@ params.col = {{ value = 5.0, min = 0.0, max = 200.0 }}
 [model.components.dust]
 type = "dust_edge"
 options = {{ material = "olivine", element = "Si" }}
-params.ndust = {{ value = 20.0, min = 0.0, max = 300.0 }}
+params.col = {{ value = 20.0, min = 0.0, max = 300.0 }}
 # size distribution held fixed (MRN-like power law): a 150 ks spectrum
 # cannot tell grain size from Si column on its own
 params.amin = {{ value = 0.005, fixed = true }}
@@ -129,7 +129,7 @@ params.norm = {{ value = 5.0, min = 0.01, max = 100.0 }}
 statistic = "poisson"
 
 [errors]
-profile = ["gas_si_col", "dust_ndust"]
+profile = ["gas_si_col", "dust_col"]
 levels = {levels}
 
 [mcmc]

@@ -150,12 +150,14 @@ def test_gas_edge_column_shift_and_derived():
     # the edge as placed by the Chantler f2 the cross section comes from:
     # within 2 eV of the Elam et al. (2002) Si K energy 1839.0 eV (xraydb)
     assert d["edge_energy"][0] == pytest.approx(1.839, abs=2e-3)
-    # jump across +-1 % of the edge against the same ratio of xraydb's
+    # jump across the edge -/+ 20 eV (edgefit's one "just below / above"
+    # rule, atomic.edge_bracket) against the same ratio of xraydb's
     # mu_chantler(photo=True) (same Chantler nodes; observed 1e-5): 1e-3
     e_edge = d["edge_energy"][0] * 1e3
-    chantler = (xraydb.mu_chantler("Si", 1.01 * e_edge, photo=True)
-                / xraydb.mu_chantler("Si", 0.99 * e_edge, photo=True))
+    chantler = (xraydb.mu_chantler("Si", e_edge + 20.0, photo=True)
+                / xraydb.mu_chantler("Si", e_edge - 20.0, photo=True))
     assert d["tau_above"][0] / d["tau_below"][0] == pytest.approx(chantler, rel=1e-3)
+    assert d["tau_jump"][0] == pytest.approx(d["tau_above"][0] - d["tau_below"][0], rel=1e-12)
     with pytest.raises(ModelError):
         GasEdge(element="Si", lines=[dict(centre=1.8)])
     # other edges named in the brief exist, placed where the tabulated jump is

@@ -40,7 +40,7 @@ def test_demo_writes_inputs_and_outputs(demo_run):
     assert "simulated" in (res / "fit_summary.txt").read_text()
 
 
-@pytest.mark.parametrize("name", ["gas_si_col", "dust_ndust"])
+@pytest.mark.parametrize("name", ["gas_si_col", "dust_col"])
 def test_demo_recovers_si_columns_within_three_sigma(demo_run, name):
     _, out = demo_run
     d = json.loads((out / "results" / "fit.json").read_text())
@@ -57,7 +57,7 @@ def test_demo_recovers_si_columns_within_three_sigma(demo_run, name):
     # the GasEdge/DustEdge column unit; 1e-12), and the table's column is the
     # same posterior median that fit.json reports (1e-12)
     t = QTable.read(out / "results" / "fit.ecsv")
-    key = {"gas_si_col": "gas_si_col_cm2", "dust_ndust": "dust_ndust_cm2"}[name]
+    key = {"gas_si_col": "gas_si_col_cm2", "dust_col": "dust_col_cm2"}[name]
     q = {x["name"]: x for x in d["derived"]["quantities"]}[key]
     assert q["best"] == pytest.approx(1e16 * best, rel=1e-12)
     assert str(t[key].unit) == "1 / cm2"
@@ -69,7 +69,7 @@ def test_demo_depletion_and_comparison(demo_run):
     _, out = demo_run
     d = json.loads((out / "results" / "fit.json").read_text())
     q = {x["name"]: x for x in d["derived"]["quantities"]}
-    for key in ("gas_si_tau", "dust_tau", "gas_si_col_cm2", "dust_ndust_cm2", "depletion_Si",
+    for key in ("gas_si_tau", "dust_tau", "gas_si_col_cm2", "dust_col_cm2", "depletion_Si",
                 "dust_grain_column", "dust_dust_mass_column", "dust_shielding_ratio"):
         assert key in q, key
     # depletion = N_dust / (N_gas + N_dust): truth 28 / (12 + 28) = 0.7

@@ -20,6 +20,7 @@ from edgefit._units import HC_KEV_ANGSTROM
 from edgefit.dust import HaloGeometry, SizeGrid, TabulatedSizes, compute_table, edge_energy_grid
 from edgefit.errors import ModelError
 from edgefit.models.base import COMPONENTS, EnergyGrid
+from edgefit.models.absorption import GasEdge
 from edgefit.models.dust import DustEdge
 
 R_E = 2.8179403262e-13  # cm, CODATA 2018
@@ -79,7 +80,7 @@ def test_each_element_counted_once(table, grid):
 
     ism = SmoothISM(exclude=["Si"], nh=1.0)
     gas = GasEdge(element="Si", col=2.0)
-    dust = DustEdge(table=table, sizes="single", size=0.005, ndust=15.0, fin=1.0)
+    dust = DustEdge(table=table, sizes="single", size=0.005, col=15.0, fin=1.0)
     model = ism * gas * dust
     e = grid.mid
     tau_model = -np.log(model(grid)) + np.log(ism(grid))
@@ -91,7 +92,7 @@ def test_each_element_counted_once(table, grid):
     np.testing.assert_allclose(tau_model[above], tau_hand[above], rtol=0.01)
     # without the subtraction the grains' other atoms are counted twice: the
     # excess is N_Si,dust * sum_Y c_Y sigma_Y (xraydb), within 1 %
-    twice = DustEdge(table=table, sizes="single", size=0.005, ndust=15.0, fin=1.0,
+    twice = DustEdge(table=table, sizes="single", size=0.005, col=15.0, fin=1.0,
                      count_once=False)
     excess = -np.log(twice(grid)) + np.log(dust(grid))
     other = 15e16 * sum(c * _sigma(el, e) for el, c in OLIVINE.items() if el != "Si")
@@ -119,16 +120,26 @@ def test_small_grain_limit_and_large_grain_shielding(table, grid):
 def test_derived_quantities(table):
     # grain column = N_Si / <N_Si per grain> with the MRN closed form <a^3>
     # and xraydb masses; dust mass column = N_Si M / N_A; 1e-5.
-    dust = DustEdge(table=table, ndust=20.0)
+    dust = DustEdge(table=table, col=20.0)
     d = dust.derived()
     mass = sum(xraydb.atomic_mass(el) * n for el, n in OLIVINE.items())
     a3 = (2 * (0.25 ** 0.5 - 0.005 ** 0.5)) / (0.4 * (0.005 ** -2.5 - 0.25 ** -2.5))
     per_grain = 4 * np.pi / 3 * a3 * 1e-12 * 3.8 * N_A / mass
-    assert d["ndust_cm2"] == (pytest.approx(2e17), "cm-2")
+    assert d["col_cm2"] == (pytest.approx(2e17), "cm-2")
     assert d["grain_column"][0] == pytest.approx(2e17 / per_grain, rel=1e-5)
     assert d["dust_mass_column"][0] == pytest.approx(2e17 * mass / N_A, rel=1e-5)
     e_plus = dust.edge_energy() + 0.02
-    assert d["tau_above_edge"][0] == pytest.approx(dust.optical_depth(e_plus), rel=1e-9)
+    assert d["tau_above"][0] == pytest.approx(dust.optical_depth(e_plus), rel=1e-9)
+    # gas and dust name the column and the edge quantities alike, and place
+    # "just below / above the edge" by one rule (edge -/+ 20 eV, definition)
+    assert d["tau_below"][0] == pytest.approx(dust.optical_depth(e_plus - 0.04), rel=1e-9)
+    assert d["tau_jump"][0] == pytest.approx(d["tau_above"][0] - d["tau_below"][0], rel=1e-12)
+    gas = GasEdge(element="Si")
+    assert {"col_cm2", "tau_below", "tau_above", "tau_jump", "edge_energy"} <= \
+        set(d) & set(gas.derived())
+    assert gas.derived()["tau_above"][0] == pytest.approx(
+        gas.optical_depth(gas.edge_kev + 0.02), rel=1e-12)
+    assert [p.name for p in gas.params][0] == [p.name for p in dust.params][0] == "col"
     # shielding ratio of the MRN distribution: jump of the atom-weighted
     # average of sum_j c_j sigma_j x 3 K(w)/w (anomalous diffraction, van de
     # Hulst 1957; xraydb f2 and beta; weights a^3 n(a), scipy quad) across
@@ -154,16 +165,16 @@ def test_parameters_and_physical_limits(table, grid):
     dust = DustEdge(table=table)
     assert COMPONENTS["dust_edge"] is DustEdge
     names = list(dust.make_params())
-    assert names == ["dust_ndust", "dust_amin", "dust_amax", "dust_index", "dust_shift",
+    assert names == ["dust_col", "dust_amin", "dust_amax", "dust_index", "dust_shift",
                      "dust_fin"]
     # zero column: transmission exactly 1
-    assert np.all(dust(grid, dust_ndust=0.0) == 1.0)
+    assert np.all(dust(grid, dust_col=0.0) == 1.0)
     # optical depth linear in the column (thin or thick alike)
-    t1, t3 = dust.optical_depth(grid.mid, ndust=1.0), dust.optical_depth(grid.mid, ndust=3.0)
+    t1, t3 = dust.optical_depth(grid.mid, col=1.0), dust.optical_depth(grid.mid, col=3.0)
     np.testing.assert_allclose(t3, 3 * t1, rtol=1e-12)
     # quantities as parameter values
-    q = DustEdge(table=table, ndust=2e17 / u.cm ** 2, amax=300 * u.nm)
-    assert q.values["ndust"] == pytest.approx(20.0) and q.values["amax"] == pytest.approx(0.3)
+    q = DustEdge(table=table, col=2e17 / u.cm ** 2, amax=300 * u.nm)
+    assert q.values["col"] == pytest.approx(20.0) and q.values["amax"] == pytest.approx(0.3)
     # scattering lost from the beam adds to tau: fin=0 minus fin=1 is >= 0
     diff = dust.optical_depth(grid.mid, fin=0.0) - dust.optical_depth(grid.mid, fin=1.0)
     assert np.all(diff > 0)
@@ -197,7 +208,7 @@ def test_families_pickle_and_halo(table, grid):
                {"sizes": TabulatedSizes([0.005, 0.05, 0.25], [1.0, 1e-3, 1e-6])}):
         t = DustEdge(table=table, **kw)(grid)
         assert np.all(np.isfinite(t)) and np.all(t > 0) and np.all(t < 1.2)
-    dust = DustEdge(table=table, ndust=30.0, amax=0.4)
+    dust = DustEdge(table=table, col=30.0, amax=0.4)
     again = pickle.loads(pickle.dumps(dust))
     np.testing.assert_array_equal(again(grid), dust(grid))
     # halo mode: a huge extraction keeps all scattered light (= fin 1), a tiny
@@ -205,9 +216,9 @@ def test_families_pickle_and_halo(table, grid):
     wide = DustEdge(table=table, halo=HaloGeometry(1e6, 0.5))
     narrow = DustEdge(table=table, halo=HaloGeometry(1e-4, 0.0))
     assert not wide.make_params()["dust_fin"].vary
-    np.testing.assert_allclose(wide(grid), dust(grid, dust_fin=1.0, dust_ndust=10.0,
+    np.testing.assert_allclose(wide(grid), dust(grid, dust_fin=1.0, dust_col=10.0,
                                                 dust_amax=0.25), rtol=1e-9)
-    np.testing.assert_allclose(narrow(grid), dust(grid, dust_fin=0.0, dust_ndust=10.0,
+    np.testing.assert_allclose(narrow(grid), dust(grid, dust_fin=0.0, dust_col=10.0,
                                                   dust_amax=0.25), rtol=1e-6)
 
 

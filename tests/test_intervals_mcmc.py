@@ -22,6 +22,7 @@ from edgefit.inference import (Dataset, GaussianPrior, LogPosterior, delta_stati
                                profile_intervals, run_mcmc)
 from edgefit.inference._testing import (TOY_TRUTH, ToyEdgeAbsorber, simulate_counts,
                                         toy_model, toy_response)
+from edgefit.models.base import COLUMN_KEY
 from edgefit.models.continuum import PhotonPowerLaw
 
 TRUTH = TOY_TRUTH
@@ -100,10 +101,10 @@ def test_mcmc_agrees_with_profile_within_ten_percent(fitted):
     der = derived_quantities(res)
     jump = der["abs_edge_jump"]
     assert jump.median == pytest.approx(med, rel=5e-3)  # 2000 of the draws
-    e_ref = 1.005 * 1.84
+    e_ref = 1.84 + 0.020    # edge + 20 eV (atomic.EDGE_OFFSET_KEV)
     tau = der["abs_tau"]
     assert tau.best == pytest.approx(0.4 * (e_ref / 1.9) ** -3 + res.values["abs_step"]
-                                     * 1.005 ** -3, rel=1e-12)
+                                     * (e_ref / 1.84) ** -3, rel=1e-12)
     # posterior predictive check of a correct model is not extreme
     ppc = posterior_predictive(res, n_draws=100, seed=3)
     assert 0.01 < ppc["p_value"] < 0.99
@@ -176,7 +177,7 @@ class _Phased(ToyEdgeAbsorber):
 
     def derived(self, **values):
         v = self._merged(values)
-        return {"element_column": (v["step"] * 1e16, "cm-2")}
+        return {COLUMN_KEY: (v["step"] * 1e16, "cm-2")}
 
 
 def test_depletion_uses_declared_phase_not_names():

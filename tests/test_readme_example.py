@@ -32,7 +32,7 @@ def test_readme_python_example_runs(tmp_path, monkeypatch):
         exec(compile(code, str(README), "exec"), namespace)  # our own README, not user input
     result = namespace["result"]
     assert (tmp_path / "my-results" / "fit.ecsv").is_file()
-    for name in ("gas_si_col", "dust_ndust"):
+    for name in ("gas_si_col", "dust_col"):
         iv = result.intervals[name]
         level = min(iv, key=lambda lv: abs(lv - 0.6827))
         lo, hi = iv[level].lower, iv[level].upper

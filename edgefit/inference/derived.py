@@ -10,9 +10,11 @@ each component of the model:
   component that defines ``optical_depth(energy_kev, **values)``, at a
   reference energy.  The reference is, in order: a value given by the
   caller (one energy for all, or per component name); the component's
-  ``reference_energy_kev`` attribute; ``REFERENCE_FACTOR`` times its
-  ``edge_energy_kev`` / ``edge_kev`` attribute or ``edge_energy()`` method, i.e. just above the
-  edge.  Components with none of these are skipped.
+  ``reference_energy_kev`` attribute; its ``edge_energy_kev`` /
+  ``edge_kev`` attribute or ``edge_energy()`` method plus
+  :data:`~edgefit.physics.atomic.EDGE_OFFSET_KEV` (20 eV), i.e. just above
+  the edge by the same rule as the components' ``tau_above``.  Components
+  with none of these are skipped.
 * ``<component>_<key>``: every entry of the component's
   ``derived(**values)`` dict (e.g. element column, grain column density,
   dust mass column, self-shielding ratio, N_H), with the unit it states.
@@ -20,7 +22,7 @@ each component of the model:
   that has both a gas-phase and a dust component.  A component takes part
   when its class declares ``phase = "gas"`` or ``phase = "dust"`` and an
   ``element`` (e.g. "Si"), and its ``derived`` dict has an element column
-  in cm^-2 under one of :data:`COLUMN_KEYS`; several components of one
+  in cm^-2 under :data:`~edgefit.models.base.COLUMN_KEY` (``col_cm2``); several components of one
   phase add up.  No name is guessed: a component without ``phase`` never
   enters a depletion.
 """
@@ -31,14 +33,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..models.base import ADDITIVE
+from ..models.base import ADDITIVE, COLUMN_KEY
+from ..physics.atomic import EDGE_OFFSET_KEV
 
-__all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "REFERENCE_FACTOR",
-           "COLUMN_KEYS", "PHASES"]
-
-#: Default reference energy = REFERENCE_FACTOR x edge energy ("just above
-#: the edge": 0.5 %, about 9 eV above the Si K edge).
-REFERENCE_FACTOR = 1.005
+__all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "COLUMN_KEY",
+           "PHASES"]
 
 
 @dataclass
@@ -112,16 +111,6 @@ class DerivedSummary:
         return out
 
 
-#: Keys of ``derived()`` entries that hold the column density of the
-#: component's ``element`` in cm^-2, looked up in this order:
-#:
-#: * ``"element_column"`` -- the generic key for new components;
-#: * ``"col_cm2"`` -- :class:`~edgefit.models.absorption.GasEdge`, gas-phase
-#:   column N_Z,gas (reported as ``<name>_col_cm2``);
-#: * ``"ndust_cm2"`` -- :class:`~edgefit.models.dust.DustEdge`, column of the
-#:   element locked in grains N_Z,dust (reported as ``<name>_ndust_cm2``).
-COLUMN_KEYS = ("element_column", "col_cm2", "ndust_cm2")
-
 #: Phases that enter a depletion.
 PHASES = ("gas", "dust")
 
@@ -150,7 +139,7 @@ def _reference_energy(comp, reference_energy):
             except TypeError:
                 val = None
         if val is not None:
-            return REFERENCE_FACTOR * float(val)
+            return float(val) + EDGE_OFFSET_KEV
     return None
 
 
@@ -175,10 +164,9 @@ def _evaluate_all(model, values, refs):
             out[f"{comp.name}_{key}"] = (float(val), unit, f"{type(comp).__name__}.{key}")
         element = getattr(comp, "element", None)
         phase = _phase(comp)
-        col_key = next((k for k in COLUMN_KEYS if k in der), None)
-        if element and phase and col_key:
+        if element and phase and COLUMN_KEY in der:
             columns.setdefault(element, {}).setdefault(phase, 0.0)
-            columns[element][phase] += float(der[col_key][0])
+            columns[element][phase] += float(der[COLUMN_KEY][0])
     for element, by_phase in columns.items():
         if "gas" in by_phase and "dust" in by_phase:
             tot = by_phase["gas"] + by_phase["dust"]

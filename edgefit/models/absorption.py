@@ -21,7 +21,7 @@ from .._units import as_kev
 from ..errors import ModelError
 from ..physics import abundances as _ab
 from ..physics import atomic, hydrogen, lines as _lines
-from .base import MULTIPLICATIVE, Component, EnergyGrid, Param
+from .base import COLUMN_KEY, MULTIPLICATIVE, Component, EnergyGrid, Param
 
 __all__ = ["SmoothISM", "GasEdge", "IonLines"]
 
@@ -259,17 +259,19 @@ class GasEdge(Component):
         return float(tau[0]) if scalar else tau
 
     def derived(self, **values):
-        """Gas column (cm^-2); optical depth 1 % above and below the edge
-        (tabulated edge energy plus shift) and their difference, the edge
-        jump."""
+        """Gas column ``col_cm2`` (cm^-2); the optical depth just below and
+        just above the edge (edge position plus shift, -/+ 20 eV:
+        :func:`edgefit.physics.atomic.edge_bracket`) and their difference,
+        the edge jump; the shifted edge energy."""
         v = self._merged(values)
         n_z = v["col"] * _EDGE_COL_UNIT
         e_edge = self.edge_kev + v["shift"] * 1e-3
-        above = n_z * self.sigma(e_edge * 1.01, v["shift"])
-        below = n_z * self.sigma(e_edge * 0.99, v["shift"])
-        return {"col_cm2": (n_z, "cm-2"),
-                "tau_above": (float(above), ""),
+        e_lo, e_hi = atomic.edge_bracket(e_edge)
+        above = n_z * self.sigma(e_hi, v["shift"])
+        below = n_z * self.sigma(e_lo, v["shift"])
+        return {COLUMN_KEY: (n_z, "cm-2"),
                 "tau_below": (float(below), ""),
+                "tau_above": (float(above), ""),
                 "tau_jump": (float(above - below), ""),
                 "edge_energy": (e_edge, "keV")}
 

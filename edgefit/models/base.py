@@ -38,10 +38,15 @@ from ..errors import ModelError, ParameterClashError, UnknownParameterError
 from ..grid import EnergyGrid
 
 __all__ = ["EnergyGrid", "Param", "ModelNode", "Component", "CompositeModel",
-           "COMPONENTS", "register_component", "MULTIPLICATIVE", "ADDITIVE"]
+           "COMPONENTS", "register_component", "MULTIPLICATIVE", "ADDITIVE", "COLUMN_KEY"]
 
 MULTIPLICATIVE = "multiplicative"
 ADDITIVE = "additive"
+
+#: The key under which every component's ``derived()`` reports the column
+#: density of its ``element`` in cm^-2 (gas, dust or any other phase);
+#: depletions are formed from it.
+COLUMN_KEY = "col_cm2"
 
 #: Registry of component classes by their ``registry_name``; used by the
 #: generic tests and by the safe configuration-file parser.

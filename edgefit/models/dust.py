@@ -40,7 +40,8 @@ than free O).  Pass ``count_once=False`` when no smooth component is used.
 
 Parameters of the component (full names ``<name>_<param>``)
 -----------------------------------------------------------
-``ndust``  column of the edge element in grains, 1e16 cm^-2;
+``col``  column of the edge element in grains, 1e16 cm^-2 (named like
+:class:`~edgefit.models.absorption.GasEdge`'s gas column);
 size-distribution parameters of the chosen family
 (:data:`edgefit.dust.sizes.FAMILIES`: ``power_law`` amin/amax/index,
 ``single`` size, ``lognormal`` center/width/amin/amax, ``cutoff``
@@ -67,12 +68,9 @@ import numpy as np
 from .._units import as_kev
 from ..errors import ModelError, PhysicsDataError
 from ..physics import atomic
-from .base import MULTIPLICATIVE, Component, EnergyGrid, Param
+from .base import COLUMN_KEY, MULTIPLICATIVE, Component, EnergyGrid, Param
 
 __all__ = ["DustEdge"]
-
-_EDGE_OFFSET_KEV = 0.02   # "just below/above the edge": E_edge -/+ 20 eV
-
 
 def _tables():
     from ..dust import tables
@@ -90,7 +88,7 @@ class DustEdge(Component):
         Built-in material name (``"olivine"``, ``"pyroxene"`` ...) or a
         :class:`~edgefit.dust.materials.Material`.
     element : str
-        The edge element Z whose dust column is the parameter ``ndust``.
+        The edge element Z whose dust column is the parameter ``col``.
     sizes : str or SizeDistribution
         Family name (``"power_law"`` -- MRN defaults --, ``"single"``,
         ``"lognormal"``, ``"cutoff"``) whose parameters become fit
@@ -125,7 +123,7 @@ class DustEdge(Component):
     #: :mod:`edgefit.inference.derived` to form depletions).
     phase = "dust"
     _BASE_PARAMS = (
-        Param("ndust", 10.0, 0.0, 1.0e5, "1e16 cm-2",
+        Param("col", 10.0, 0.0, 1.0e5, "1e16 cm-2",
               "column density of the edge element locked in grains"),
     )
     _TAIL_PARAMS = (
@@ -269,7 +267,7 @@ class DustEdge(Component):
 
     def _tau_table(self, table, pre, vals):
         s_abs, lost, _ = self._per_atom(table, pre, vals)
-        return vals["ndust"] * 1e16 * (s_abs + lost - pre["other"])
+        return vals["col"] * 1e16 * (s_abs + lost - pre["other"])
 
     # -- Component interface ---------------------------------------------
     def precompute(self, grid: EnergyGrid):
@@ -303,9 +301,12 @@ class DustEdge(Component):
         return atomic.edge_position(self.element, edge)
 
     def derived(self, **values):
-        """N_Z in dust (cm^-2), grain column (cm^-2), dust mass column
-        (g cm^-2), the dust optical depth 20 eV above the edge and its jump
-        across the edge (±20 eV), and the self-shielding ratio of the
+        """N_Z in dust ``col_cm2`` (cm^-2), grain column (cm^-2), dust mass
+        column (g cm^-2), the dust optical depth just below and just above
+        the edge and its jump across the edge (edge position plus shift,
+        -/+ 20 eV: :func:`edgefit.physics.atomic.edge_bracket`, the same
+        rule as :class:`~edgefit.models.absorption.GasEdge`), the shifted
+        edge energy, and the self-shielding ratio of the
         distribution: the jump of ⟨σ_abs⟩ per Z atom over the unshielded
         jump of the same atoms, σ_Z(E+) − σ_Z(E−) plus the other atoms'
         (small) change, as in :mod:`edgefit.dust.shielding`.  For Fe the
@@ -313,10 +314,10 @@ class DustEdge(Component):
         and L2, so the jump is that of the whole L2,3 pair."""
         vals = self._merged(values)
         e0 = self.edge_energy() + vals["shift"] * 1e-3
-        e_lo, e_hi = e0 - _EDGE_OFFSET_KEV, e0 + _EDGE_OFFSET_KEV
+        e_lo, e_hi = atomic.edge_bracket(e0)
         table, pre = self._table_for(e_lo - 0.02, e_hi + 0.02)
         s_abs, lost, atoms = self._per_atom(table, pre, vals)
-        n = vals["ndust"] * 1e16
+        n = vals["col"] * 1e16
         tau_t = n * (s_abs + lost - pre["other"])
         eq = np.array([e_lo, e_hi]) - vals["shift"] * 1e-3
         tau_lo, tau_hi = np.interp(eq, pre["energy"], tau_t)
@@ -325,11 +326,13 @@ class DustEdge(Component):
             eq, pre["energy"], pre["other_atoms"])
         mass = n * self.material.mass_per_atom(self.element)
         return {
-            "ndust_cm2": (n, "cm-2"),
+            COLUMN_KEY: (n, "cm-2"),
             "grain_column": (n / atoms, "cm-2"),
             "dust_mass_column": (mass, "g cm-2"),
-            "tau_above_edge": (float(tau_hi), ""),
-            "tau_edge_jump": (float(tau_hi - tau_lo), ""),
+            "tau_below": (float(tau_lo), ""),
+            "tau_above": (float(tau_hi), ""),
+            "tau_jump": (float(tau_hi - tau_lo), ""),
+            "edge_energy": (e0, "keV"),
             "shielding_ratio": (float((abs_hi - abs_lo) / (sig_hi - sig_lo)), ""),
         }
 

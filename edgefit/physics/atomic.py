@@ -51,6 +51,7 @@ from ..errors import PhysicsDataError
 __all__ = [
     "ELEMENTS", "CLASSICAL_ELECTRON_RADIUS_CM", "AVOGADRO",
     "element_symbol", "atomic_number", "atomic_mass", "edge_energy", "edge_position", "edges",
+    "EDGE_OFFSET_KEV", "edge_bracket",
     "scattering_factors", "photoabsorption", "table", "energy_range",
 ]
 
@@ -170,6 +171,24 @@ def edge_position(element, edge: str = "K") -> float:
     logs = np.log(photoabsorption(sym, grid))
     i = int(np.argmax(np.diff(logs)))
     return float(0.5 * (grid[i] + grid[i + 1]))
+
+
+#: The one rule for "just below" and "just above" an edge in edgefit: the
+#: edge as placed by :func:`edge_position` minus / plus 20 eV.  A fixed
+#: energy step (rather than a fraction of the edge energy) keeps the
+#: near-edge structure of the solid, which spans a similar number of eV at
+#: every edge, equally inside or outside the bracket; for Fe the bracket
+#: around L3 (0.688-0.728 keV) spans L2 as well.  Every edge component's
+#: ``tau_below`` / ``tau_above`` / ``tau_jump`` and the default reference
+#: energy of derived optical depths use it.
+EDGE_OFFSET_KEV = 0.020
+
+
+def edge_bracket(edge_kev: float) -> tuple[float, float]:
+    """(just below, just above) an edge at ``edge_kev``: ``edge_kev`` -/+
+    :data:`EDGE_OFFSET_KEV`."""
+    e = float(edge_kev)
+    return e - EDGE_OFFSET_KEV, e + EDGE_OFFSET_KEV
 
 
 class _Table:
