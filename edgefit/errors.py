@@ -11,7 +11,10 @@ import os
 
 __all__ = [
     "EdgefitError",
+    "ArgumentError",
+    "MissingDependencyError",
     "InputFileError",
+    "MissingFileError",
     "NotFITSError",
     "TruncatedFileError",
     "MissingExtensionError",
@@ -40,6 +43,18 @@ class EdgefitError(Exception):
     """Base class of every error edgefit raises on purpose."""
 
 
+class ArgumentError(EdgefitError, ValueError):
+    """A function or method was called with an argument it cannot use (an
+    unknown choice, a value out of range, arrays of mismatched lengths) or
+    on an object that lacks what the call needs."""
+
+
+class MissingDependencyError(EdgefitError, ImportError):
+    """An optional package was asked for but is not installed: the numba
+    accelerator (``backend="numba"``), or matplotlib/corner for plots.  The
+    one error type for every such case; the message says what to install."""
+
+
 class InputFileError(EdgefitError, ValueError):
     """A file given by the user cannot be used.
 
@@ -55,6 +70,10 @@ class InputFileError(EdgefitError, ValueError):
         self.path = os.fspath(path) if path is not None else "<memory>"
         self.problem = problem
         super().__init__(f"{self.path}: {problem}")
+
+
+class MissingFileError(InputFileError):
+    """The file does not exist."""
 
 
 class NotFITSError(InputFileError):

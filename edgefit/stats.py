@@ -17,6 +17,8 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import gammaln, xlogy
 
+from .errors import ArgumentError
+
 __all__ = [
     "cash", "c_statistic", "deviance_residuals", "chi_square",
     "profiled_background_level", "profiled_background_statistic",
@@ -102,10 +104,10 @@ def chi_square(model, counts, variance="data", sigma=None):
         var = (1.0 + np.sqrt(n + 0.75)) ** 2
     elif variance == "given":
         if sigma is None:
-            raise ValueError("variance='given' needs sigma")
+            raise ArgumentError("variance='given' needs sigma")
         var = np.asarray(sigma, dtype=float) ** 2
     else:
-        raise ValueError(f"unknown variance choice {variance!r}")
+        raise ArgumentError(f"unknown variance choice {variance!r}")
     return float(np.sum((n - m) ** 2 / var))
 
 

@@ -33,7 +33,7 @@ from astropy import units as u
 from scipy.integrate import quad
 from scipy.special import voigt_profile
 
-from edgefit.errors import PhysicsDataError
+from edgefit.errors import MissingDependencyError, PhysicsDataError
 from edgefit.physics import atomic
 from edgefit.physics import lines as L
 
@@ -356,5 +356,5 @@ def test_backend_choice_without_numba(monkeypatch):
     args = (np.array([2.0]), np.array([1e-4]), np.array([3e-4]), np.array([1e-5]))
     t = L._transmission(grid, *args)
     np.testing.assert_array_equal(t, L._transmission(grid, *args, backend="numpy"))
-    with pytest.raises(PhysicsDataError, match="numba"):
+    with pytest.raises(MissingDependencyError, match="numba"):
         L._transmission(grid, *args, backend="numba")

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 
 from edgefit.dust.mie import MieEfficiencies, mie_efficiencies, n_terms, numba_available
+from edgefit.errors import MissingDependencyError
 
 BACKENDS = ["numpy"] + (["numba"] if numba_available() else [])
 
@@ -182,7 +183,7 @@ def test_numba_backend_refused_without_numba(monkeypatch):
     import edgefit.dust.mie as mie
     monkeypatch.setitem(mie._NUMBA, "tried", True)
     monkeypatch.setitem(mie._NUMBA, "batch", None)
-    with pytest.raises(ImportError, match="numba"):
+    with pytest.raises(MissingDependencyError, match="numba"):
         mie_efficiencies(1.5, 2.0, backend="numba")
     # "auto" falls back to NumPy silently, with the published B&H value
     r = mie_efficiencies(1.55, 2 * np.pi * 0.525 / 0.6328)

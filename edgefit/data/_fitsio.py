@@ -14,7 +14,7 @@ import numpy as np
 from astropy.io import fits
 
 from ..errors import (InputFileError, MissingColumnError, MissingExtensionError,
-                      NotFITSError, TruncatedFileError)
+                      MissingFileError, NotFITSError, TruncatedFileError)
 
 __all__ = ["open_fits", "find_hdu", "Table"]
 
@@ -43,9 +43,8 @@ def open_fits(path):
 
     Raises
     ------
-    FileNotFoundError
-        The file does not exist (an ``OSError``; the command line turns it
-        into one line).
+    MissingFileError
+        The file does not exist.
     NotFITSError
         The file does not begin with a FITS primary header.
     TruncatedFileError
@@ -53,7 +52,7 @@ def open_fits(path):
     """
     path = os.fspath(path)
     if not os.path.isfile(path):
-        raise FileNotFoundError(f"{path}: no such file")
+        raise MissingFileError(path, "no such file")
     size = os.path.getsize(path)
     with open(path, "rb") as fh:
         head = fh.read(80)

@@ -12,6 +12,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from ..errors import ArgumentError
+
 __all__ = ["group_min_counts", "group_starts", "group_sum", "grouping_matrix",
            "group_bounds"]
 
@@ -41,7 +43,7 @@ def group_min_counts(counts, min_counts, quality=None, mask=None) -> np.ndarray:
     """
     n = np.asarray(counts, dtype=float)
     if min_counts <= 0:
-        raise ValueError("min_counts must be positive")
+        raise ArgumentError("min_counts must be positive")
     usable = np.ones(n.size, bool)
     if quality is not None:
         usable &= np.asarray(quality) == 0

@@ -32,9 +32,9 @@ import numpy as np
 import scipy.sparse as sp
 from astropy.io import fits
 
-from ..errors import (BadCountsError, BadExposureError, BadGridError, ChannelMismatchError,
-                      GridMismatchError, InputFileError, InputWarning, MissingColumnError,
-                      MissingExtensionError, MissingRowError)
+from ..errors import (ArgumentError, BadCountsError, BadExposureError, BadGridError,
+                      ChannelMismatchError, GridMismatchError, InputFileError, InputWarning,
+                      MissingColumnError, MissingExtensionError, MissingRowError)
 from .._units import HC_KEV_ANGSTROM
 from ._fitsio import (Table, as_str, energy_scale, find_hdu, find_hdu_or_none, open_fits,
                       to_float_array)
@@ -752,14 +752,14 @@ def write_pha(path, spectra, *, overwrite=False, respfile=None, ancrfile=None, b
     """
     specs = [spectra] if isinstance(spectra, Spectrum) else list(spectra)
     if not specs:
-        raise ValueError("write_pha needs at least one spectrum")
+        raise ArgumentError("write_pha needs at least one spectrum")
     if type2 is None:
         type2 = len(specs) > 1
     if not type2 and len(specs) != 1:
-        raise ValueError("a type I file holds exactly one spectrum")
+        raise ArgumentError("a type I file holds exactly one spectrum")
     n = specs[0].n_channels
     if any(s.n_channels != n for s in specs):
-        raise ValueError("all rows of a type II file need the same number of channels")
+        raise ArgumentError("all rows of a type II file need the same number of channels")
     first = specs[0]
     simulated = any(bool(s.meta.get("simulated")) for s in specs)
 
@@ -985,7 +985,7 @@ def write_dataset(directory, stem, spectra, response: Response, *, overwrite=Fal
     bkgs = [s.background for s in specs]
     if any(b is not None for b in bkgs):
         if any(b is None for b in bkgs):
-            raise ValueError("either every spectrum has a background or none has")
+            raise ArgumentError("either every spectrum has a background or none has")
         paths["bkg"] = os.path.join(directory, f"{stem}_bkg.pha")
         for b, s in zip(bkgs, specs):
             b.meta.setdefault("order", s.meta.get("order"))

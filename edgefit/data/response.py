@@ -19,6 +19,7 @@ from scipy.special import ndtr
 
 from ..grid import EnergyGrid
 from .._units import HC_KEV_ANGSTROM, as_kev, to_value
+from ..errors import ArgumentError
 
 __all__ = ["Response", "gaussian_response", "FWHM_TO_SIGMA"]
 
@@ -52,19 +53,19 @@ class Response:
         rmf = sp.csr_array(matrix, dtype=float)
         n_chan, n_en = rmf.shape
         if n_en != len(self.grid):
-            raise ValueError(f"matrix has {n_en} energy columns but the grid has "
+            raise ArgumentError(f"matrix has {n_en} energy columns but the grid has "
                              f"{len(self.grid)} bins")
         self.channel_emin = np.asarray(channel_emin, dtype=float)
         self.channel_emax = np.asarray(channel_emax, dtype=float)
         if self.channel_emin.shape != (n_chan,) or self.channel_emax.shape != (n_chan,):
-            raise ValueError(f"EBOUNDS has {self.channel_emin.size} channels but the "
+            raise ArgumentError(f"EBOUNDS has {self.channel_emin.size} channels but the "
                              f"matrix has {n_chan}")
         self.channels = (np.arange(n_chan) + int(first_channel) if channels is None
                          else np.asarray(channels, dtype=int))
         self.specresp = (np.ones(n_en) if specresp is None
                          else np.asarray(specresp, dtype=float))
         if self.specresp.shape != (n_en,):
-            raise ValueError("effective area and matrix energy grids differ in length")
+            raise ArgumentError("effective area and matrix energy grids differ in length")
         self.rmf = rmf
         # ARF folded into the matrix once: R @ diag(A)
         self._matrix = sp.csr_array(rmf @ sp.diags_array(self.specresp))
@@ -121,7 +122,7 @@ class Response:
         where a fit window needs it."""
         mask = np.asarray(channel_mask, dtype=bool)
         if mask.shape != (self.n_channels,):
-            raise ValueError("channel mask length differs from the number of channels")
+            raise ArgumentError("channel mask length differs from the number of channels")
         rows = self.rmf[np.flatnonzero(mask)]
         used = np.flatnonzero(np.asarray(abs(rows).sum(axis=0)).ravel() > 0)
         if used.size == 0:
@@ -197,7 +198,7 @@ def gaussian_response(energy_edges_kev, channel_edges_kev, fwhm, area_cm2=1.0, *
     e_edges = np.sort(np.asarray(as_kev(energy_edges_kev, "energy_edges_kev"), float))
     c_edges = np.sort(np.asarray(as_kev(channel_edges_kev, "channel_edges_kev"), float))
     if e_edges.ndim != 1 or e_edges.size < 2 or c_edges.ndim != 1 or c_edges.size < 2:
-        raise ValueError("energy and channel edges need at least two values each")
+        raise ArgumentError("energy and channel edges need at least two values each")
     if isinstance(fwhm, u.Quantity):
         if fwhm.unit.physical_type == "length":
             fwhm_unit, width = "angstrom", to_value(fwhm, u.AA, "fwhm")
@@ -207,9 +208,9 @@ def gaussian_response(energy_edges_kev, channel_edges_kev, fwhm, area_cm2=1.0, *
         width = float(fwhm)
     fwhm_unit = fwhm_unit.lower()
     if fwhm_unit not in ("angstrom", "kev"):
-        raise ValueError("fwhm_unit must be 'angstrom' or 'kev'")
+        raise ArgumentError("fwhm_unit must be 'angstrom' or 'kev'")
     if not (np.isfinite(width) and width > 0):
-        raise ValueError("fwhm must be positive")
+        raise ArgumentError("fwhm must be positive")
     sigma = width * FWHM_TO_SIGMA
     lo, hi = e_edges[:-1], e_edges[1:]
     mid = 0.5 * (lo + hi)
@@ -248,7 +249,7 @@ def gaussian_response(energy_edges_kev, channel_edges_kev, fwhm, area_cm2=1.0, *
     else:
         area = np.broadcast_to(np.asarray(area_cm2, dtype=float), (n_en,)).copy()
     if area.shape != (n_en,) or not np.all(np.isfinite(area)) or np.any(area < 0):
-        raise ValueError("area_cm2 must be finite, non-negative and one value per energy bin")
+        raise ArgumentError("area_cm2 must be finite, non-negative and one value per energy bin")
     info = {"lsf": "gaussian", "fwhm": width, "fwhm_unit": fwhm_unit, "n_sigma": n_sigma}
     info.update(meta or {})
     return Response(lo, hi, rmf, emin, emax, first_channel=first_channel, specresp=area,

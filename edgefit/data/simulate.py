@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import BadExposureError, ModelError
+from ..errors import ArgumentError, BadExposureError, ModelError
 from .response import Response
 from .spectrum import Spectrum
 
@@ -29,7 +29,7 @@ def _rng(rng):
     if isinstance(rng, np.random.Generator):
         return rng
     if rng is None:
-        raise ValueError("pass a seed or a numpy Generator: simulations must be reproducible")
+        raise ArgumentError("pass a seed or a numpy Generator: simulations must be reproducible")
     return np.random.default_rng(rng)
 
 

@@ -8,7 +8,7 @@ import numpy as np
 from astropy import units as u
 
 from .._units import HC_KEV_ANGSTROM, as_kev
-from ..errors import BadCountsError, BadExposureError, ChannelMismatchError
+from ..errors import ArgumentError, BadCountsError, BadExposureError, ChannelMismatchError
 
 __all__ = ["Spectrum"]
 
@@ -105,7 +105,7 @@ class Spectrum:
     def channel_bounds(self):
         """(emin, emax) of each channel in keV, from the attached response."""
         if self.response is None:
-            raise ValueError(f"{self.name}: no response attached, channel energies unknown")
+            raise ArgumentError(f"{self.name}: no response attached, channel energies unknown")
         return self.response.channel_emin, self.response.channel_emax
 
     def select(self, lo, hi, unit="keV", good_only=False) -> np.ndarray:
@@ -128,7 +128,7 @@ class Spectrum:
         """
         unit = str(unit).lower()
         if unit not in ("kev", "angstrom"):
-            raise ValueError("unit must be 'keV' or 'angstrom'")
+            raise ArgumentError("unit must be 'keV' or 'angstrom'")
 
         def kev(x, name):
             if isinstance(x, u.Quantity):
@@ -164,7 +164,7 @@ class Spectrum:
         per channel or scalar.  Raises if no background is attached."""
         b = self.background
         if b is None:
-            raise ValueError(f"{self.name}: no background attached")
+            raise ArgumentError(f"{self.name}: no background attached")
         return ((self.exposure * np.asarray(self.backscal, float) *
                  np.asarray(self.areascal, float)) /
                 (b.exposure * np.asarray(b.backscal, float) * np.asarray(b.areascal, float)))
@@ -173,5 +173,5 @@ class Spectrum:
         """A copy with another GROUPING array (see :mod:`edgefit.data.grouping`)."""
         g = None if grouping is None else np.asarray(grouping, dtype=int)
         if g is not None and g.shape != (self.n_channels,):
-            raise ValueError("grouping must have one entry per channel")
+            raise ArgumentError("grouping must have one entry per channel")
         return replace(self, grouping=g, meta=dict(self.meta))

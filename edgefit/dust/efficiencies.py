@@ -49,6 +49,7 @@ import numpy as np
 
 from .adt import adt_efficiencies
 from .mie import MieEfficiencies, _prepare_index, mie_efficiencies
+from ..errors import ArgumentError
 
 __all__ = ["efficiencies", "adt_error_bound", "DEFAULT_RTOL", "MAX_ERROR_RATIO"]
 
@@ -114,9 +115,9 @@ def efficiencies(m, x, method="auto", rtol=DEFAULT_RTOL, *, m_minus_1=None,
     if method == "adt":
         return adt_efficiencies(m, x, m_minus_1=m_minus_1)
     if method != "auto":
-        raise ValueError(f"method must be 'auto', 'mie' or 'adt', not {method!r}")
+        raise ArgumentError(f"method must be 'auto', 'mie' or 'adt', not {method!r}")
     if not (0 < rtol <= 0.1):
-        raise ValueError("rtol must be in (0, 0.1]; ADT is not a useful "
+        raise ArgumentError("rtol must be in (0, 0.1]; ADT is not a useful "
                          "approximation beyond 10 %")
     m, mm1, x = _prepare_index(m, x, m_minus_1)
     scalar = x.ndim == 0

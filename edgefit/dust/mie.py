@@ -108,6 +108,8 @@ from collections import namedtuple
 
 import numpy as np
 
+from ..errors import ArgumentError, MissingDependencyError
+
 __all__ = ["MieEfficiencies", "mie_efficiencies", "n_terms", "numba_available",
            "PARALLEL_MIN_TERMS"]
 
@@ -136,22 +138,22 @@ def _check_inputs(m, x):
     m = np.asarray(m)
     x = np.asarray(x)
     if not np.issubdtype(x.dtype, np.number) or np.iscomplexobj(x):
-        raise ValueError("size parameter x must be real (x = 2 pi a / lambda)")
+        raise ArgumentError("size parameter x must be real (x = 2 pi a / lambda)")
     m = m.astype(complex)
     x = x.astype(float)
     if not np.all(np.isfinite(x)) or np.any(x <= 0):
-        raise ValueError("size parameter x must be finite and > 0 (x = 2 pi a / lambda)")
+        raise ArgumentError("size parameter x must be finite and > 0 (x = 2 pi a / lambda)")
     if not np.all(np.isfinite(m)):
-        raise ValueError("refractive index m must be finite")
+        raise ArgumentError("refractive index m must be finite")
     if np.any(m.imag < 0):
-        raise ValueError(
+        raise ArgumentError(
             "refractive index m has a negative imaginary part; edgefit uses "
             "m = n + i kappa = 1 - delta + i beta with kappa >= 0 for absorption "
             "(time dependence exp(-i omega t), Bohren & Huffman 1983). Indices "
             "written n - i kappa (e.g. xraydb's xray_delta_beta, miepython) must be "
             "conjugated: pass np.conj(m).")
     if np.any(m.real <= 0):
-        raise ValueError("refractive index m must have a positive real part")
+        raise ArgumentError("refractive index m must have a positive real part")
     return m, x
 
 
@@ -492,10 +494,10 @@ def mie_efficiencies(m, x, *, backend="auto", m_minus_1=None,
     nstart = _n_start(nstop, np.abs(mf * xf))
     out = np.empty((4, xf.size))
     if backend not in ("auto", "numba", "numpy"):
-        raise ValueError(f"backend must be 'auto', 'numba' or 'numpy', not {backend!r}")
+        raise ArgumentError(f"backend must be 'auto', 'numba' or 'numpy', not {backend!r}")
     kernel = None if backend == "numpy" else _numba_batch()
     if backend == "numba" and kernel is None:
-        raise ImportError("backend='numba' needs numba (pip install numba); "
+        raise MissingDependencyError("backend='numba' needs numba (pip install numba); "
                           "use backend='numpy' or 'auto'")
     if xf.size:
         if kernel is not None:

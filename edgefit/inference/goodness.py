@@ -30,6 +30,7 @@ from scipy import stats as sps
 
 from .. import stats
 from ..stats import profiled_background_level
+from ..errors import ArgumentError
 
 __all__ = ["c_statistic_goodness", "posterior_predictive"]
 
@@ -103,7 +104,7 @@ def posterior_predictive(result, samples=None, n_draws=200, seed=None):
                                               size=4 * n_draws)
             samples = np.clip(samples, pv.lower, pv.upper)
         else:
-            raise ValueError("posterior predictive check needs MCMC samples or a covariance")
+            raise ArgumentError("posterior predictive check needs MCMC samples or a covariance")
     samples = np.asarray(samples, dtype=float)
     pick = rng.choice(len(samples), size=min(n_draws, len(samples)), replace=False)
     like = result.likelihood

@@ -28,7 +28,7 @@ import numpy as np
 from scipy import optimize
 from scipy import stats as sps
 
-from ..errors import UnknownParameterError
+from ..errors import ArgumentError, UnknownParameterError
 from .result import Interval
 
 __all__ = ["delta_statistic", "profile_interval", "profile_intervals", "ProfileScan"]
@@ -38,7 +38,7 @@ def delta_statistic(level: float) -> float:
     """Delta S for a confidence ``level`` with one parameter of interest:
     the chi-square(1 dof) quantile (1.0 at 0.6827, 2.706 at 0.90)."""
     if not 0 < level < 1:
-        raise ValueError(f"confidence level must be between 0 and 1, got {level}")
+        raise ArgumentError(f"confidence level must be between 0 and 1, got {level}")
     return float(sps.chi2.ppf(level, 1))
 
 

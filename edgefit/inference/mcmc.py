@@ -22,7 +22,7 @@ import warnings
 
 import numpy as np
 
-from ..errors import FitError, ShortChainWarning
+from ..errors import ArgumentError, FitError, ShortChainWarning
 from .likelihood import ParameterVector
 
 __all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc"]
@@ -38,7 +38,7 @@ class GaussianPrior:
         self.mean = float(mean)
         self.sigma = float(sigma)
         if not self.sigma > 0:
-            raise ValueError("GaussianPrior: sigma must be positive")
+            raise ArgumentError("GaussianPrior: sigma must be positive")
 
     def __call__(self, x):
         return -0.5 * ((x - self.mean) / self.sigma) ** 2
@@ -67,7 +67,7 @@ class LogPosterior:
         self.priors = dict(priors or {})
         unknown = set(self.priors) - set(self.pv.free)
         if unknown:
-            raise ValueError(f"priors given for parameters that are not free: {sorted(unknown)}")
+            raise ArgumentError(f"priors given for parameters that are not free: {sorted(unknown)}")
         self._prior_index = [(self.pv.free.index(n), f) for n, f in self.priors.items()]
 
     def __call__(self, theta):

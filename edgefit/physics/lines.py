@@ -47,7 +47,7 @@ from scipy.special import voigt_profile
 
 from .._paths import data_file
 from .._units import HC_KEV_ANGSTROM
-from ..errors import PhysicsDataError
+from ..errors import MissingDependencyError, PhysicsDataError
 from .atomic import CLASSICAL_ELECTRON_RADIUS_CM
 
 __all__ = ["IonLine", "ion_lines", "ion_keys", "SPEED_OF_LIGHT_KMS", "HBAR_KEV_S",
@@ -685,7 +685,7 @@ def _numba_kernel(required=False):
                 except RuntimeError:          # no writable cache: compile only
                     _NUMBA["kernel"] = _compile(numba.njit)
     if required and _NUMBA["kernel"] is None:
-        raise PhysicsDataError("backend='numba' requested but numba is not available "
+        raise MissingDependencyError("backend='numba' requested but numba is not available "
                                "(pip install numba, or unset EDGEFIT_NO_NUMBA)")
     return _NUMBA["kernel"]
 

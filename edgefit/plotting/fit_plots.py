@@ -18,6 +18,7 @@ import numpy as np
 
 from .._units import HC_KEV_ANGSTROM
 from ..stats import deviance_residuals, profiled_background_level
+from ..errors import ArgumentError, MissingDependencyError
 
 __all__ = ["plot_spectra", "plot_transmission", "plot_corner", "save_all"]
 
@@ -195,9 +196,9 @@ def plot_corner(result, names=None, **kwargs):
     try:
         import corner
     except ImportError as exc:  # pragma: no cover - corner is a dependency
-        raise ImportError("plot_corner needs the 'corner' package: pip install corner") from exc
+        raise MissingDependencyError("plot_corner needs the 'corner' package: pip install corner") from exc
     if result.mcmc is None:
-        raise ValueError("no MCMC samples: run edgefit.inference.run_mcmc first")
+        raise ArgumentError("no MCMC samples: run edgefit.inference.run_mcmc first")
     names = names or [n for n in result.mcmc.names if not n.startswith("xnorm_")] \
         or result.mcmc.names
     samples = result.mcmc.flat_samples(names)

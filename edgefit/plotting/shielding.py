@@ -2,6 +2,8 @@
 imported inside the function)."""
 from __future__ import annotations
 
+from ..errors import MissingDependencyError
+
 __all__ = ["plot_shielding"]
 
 
@@ -24,7 +26,8 @@ def plot_shielding(table, ax=None, *, show_extinction=True):
     try:
         import matplotlib.pyplot as plt
     except ImportError as exc:  # pragma: no cover - matplotlib is a dependency
-        raise ImportError("plotting needs matplotlib: pip install matplotlib") from exc
+        raise MissingDependencyError("plotting needs matplotlib: "
+                                     "pip install matplotlib") from exc
     if ax is None:
         fig, ax = plt.subplots(figsize=(3.5, 2.8), constrained_layout=True)
     else:
