@@ -43,7 +43,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import ConfigError, EdgefitError
+from ..errors import ArgumentError, ConfigError, EdgefitError
 
 __all__ = ["SimulationSetup", "load_simulation", "simulation_from_dict", "simulate_spectra",
            "write_simulation", "toml_text", "slug"]
@@ -245,7 +245,7 @@ def _toml_value(v):
         return "[" + ", ".join(_toml_value(x) for x in v) + "]"
     if isinstance(v, dict):
         return "{ " + ", ".join(f"{_key(k)} = {_toml_value(x)}" for k, x in v.items()) + " }"
-    raise TypeError(f"cannot write {type(v).__name__} to TOML")
+    raise ArgumentError(f"cannot write {type(v).__name__} to TOML")
 
 
 def _key(k):
