@@ -24,8 +24,14 @@ __all__ = [
     "profiled_background_level", "profiled_background_statistic",
     "profiled_background_residuals",
     "c_statistic_expectation", "c_statistic_expectation_kaastra",
-    "MODEL_FLOOR",
+    "MODEL_FLOOR", "ONE_SIGMA",
 ]
+
+#: Probability inside +/-1 sigma of a Gaussian, erf(1/sqrt 2) = 0.682689...,
+#: rounded to four digits: the one "1 sigma" level of edgefit (profile
+#: intervals at Delta stat = 1, posterior and derived 68 % intervals, the
+#: sample table's Q_lo/Q_hi).  Abramowitz & Stegun 1964, eq. 26.2.2 / 7.1.1.
+ONE_SIGMA = 0.6827
 
 #: Expected counts below this are raised to it, so that a model that
 #: predicts zero where counts are seen gives a large, finite statistic

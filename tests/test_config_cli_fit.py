@@ -221,11 +221,23 @@ def test_fit_command_errors_name_file_and_key(tmp_path, capsys):
     assert "bogus" in capsys.readouterr().err
 
 
-def test_best_fit_written_before_a_failing_stage(tmp_path, capsys):
+def test_bad_prior_rejected_before_any_fit(tmp_path, capsys):
     _write_sim(tmp_path)
     cfg = _config(tmp_path, mcmc="true", priors='priors = { pl_index = "cauchy" }\n')
     assert main(["fit", str(cfg), "-q"]) == 2
-    assert "mcmc.priors.pl_index" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "mcmc.priors.pl_index" in err and str(cfg) in err and len(err.splitlines()) == 1
+    assert not (tmp_path / "out").exists()  # checked with the file, nothing fitted
+
+
+def test_best_fit_written_before_a_failing_stage(tmp_path, capsys):
+    _write_sim(tmp_path)
+    cfg = _config(tmp_path)
+    # ln_center is fixed: known only once the fit's free parameters exist
+    cfg.write_text(cfg.read_text().replace('profile = ["pl_index"]',
+                                           'profile = ["ln_center"]'))
+    assert main(["fit", str(cfg), "-q"]) == 2
+    assert "errors.profile" in capsys.readouterr().err
     assert (tmp_path / "out" / "fit.json").is_file()  # the best fit survived
 
 

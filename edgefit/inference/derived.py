@@ -35,6 +35,7 @@ import numpy as np
 
 from ..models.base import ADDITIVE, COLUMN_KEY
 from ..physics.atomic import EDGE_OFFSET_KEV
+from ..stats import ONE_SIGMA
 
 __all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "COLUMN_KEY",
            "PHASES"]
@@ -55,17 +56,17 @@ class DerivedQuantity:
         s = self.samples[np.isfinite(self.samples)]
         return float(np.median(s)) if s.size else math.nan
 
-    def interval(self, level=0.683):
+    def interval(self, level=ONE_SIGMA):
         s = self.samples[np.isfinite(self.samples)]
         if not s.size:
             return math.nan, math.nan
         lo, hi = np.quantile(s, [0.5 - level / 2, 0.5 + level / 2])
         return float(lo), float(hi)
 
-    def lower(self, level=0.683):
+    def lower(self, level=ONE_SIGMA):
         return self.interval(level)[0]
 
-    def upper(self, level=0.683):
+    def upper(self, level=ONE_SIGMA):
         return self.interval(level)[1]
 
 
@@ -176,7 +177,7 @@ def _evaluate_all(model, values, refs):
     return out
 
 
-def derived_quantities(result, reference_energy=None, levels=(0.683, 0.90), max_draws=2000,
+def derived_quantities(result, reference_energy=None, levels=(ONE_SIGMA, 0.90), max_draws=2000,
                        seed=0, store=True):
     """Derived quantities of a fit with posterior intervals.
 

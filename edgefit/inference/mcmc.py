@@ -23,6 +23,7 @@ import warnings
 import numpy as np
 
 from ..errors import ArgumentError, FitError, ShortChainWarning
+from ..stats import ONE_SIGMA
 from .likelihood import ParameterVector
 
 __all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc"]
@@ -116,7 +117,7 @@ class McmcResult:
             return s
         return s[:, [self.names.index(n) for n in names]]
 
-    def quantiles(self, name, level=0.683):
+    def quantiles(self, name, level=ONE_SIGMA):
         """(median, lower, upper) of the central ``level`` interval."""
         x = self.flat_samples([name])[:, 0]
         q = np.quantile(x, [0.5, 0.5 - level / 2, 0.5 + level / 2])

@@ -24,6 +24,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from astropy import units as u
 
+from ..stats import ONE_SIGMA
+
 __all__ = ["FitResult", "Interval", "level_label", "INFO_FLAGS"]
 
 #: Flags that inform without casting doubt on the final fit
@@ -33,7 +35,7 @@ INFO_FLAGS = {"refit_after_profile"}
 
 
 def level_label(level: float) -> str:
-    """Short label of a confidence level: 0.683 -> '68', 0.9 -> '90'."""
+    """Short label of a confidence level: 0.6827 -> '68', 0.9 -> '90'."""
     pct = 100.0 * level
     return f"{pct:.0f}" if abs(pct - round(pct)) < 0.35 else f"{pct:.1f}".replace(".", "p")
 
@@ -242,7 +244,7 @@ class FitResult:
                 row[f"profile_lo{lab}"] = iv.lower if iv and iv.lower is not None else np.nan
                 row[f"profile_hi{lab}"] = iv.upper if iv and iv.upper is not None else np.nan
             if self.mcmc is not None and n in self.mcmc.names:
-                med, lo, hi = self.mcmc.quantiles(n, 0.683)
+                med, lo, hi = self.mcmc.quantiles(n, ONE_SIGMA)
                 row.update(posterior_median=med, posterior_lo68=lo, posterior_hi68=hi)
             rows.append(row)
         keys = []
@@ -291,7 +293,7 @@ class FitResult:
                 put(f"{n}_lo{lab}", iv.lower, un)
                 put(f"{n}_hi{lab}", iv.upper, un)
             if self.mcmc is not None and n in self.mcmc.names:
-                med, lo, hi = self.mcmc.quantiles(n, 0.683)
+                med, lo, hi = self.mcmc.quantiles(n, ONE_SIGMA)
                 put(n + "_med", med, un)
                 put(n + "_plo68", lo, un)
                 put(n + "_phi68", hi, un)
@@ -299,8 +301,8 @@ class FitResult:
             for q in self.derived.quantities:
                 un = _unit(q.unit)
                 put(q.name, q.median, un)
-                put(q.name + "_lo68", q.lower(0.683), un)
-                put(q.name + "_hi68", q.upper(0.683), un)
+                put(q.name + "_lo68", q.lower(ONE_SIGMA), un)
+                put(q.name + "_hi68", q.upper(ONE_SIGMA), un)
         t = QTable(cols)
         t.meta.update(self._meta_dict())
         return t
@@ -323,7 +325,7 @@ class FitResult:
             if n in self.intervals:
                 entry["profile"] = [iv.as_dict() for iv in self.intervals[n].values()]
             if self.mcmc is not None and n in self.mcmc.names:
-                med, lo, hi = self.mcmc.quantiles(n, 0.683)
+                med, lo, hi = self.mcmc.quantiles(n, ONE_SIGMA)
                 entry["posterior"] = {"median": med, "lo68": lo, "hi68": hi}
             d["parameters"].append(entry)
         if self.covariance is not None:

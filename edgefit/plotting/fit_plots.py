@@ -20,7 +20,7 @@ from .._units import HC_KEV_ANGSTROM
 from ..stats import deviance_residuals, profiled_background_level
 from ..errors import ArgumentError, MissingDependencyError
 
-__all__ = ["plot_spectra", "plot_transmission", "plot_corner", "save_all"]
+__all__ = ["plot_spectra", "plot_transmission", "plot_corner", "save_all", "save_configured"]
 
 _RC = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8, "xtick.labelsize": 8,
        "ytick.labelsize": 8, "lines.linewidth": 1.0}
@@ -230,3 +230,12 @@ def save_all(result, folder, unit="keV", window=None, display_min_counts=20, fmt
         plt.close(fig)
         paths.append(p)
     return paths
+
+
+def save_configured(result, folder, settings):
+    """:func:`save_all` with a configuration's ``[plots]`` settings
+    (:class:`edgefit.analysis.config.PlotSettings`); the ``figures`` hook of
+    :func:`edgefit.analysis.pipeline.run_sightline`."""
+    return save_all(result, folder, unit=settings.unit,
+                    window=tuple(settings.window) if settings.window else None,
+                    display_min_counts=settings.display_min_counts, fmt=settings.format)

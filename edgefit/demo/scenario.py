@@ -17,7 +17,7 @@ widths and velocity of the ion lines.
 
 Layer 6 (outside): :func:`write_sightline` writes OGIP files, a
 configuration and the truth; :func:`run_demo` then runs exactly the
-pipeline of ``edgefit fit`` (:func:`edgefit.cli.fit.fit_pipeline`) and
+pipeline of ``edgefit fit`` (:func:`edgefit.analysis.pipeline.run_sightline`) and
 adds a comparison with the simulated truth.  ``examples/
 make_simulated_sightline.py`` writes the same files into
 ``examples/sim_j1746/``.
@@ -29,6 +29,8 @@ import math
 from pathlib import Path
 
 import numpy as np
+
+from ..stats import ONE_SIGMA
 
 __all__ = ["SOURCE", "TRUTH", "INSTRUMENT", "EXPOSURE_S", "SEED", "build_model",
            "instrument_responses", "simulate_observation", "write_sightline", "truth_comparison", "run_demo"]
@@ -160,7 +162,7 @@ def build_model():
     """The simulated sightline's model (components named as in the
     configuration): SmoothISM(no Si) x GasEdge(Si) x DustEdge(olivine, Si)
     x IonLines(Si XIII, Si XIV) x power law."""
-    from .models import DustEdge, GasEdge, IonLines, PhotonPowerLaw, SmoothISM
+    from ..models import DustEdge, GasEdge, IonLines, PhotonPowerLaw, SmoothISM
 
     return (SmoothISM("ism", exclude=("Si",)) * GasEdge("gas_si", element="Si")
             * DustEdge("dust", material="olivine", element="Si")
@@ -179,7 +181,7 @@ def instrument_responses():
     FWHM constant in wavelength and channels in wavelength order."""
     from astropy import units as u
 
-    from .data import gaussian_response
+    from ..data import gaussian_response
 
     energy = np.linspace(*ENERGY_KEV[:2], ENERGY_KEV[2] + 1)
     out = []
@@ -194,7 +196,7 @@ def instrument_responses():
 def simulate_observation(model, response, rng, tag, values=None):
     """One Poisson realisation of the simulated sightline through
     ``response`` (with its background), as a Spectrum."""
-    from .data import simulate_spectrum
+    from ..data import simulate_spectrum
 
     flux = model.evaluate(response.grid, TRUTH if values is None else values)
     return simulate_spectrum(flux, response, EXPOSURE_S, rng,
@@ -218,7 +220,7 @@ def write_sightline(folder, *, stem="sim_j1746", seed=SEED, walkers=32, steps=12
 
     Returns the path of the configuration file.
     """
-    from .data import write_pha, write_response
+    from ..data import write_pha, write_response
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -259,7 +261,7 @@ def truth_comparison(result, truth=TRUTH):
     the same components at the true parameter values.  ``pull`` is
     (estimate - truth) / (half-width on the truth's side).
     """
-    from .inference.derived import _evaluate_all
+    from ..inference.derived import _evaluate_all
 
     rows = []
 
@@ -274,7 +276,7 @@ def truth_comparison(result, truth=TRUTH):
             continue
         est = result.values[name]
         iv = result.intervals.get(name, {})
-        lev = min(iv, key=lambda x: abs(x - 0.6827)) if iv else None
+        lev = min(iv, key=lambda x: abs(x - ONE_SIGMA)) if iv else None
         if lev is not None and iv[lev].lower is not None and iv[lev].upper is not None:
             lo, hi = iv[lev].lower, iv[lev].upper
         else:
@@ -289,7 +291,7 @@ def truth_comparison(result, truth=TRUTH):
         for q in result.derived.quantities:
             if q.name not in true_der:
                 continue
-            lo, hi = q.interval(0.683)
+            lo, hi = q.interval(ONE_SIGMA)
             t = true_der[q.name][0]
             rows.append((q.name, q.unit, t, q.median, lo, hi, pull(q.median, lo, hi, t)))
     return rows
@@ -319,8 +321,9 @@ def run_demo(output="edgefit-demo", *, quick=False, quiet=False):
     summary, ``truth_comparison.txt`` and figures.  Returns
     (FitResult, comparison rows, results folder).
     """
-    from .cli.fit import fit_pipeline
-    from .config import load_config
+    from ..analysis.config import load_config
+    from ..analysis.pipeline import run_sightline
+    from ..plotting.fit_plots import save_configured
 
     output = Path(output)
     say = (lambda msg: None) if quiet else (lambda msg: print(msg, flush=True))
@@ -331,7 +334,7 @@ def run_demo(output="edgefit-demo", *, quick=False, quiet=False):
         cfg_path = write_sightline(output)
     say(f"wrote the SIMULATED sightline {SOURCE} and its configuration to {output}/")
     cfg = load_config(cfg_path)
-    result = fit_pipeline(cfg, quiet=quiet, command="demo")
+    result = run_sightline(cfg, quiet=quiet, command="demo", figures=save_configured)
     rows = truth_comparison(result)
     text = ("fit of the SIMULATED sightline against its invented truth "
             "(pull = offset in units of the 68 % half-width)\n" + format_comparison(rows))
