@@ -74,7 +74,10 @@ class SizeDistribution:
             if k not in names:
                 raise PhysicsDataError(f"{self.family} size distribution has no parameter "
                                        f"{k!r}; it has {names}")
-            vals[k] = float(as_um(v, k)) if (len(self.PARAMS) and self._is_size(k)) else float(v)
+            if type(v) is float:        # a plain number is in µm already (fit-time path)
+                vals[k] = v
+            else:
+                vals[k] = float(as_um(v, k)) if self._is_size(k) else float(v)
         self.values = vals
         self._check()
 
@@ -362,7 +365,7 @@ class SizeGrid:
 
     def weights(self, dist: SizeDistribution) -> np.ndarray:
         """W (length M) with ⟨g⟩ = Σ W_i g_i over the normalised ``dist``."""
-        a_p = self.a ** self.power
+        a_p = self._a_power()
         if isinstance(dist, SingleSize):
             s = dist.values["size"]
             self._check_range(s, s)
@@ -370,26 +373,54 @@ class SizeGrid:
         lo, hi = dist.support()
         self._check_range(lo, hi)
         ulo, uhi = math.log(lo), math.log(hi)
-        k0 = int(np.clip(np.searchsorted(self.u, ulo, side="right") - 1, 0, self.a.size - 2))
-        k1 = int(np.clip(np.searchsorted(self.u, uhi, side="left") - 1, 0, self.a.size - 2))
-        ks = np.arange(k0, k1 + 1)
-        left = np.maximum(self.u[ks], ulo)
-        right = np.minimum(self.u[ks + 1], uhi)
+        last = self.a.size - 2
+        k0 = min(max(int(np.searchsorted(self.u, ulo, side="right")) - 1, 0), last)
+        k1 = min(max(int(np.searchsorted(self.u, uhi, side="left")) - 1, 0), last)
+        # grid intervals k0..k1 cut at the support; only the end ones can be empty
+        uk = self.u[k0:k1 + 2]
+        left = np.maximum(uk[:-1], ulo)
+        right = np.minimum(uk[1:], uhi)
         keep = right > left
-        ks, left, right = ks[keep], left[keep], right[keep]
+        if not keep.all():
+            idx = np.flatnonzero(keep)
+            k0, k1 = k0 + int(idx[0]), k0 + int(idx[-1])
+            left, right = left[idx[0]:idx[-1] + 1], right[idx[0]:idx[-1] + 1]
         half = 0.5 * (right - left)
         uu = (left + half)[:, None] + half[:, None] * _GL_X      # (nk, 6)
         a = np.exp(uu)
-        n = dist.shape(a)
-        gw = half[:, None] * _GL_W * a                           # ∫ da = ∫ a du
-        norm = float(np.sum(gw * n))
-        f = gw * n * a ** self.power / norm                      # integrand weight for s
-        t = uu - self.u[ks][:, None]
-        # moments of t^(3-p) per interval, then contract with spline coefficients
-        mom = np.stack([np.sum(f * t ** 3, axis=1), np.sum(f * t ** 2, axis=1),
-                        np.sum(f * t, axis=1), np.sum(f, axis=1)])   # (4, nk)
-        w = np.einsum("pk,pkm->m", mom, self._coef[:, ks, :])
-        return w / a_p
+        f = dist.shape(a)
+        f *= half[:, None] * _GL_W * a                           # ∫ da = ∫ a du
+        norm = float(np.sum(f))
+        f *= a ** self.power if self.power != 3.0 else a * a * a
+        f *= 1.0 / norm                                          # integrand weight for s
+        t = uu - self.u[k0:k1 + 1][:, None]
+        # moments of t^(3-p) per interval, contracted with the spline
+        # coefficients of those intervals in one matrix-vector product
+        mom = np.empty((k1 - k0 + 1, 4))
+        mom[:, 3] = f.sum(axis=1)
+        f *= t
+        mom[:, 2] = f.sum(axis=1)
+        f *= t
+        mom[:, 1] = f.sum(axis=1)
+        f *= t
+        mom[:, 0] = f.sum(axis=1)
+        w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
+        w /= a_p
+        return w
+
+    def _a_power(self):
+        cached = self.__dict__.get("_a_p")
+        if cached is None or cached[0] != self.power:
+            cached = (self.power, self.a ** self.power)
+            self._a_p = cached
+        return cached[1]
+
+    def _coef_by_interval(self):
+        """Spline coefficients as (interval, power, radius), contiguous."""
+        c = self.__dict__.get("_coef_k")
+        if c is None:
+            c = self._coef_k = np.ascontiguousarray(self._coef.transpose(1, 0, 2))
+        return c
 
     def average(self, values, dist: SizeDistribution):
         """⟨g⟩ over ``dist`` for tabulated ``values`` (..., M) (last axis = size)."""

@@ -38,13 +38,20 @@ BOUND_TOLERANCE = 1e-6
 
 class LeastSquaresObjective:
     """Picklable callable lmfit hands Parameters to: returns the residual
-    vector of the likelihood for ``params.valuesdict()``."""
+    vector of the likelihood.  Only the free values are read from the
+    Parameters; fixed values and ties were compiled once from ``params``
+    (:meth:`JointLikelihood.compile`), so every call after the first is
+    the vector path."""
 
-    def __init__(self, likelihood: JointLikelihood):
+    def __init__(self, likelihood: JointLikelihood, params=None):
         self.likelihood = likelihood
+        self.evaluator = likelihood.compile(params) if params is not None else None
 
     def __call__(self, params):
-        return self.likelihood.residuals(params.valuesdict())
+        if self.evaluator is None:
+            self.evaluator = self.likelihood.compile(params)
+        ev = self.evaluator
+        return ev.residuals([params[n].value for n in ev.free])
 
 
 def _finite_stat(likelihood, params):
@@ -60,7 +67,7 @@ def minimise(likelihood, params, method="least_squares", fallback=True, max_nfev
     import lmfit
 
     flags = []
-    objective = LeastSquaresObjective(likelihood)
+    objective = LeastSquaresObjective(likelihood, params)
     bad_before = likelihood.n_bad_evaluations
     kws = {}
     if max_nfev:

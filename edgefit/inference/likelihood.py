@@ -20,19 +20,30 @@ process pool can evaluate it.  It owns:
   :meth:`log_likelihood` ``-inf``; each such event is counted in
   :attr:`n_bad_evaluations` so that a fit can flag it.
 
+:class:`CompiledLikelihood` (from :meth:`JointLikelihood.compile`) is the
+fast path used by the minimiser, profiles and samplers: it evaluates the
+same statistic from a plain NumPy vector of free-parameter values, with
+fixed values and ties resolved once into index maps, the model compiled
+per grid (:class:`~edgefit.models.base.CompiledModel`) and folding plus
+Poisson deviance done in one pass per dataset (:mod:`edgefit._foldstat`).
+lmfit Parameters remain the user's interface; the hot loop never builds
+them.
+
 :class:`ParameterVector` maps the free-parameter vector of a sampler or
 profile scan to full parameter values, evaluating lmfit ``expr`` ties.
 """
 from __future__ import annotations
 
+import ast
 import math
 
 import numpy as np
 
-from .. import stats
+from .. import _foldstat, stats
 from ..errors import ModelError, ParameterClashError, UnknownParameterError
 
-__all__ = ["JointLikelihood", "ParameterVector", "BAD_RESIDUAL", "XNORM_PREFIX"]
+__all__ = ["JointLikelihood", "CompiledLikelihood", "ParameterVector", "BAD_RESIDUAL",
+           "XNORM_PREFIX"]
 
 #: Residual returned for every bin when the model is not finite/negative.
 BAD_RESIDUAL = 1e6
@@ -200,8 +211,310 @@ class JointLikelihood:
         s = self.statistic(values)
         return -0.5 * s if math.isfinite(s) else -math.inf
 
+    def compile(self, params=None, free=None, values=None) -> "CompiledLikelihood":
+        """The statistic as a function of a free-parameter vector.
+
+        ``params`` (lmfit Parameters) gives the free parameters (``vary``
+        and no ``expr``, in their order), the values of the fixed ones and
+        the ``expr`` ties, as :class:`ParameterVector` reads them.  Without
+        ``params``, ``free`` names the free parameters and ``values``
+        (full names) the others; missing ones take the model's stored
+        values and 1 for ``xnorm_i``.  See :class:`CompiledLikelihood`.
+        """
+        return CompiledLikelihood(self, params=params, free=free, values=values)
+
     def __getstate__(self):
         return self.__dict__.copy()
+
+
+def _linear_tie(expr):
+    """(source name, a, d, b) when the lmfit expression ``expr`` reads
+    ``x``, ``a*x``, ``x*a``, ``x/d`` or ``-x``, optionally ``+ b`` or
+    ``- b`` (numbers a, d, b), so that value = a * x / d + b is the same
+    floating-point arithmetic; None for any other expression (the
+    expression is parsed, never evaluated)."""
+    try:
+        tree = ast.parse(expr.strip(), mode="eval").body
+    except SyntaxError:
+        return None
+
+    def num(node):
+        if isinstance(node, ast.Constant) and type(node.value) in (int, float):
+            return float(node.value)
+        if (isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd))
+                and isinstance(node.operand, ast.Constant)
+                and type(node.operand.value) in (int, float)):
+            v = float(node.operand.value)
+            return -v if isinstance(node.op, ast.USub) else v
+        return None
+
+    def scaled(node):
+        if isinstance(node, ast.Name):
+            return node.id, 1.0, 1.0
+        if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub) and \
+                isinstance(node.operand, ast.Name):
+            return node.operand.id, -1.0, 1.0
+        if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Mult):
+            if isinstance(node.right, ast.Name) and num(node.left) is not None:
+                return node.right.id, num(node.left), 1.0
+            if isinstance(node.left, ast.Name) and num(node.right) is not None:
+                return node.left.id, num(node.right), 1.0
+        if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Div) and \
+                isinstance(node.left, ast.Name) and num(node.right):
+            return node.left.id, 1.0, num(node.right)
+        return None
+
+    base = scaled(tree)
+    if base is not None:
+        return base + (0.0,)
+    if isinstance(tree, ast.BinOp) and isinstance(tree.op, (ast.Add, ast.Sub)):
+        sign = 1.0 if isinstance(tree.op, ast.Add) else -1.0
+        lhs, rhs = scaled(tree.left), num(tree.right)
+        if lhs is not None and rhs is not None:
+            return lhs + (sign * rhs,)
+        if isinstance(tree.op, ast.Add):
+            lhs, rhs = scaled(tree.right), num(tree.left)
+            if lhs is not None and rhs is not None:
+                return lhs + (rhs,)
+    return None
+
+
+class CompiledLikelihood:
+    """A :class:`JointLikelihood` evaluated from a free-parameter vector.
+
+    Build it with :meth:`JointLikelihood.compile`.  ``theta`` is a 1-d
+    array (or sequence) of the free parameters in the order of
+    :attr:`free`; fixed values are stored once, ties that are linear in one
+    other parameter (``a * x``, ``x / d``, ``+ b``: everything the
+    configuration files can write) are applied by precomputed index maps,
+    any other lmfit expression through lmfit's own interpreter (slower,
+    same numbers).
+
+    Methods mirror the likelihood's: :meth:`statistic`, :meth:`residuals`
+    (signed deviance residuals for least squares, formed only here),
+    :meth:`log_likelihood`, :meth:`source_counts`; the same NaN policy
+    (``inf`` / :data:`BAD_RESIDUAL` / ``-inf``, counted in the
+    likelihood's :attr:`~JointLikelihood.n_bad_evaluations`).  Results
+    equal those of the values-dict methods of :class:`JointLikelihood` to
+    rounding.  Calling the object returns the statistic.
+
+    Picklable: compiled models and buffers are dropped when pickled and
+    rebuilt on first use.  Not thread-safe (it reuses buffers): give each
+    thread its own copy.
+    """
+
+    def __init__(self, likelihood, params=None, free=None, values=None):
+        self.likelihood = like = likelihood
+        names = list(like.names)
+        index = {n: i for i, n in enumerate(names)}
+        base = [float(v) for v in like.model.default_values().values()]
+        base += [1.0] * len(like.xnorm_names)
+        ties = {}
+        if params is not None:
+            if free is not None or values is not None:
+                raise ModelError("give either lmfit Parameters or free names and values")
+            unknown = set(params) - set(names)
+            if unknown:
+                raise UnknownParameterError(f"unknown parameter(s) {sorted(unknown)}")
+            free = [n for n, p in params.items() if p.vary and not p.expr]
+            for n, p in params.items():
+                base[index[n]] = float(p.value)
+                if p.expr:
+                    ties[n] = p.expr
+            self._params = params.copy() if ties else None
+        else:
+            free = list(free or [])
+            for n, v in (values or {}).items():
+                if n not in index:
+                    raise UnknownParameterError(f"unknown parameter {n!r}")
+                base[index[n]] = float(v)
+            self._params = None
+            unknown = set(free) - set(names)
+            if unknown:
+                raise UnknownParameterError(f"unknown parameter(s) {sorted(unknown)}")
+            if params is None and len(set(free)) != len(free):
+                raise ModelError("a free parameter is named twice")
+        self.names = names
+        self.free = list(free)
+        self._free_idx = np.array([index[n] for n in self.free], dtype=np.intp)
+        self._base = np.array(base, dtype=float)
+        if params is not None:
+            self.lower = np.array([params[n].min for n in self.free], dtype=float)
+            self.upper = np.array([params[n].max for n in self.free], dtype=float)
+        else:
+            decl = like.model.parameters()
+            self.lower = np.array([decl[n][1].min if n in decl else 0.2 for n in self.free])
+            self.upper = np.array([decl[n][1].max if n in decl else 5.0 for n in self.free])
+        # ties: index maps in dependency order, or lmfit for the rest
+        self._ties = []      # (target, source, a, d, b)
+        self._expr_ties = []  # target names evaluated by lmfit
+        linear = {n: _linear_tie(e) for n, e in ties.items()}
+        if any(v is None or v[0] not in index for v in linear.values()):
+            self._expr_ties = list(ties)
+        else:
+            done = set()
+
+            def place(n, stack=()):
+                if n in done or n not in linear:
+                    return
+                if n in stack:
+                    raise ModelError(f"parameter ties form a loop through {n!r}")
+                src, a, d, b = linear[n]
+                place(src, stack + (n,))
+                self._ties.append((index[n], index[src], a, d, b))
+                done.add(n)
+
+            for n in linear:
+                place(n)
+        self._xn_index = [index[n] for n in like.xnorm_names]
+        self._plan = None
+
+    # -- lazily built hot-loop state (dropped when pickled) --------------
+    def __getstate__(self):
+        state = self.__dict__.copy()
+        state["_plan"] = None
+        return state
+
+    def _ready(self):
+        like = self.likelihood
+        plan = []
+        for union, members in like._plan:
+            cm = like.model.compile(union, self.names)
+            rows = []
+            for i, off, _n in members:
+                ds = like.datasets[i]
+                fast = like.statistic_name == "poisson" and not ds.has_background
+                rows.append((i, off, _foldstat.Folding(ds.matrix), ds.counts,
+                             self._xn_index[i], fast,
+                             np.empty(ds.n_groups)))
+            plan.append((cm, rows))
+        starts = np.cumsum([0] + [d.n_groups for d in like.datasets])
+        self._starts = [int(x) for x in starts]
+        self._plan = plan
+        return plan
+
+    def __len__(self):
+        return len(self.free)
+
+    # -- parameter vectors -------------------------------------------------
+    def full(self, theta) -> np.ndarray:
+        """All parameter values (``names`` order) for free vector ``theta``."""
+        v = self._base.copy()
+        v[self._free_idx] = theta
+        for t, src, a, d, b in self._ties:
+            v[t] = a * v[src] / d + b
+        if self._expr_ties:
+            params = self._params
+            for n, x in zip(self.free, v[self._free_idx]):
+                params[n].value = float(x)
+            params.update_constraints()
+            for n in self._expr_ties:
+                v[self.names.index(n)] = float(params[n].value)
+        return v
+
+    def values(self, theta) -> dict:
+        """Full values dict (the input of the dict-based methods)."""
+        return dict(zip(self.names, self.full(theta).tolist()))
+
+    def vector(self, params) -> np.ndarray:
+        """The free vector read from lmfit Parameters (or a values dict)."""
+        get = (lambda n: params[n].value) if hasattr(params, "valuesdict") else \
+            (lambda n: params[n])
+        return np.array([float(get(n)) for n in self.free])
+
+    def in_bounds(self, theta) -> bool:
+        theta = np.asarray(theta, dtype=float)
+        return bool(np.all(theta >= self.lower) and np.all(theta <= self.upper))
+
+    # -- evaluation ---------------------------------------------------------
+    def _fluxes(self, vals):
+        plan = self._plan or self._ready()
+        return [(cm(vals), rows) for cm, rows in plan]
+
+    def source_counts(self, theta):
+        """Expected source counts per group for each dataset (list of
+        arrays), cross-normalisation applied.  No NaN check here."""
+        vals = self.full(theta).tolist()
+        out = [None] * len(self.likelihood.datasets)
+        with np.errstate(all="ignore"):
+            for flux, rows in self._fluxes(vals):
+                for i, off, mat, _counts, xi, _fast, _scratch in rows:
+                    out[i] = _foldstat.fold(mat, flux, off, vals[xi])
+        return out
+
+    def statistic(self, theta) -> float:
+        """The fit statistic; ``inf`` when the model is not finite."""
+        like = self.likelihood
+        like.n_evaluations += 1
+        vals = self.full(theta).tolist()
+        total = 0.0
+        try:
+            with np.errstate(all="ignore"):
+                for flux, rows in self._fluxes(vals):
+                    for i, off, mat, counts, xi, fast, scratch in rows:
+                        if fast:
+                            c, ok = _foldstat.fold_deviance(mat, flux, off, vals[xi], counts,
+                                                            scratch)
+                        else:
+                            mu = _foldstat.fold(mat, flux, off, vals[xi])
+                            ok = _finite_non_negative(mu)
+                            if ok:
+                                r = like._residual_one(like.datasets[i], mu)
+                                c = float(np.sum(r ** 2))
+                        if not ok:
+                            break
+                        total += c
+                    else:
+                        continue
+                    break
+        except (FloatingPointError, ZeroDivisionError, OverflowError):
+            ok = False
+        if not ok:
+            like.n_bad_evaluations += 1
+            return math.inf
+        return total
+
+    __call__ = statistic
+
+    def residuals(self, theta) -> np.ndarray:
+        """Signed residuals of all datasets, concatenated (sum of squares =
+        statistic); a vector of :data:`BAD_RESIDUAL` when the model fails."""
+        like = self.likelihood
+        like.n_evaluations += 1
+        vals = self.full(theta).tolist()
+        out = np.empty(like.n_bins)
+        ok = True
+        try:
+            with np.errstate(all="ignore"):
+                plan = self._plan or self._ready()
+                starts = self._starts
+                for cm, rows in plan:
+                    flux = cm(vals)
+                    for i, off, mat, counts, xi, fast, _scratch in rows:
+                        if fast:
+                            ok = _foldstat.fold_residuals(mat, flux, off, vals[xi], counts,
+                                                          out, starts[i])
+                        else:
+                            mu = _foldstat.fold(mat, flux, off, vals[xi])
+                            ok = _finite_non_negative(mu)
+                            if ok:
+                                out[starts[i]:starts[i + 1]] = like._residual_one(
+                                    like.datasets[i], mu)
+                        if not ok:
+                            break
+                    if not ok:
+                        break
+        except (FloatingPointError, ZeroDivisionError, OverflowError):
+            ok = False
+        if not ok:
+            like.n_bad_evaluations += 1
+            out.fill(BAD_RESIDUAL)
+        return out
+
+    def log_likelihood(self, theta) -> float:
+        """-statistic/2; -inf when the model fails."""
+        s = self.statistic(theta)
+        return -0.5 * s if math.isfinite(s) else -math.inf
 
 
 class ParameterVector:

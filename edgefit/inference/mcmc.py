@@ -70,6 +70,7 @@ class LogPosterior:
         if unknown:
             raise ArgumentError(f"priors given for parameters that are not free: {sorted(unknown)}")
         self._prior_index = [(self.pv.free.index(n), f) for n, f in self.priors.items()]
+        self.evaluator = likelihood.compile(params)
 
     def __call__(self, theta):
         theta = np.asarray(theta, dtype=float)
@@ -80,7 +81,7 @@ class LogPosterior:
             lp += float(f(theta[i]))
         if not math.isfinite(lp):
             return -math.inf
-        ll = self.likelihood.log_likelihood(self.pv.values(theta))
+        ll = self.evaluator.log_likelihood(theta)
         return lp + ll if math.isfinite(ll) else -math.inf
 
 

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._units import as_kev
+from .._units import HC_KEV_ANGSTROM, as_kev
 from ..errors import ModelError
 from ..physics import abundances as _ab
 from ..physics import atomic, hydrogen, lines as _lines
@@ -223,7 +223,27 @@ class GasEdge(Component):
         return float(out[0]) if scalar else out
 
     def precompute(self, grid: EnergyGrid):
-        return {"sigma0": self.sigma(grid.mid) * _EDGE_COL_UNIT}
+        t = atomic._load(self.element)
+        return {"sigma0": self.sigma(grid.mid) * _EDGE_COL_UNIT, "x": grid.mid,
+                "table": (t.energy[0], t.energy[-1], t.log_energy, t.log_f2)}
+
+    def _sigma_shifted(self, pre, shift):
+        """sigma_Z(E - shift) * 1e16 at the bin centres: the arithmetic of
+        :func:`edgefit.physics.atomic.photoabsorption` (same operations in
+        the same order, so the same numbers) without its input checks,
+        which are done here once on the sorted grid."""
+        e = pre["x"] - shift * 1e-3
+        emin, emax, log_e, log_f2 = pre["table"]
+        if not (e[0] >= emin and e[-1] <= emax):
+            return self.sigma(e) * _EDGE_COL_UNIT      # raises the range error
+        f2 = np.log(e)
+        f2 = np.exp(np.interp(f2, log_e, log_f2))
+        lam = HC_KEV_ANGSTROM / e
+        lam *= 1e-8
+        lam *= 2.0 * atomic.CLASSICAL_ELECTRON_RADIUS_CM
+        lam *= f2
+        lam *= _EDGE_COL_UNIT
+        return lam
 
     def _line_arrays(self, v, n_z):
         c = np.array([v[f"line{i}_energy"] for i in range(1, self.n_lines + 1)])
@@ -237,7 +257,7 @@ class GasEdge(Component):
         if shift == 0.0:
             sig = pre["sigma0"]
         else:
-            sig = self.sigma(grid.mid, shift) * _EDGE_COL_UNIT
+            sig = self._sigma_shifted(pre, shift)
         trans = sig * (-col)
         np.exp(trans, out=trans)
         if self.n_lines and col > 0:

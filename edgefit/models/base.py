@@ -38,7 +38,8 @@ from ..errors import ModelError, ParameterClashError, UnknownParameterError
 from ..grid import EnergyGrid
 
 __all__ = ["EnergyGrid", "Param", "ModelNode", "Component", "CompositeModel",
-           "COMPONENTS", "register_component", "MULTIPLICATIVE", "ADDITIVE", "COLUMN_KEY"]
+           "CompiledModel", "COMPONENTS", "register_component", "MULTIPLICATIVE",
+           "ADDITIVE", "COLUMN_KEY"]
 
 MULTIPLICATIVE = "multiplicative"
 ADDITIVE = "additive"
@@ -136,6 +137,11 @@ class ModelNode:
         """Evaluate on ``grid`` with ``values`` (full names; missing ones take
         the components' stored values).  Unknown names are refused."""
         raise NotImplementedError
+
+    def compile(self, grid: EnergyGrid, names) -> "CompiledModel":
+        """A :class:`CompiledModel` of this model on ``grid`` that reads its
+        values from a list ordered as ``names`` (full parameter names)."""
+        return CompiledModel(self, grid, names)
 
     def __call__(self, grid, values: Mapping[str, float] | None = None, **kw):
         if not isinstance(grid, EnergyGrid):
@@ -335,6 +341,109 @@ class CompositeModel(ModelNode):
 
     def __repr__(self):
         return f"({self.left!r} {self.op} {self.right!r})"
+
+
+class _Leaf:
+    """One component of a :class:`CompiledModel`: its slots in the value
+    list and the last output, reused while its own values do not change."""
+
+    __slots__ = ("comp", "grid", "pre", "shorts", "idx", "key", "out", "changed", "plain")
+
+    def __init__(self, comp, grid, index):
+        self.comp = comp
+        self.grid = grid
+        self.pre = comp.prepared(grid)
+        self.shorts = tuple(comp.values)
+        self.idx = tuple(index[f"{comp.name}_{k}"] for k in self.shorts)
+        self.key = None
+        self.out = None
+        self.changed = True
+        # a subclass that overrides evaluate() itself is called through it
+        self.plain = type(comp).evaluate is Component.evaluate
+
+    def __call__(self, vals):
+        key = tuple([vals[i] for i in self.idx])
+        if key == self.key:
+            self.changed = False
+            return self.out
+        if self.plain:
+            out = self.comp._evaluate(self.grid, self.pre, **dict(zip(self.shorts, key)))
+        else:
+            prefix = self.comp.name + "_"
+            out = self.comp.evaluate(self.grid, {prefix + k: v for k, v in
+                                                 zip(self.shorts, key)})
+        self.key, self.out, self.changed = key, out, True
+        return out
+
+
+class _Node:
+    """A product or sum of two compiled nodes, written into its own buffer
+    and recomputed only when a child's output changed."""
+
+    __slots__ = ("left", "right", "mul", "out", "changed")
+
+    def __init__(self, left, right, mul):
+        self.left, self.right, self.mul = left, right, mul
+        self.out = None
+        self.changed = True
+
+    def __call__(self, vals):
+        a = self.left(vals)
+        b = self.right(vals)
+        if self.out is not None and not (self.left.changed or self.right.changed):
+            self.changed = False
+            return self.out
+        out = self.out
+        if (out is None or np.shape(a) != out.shape or np.shape(b) != out.shape
+                or out is a or out is b):
+            out = a * b if self.mul else a + b
+            if not isinstance(out, np.ndarray) or out is a or out is b:
+                self.out = None
+                self.changed = True
+                return out
+        elif self.mul:
+            np.multiply(a, b, out=out)
+        else:
+            np.add(a, b, out=out)
+        self.out, self.changed = out, True
+        return out
+
+
+class CompiledModel:
+    """A model bound to one energy grid and evaluated from a flat list of
+    parameter values (the hot loop of a fit: no dicts of full names, no
+    Parameters).
+
+    ``names`` lists the full parameter names in the order of the value
+    vector (it may hold more names than the model's).  Each component is
+    handed its own values by precomputed positions; a component whose
+    values did not change since the previous call returns its previous
+    output unchanged (components are pure functions of grid and values),
+    and products and sums are written into buffers owned by this object.
+    The arithmetic is that of :meth:`ModelNode.evaluate` (same operands,
+    same order), so the results are identical.
+
+    The array returned may be reused by the next call: copy it to keep it.
+    """
+
+    def __init__(self, model: ModelNode, grid: EnergyGrid, names):
+        index = {n: i for i, n in enumerate(names)}
+        missing = set(model.parameters()) - set(index)
+        if missing:
+            raise UnknownParameterError(f"no slot for parameter(s) {sorted(missing)}")
+        self.grid = grid
+        self.root = self._build(model, grid, index)
+
+    @classmethod
+    def _build(cls, node, grid, index):
+        if isinstance(node, Component):
+            return _Leaf(node, grid, index)
+        return _Node(cls._build(node.left, grid, index), cls._build(node.right, grid, index),
+                     node.op == "*")
+
+    def __call__(self, vals) -> np.ndarray:
+        """Model on the grid for ``vals`` (a list of floats in ``names`` order)."""
+        return self.root(vals)
 
 
 def register_component(cls):

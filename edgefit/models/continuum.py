@@ -243,8 +243,17 @@ class PhotonPowerLaw(Component):
         Param("norm", 1.0, 0.0, 1e10, "ph cm-2 s-1 keV-1", "photon flux density at 1 keV"),
     )
 
+    def precompute(self, grid):
+        return np.log(grid.hi / grid.lo)
+
     def _evaluate(self, grid, pre, index, norm):
-        return photon_power_law_integral(grid.lo, grid.hi, index, norm)
+        # photon_power_law_integral with log(hi/lo) computed once per grid
+        # and the product formed in place (same operations, same order)
+        out = grid.lo ** (1.0 - index)
+        out *= norm
+        out *= pre
+        out *= special.exprel((1.0 - index) * pre)
+        return out
 
 
 class _QuadratureContinuum(Component):
