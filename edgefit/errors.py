@@ -23,6 +23,9 @@ __all__ = [
     "BadGridError",
     "GridMismatchError",
     "ChannelMismatchError",
+    "BadChannelsError",
+    "BadScalingError",
+    "BadUnitError",
     "BadExposureError",
     "BadCountsError",
     "ConfigError",
@@ -106,6 +109,20 @@ class GridMismatchError(InputFileError):
 
 class ChannelMismatchError(InputFileError):
     """A spectrum and its response have different channel counts."""
+
+
+class BadChannelsError(InputFileError):
+    """A CHANNEL column repeats a channel number."""
+
+
+class BadScalingError(InputFileError):
+    """BACKSCAL or AREASCAL is zero, negative or not finite where a
+    background subtraction needs it."""
+
+
+class BadUnitError(InputFileError):
+    """A column's TUNIT is not a unit edgefit can read for that column
+    (e.g. an energy column in an unknown unit)."""
 
 
 class BadExposureError(InputFileError):

@@ -13,8 +13,9 @@ import warnings
 import numpy as np
 from astropy.io import fits
 
-from ..errors import (InputFileError, MissingColumnError, MissingExtensionError,
-                      MissingFileError, NotFITSError, TruncatedFileError)
+from ..errors import (BadUnitError, InputFileError, InputWarning, MissingColumnError,
+                      MissingExtensionError, MissingFileError, NotFITSError,
+                      TruncatedFileError)
 
 __all__ = ["open_fits", "find_hdu", "Table"]
 
@@ -83,9 +84,18 @@ def open_fits(path):
 
 
 def find_hdu(hdul, path, extnames=(), hduclas=(), what="extension"):
-    """First binary-table HDU whose EXTNAME is in ``extnames`` or whose
-    HDUCLAS1/HDUCLAS2 value is in ``hduclas``; MissingExtensionError if none."""
-    hdu = find_hdu_or_none(hdul, extnames, hduclas)
+    """First binary-table HDU whose EXTNAME is in ``extnames``, else the
+    first whose HDUCLAS1/HDUCLAS2 value is in ``hduclas`` (with an
+    :class:`~edgefit.errors.InputWarning` naming the file and both
+    keywords); MissingExtensionError if none."""
+    hdu = find_hdu_or_none(hdul, extnames)
+    if hdu is None and hduclas:
+        hdu, key = _find_by_class(hdul, hduclas)
+        if hdu is not None:
+            warnings.warn(InputWarning(
+                f"{os.fspath(path)}: no extension with EXTNAME {'/'.join(extnames)}; using "
+                f"extension {hdu.name!r} (HDU {hdul.index_of(hdu)}) found by its {key} = "
+                f"{str(hdu.header[key]).strip()!r}"), stacklevel=3)
     if hdu is None:
         names = [h.name for h in hdul[1:]] or ["none"]
         raise MissingExtensionError(
@@ -94,18 +104,24 @@ def find_hdu(hdul, path, extnames=(), hduclas=(), what="extension"):
     return hdu
 
 
-def find_hdu_or_none(hdul, extnames=(), hduclas=()):
-    ext = {e.upper() for e in extnames}
+def _find_by_class(hdul, hduclas):
     cls = {c.upper() for c in hduclas}
     for hdu in hdul[1:]:
-        if not isinstance(hdu, fits.BinTableHDU):
-            continue
-        if hdu.name.upper() in ext:
+        if isinstance(hdu, fits.BinTableHDU):
+            for key in ("HDUCLAS1", "HDUCLAS2"):
+                if str(hdu.header.get(key, "")).strip().upper() in cls:
+                    return hdu, key
+    return None, None
+
+
+def find_hdu_or_none(hdul, extnames=(), hduclas=()):
+    """First binary-table HDU named in ``extnames``, else the first whose
+    HDUCLAS1/HDUCLAS2 is in ``hduclas`` (silently), else None."""
+    ext = {e.upper() for e in extnames}
+    for hdu in hdul[1:]:
+        if isinstance(hdu, fits.BinTableHDU) and hdu.name.upper() in ext:
             return hdu
-        for key in ("HDUCLAS1", "HDUCLAS2"):
-            if str(hdu.header.get(key, "")).strip().upper() in cls:
-                return hdu
-    return None
+    return _find_by_class(hdul, hduclas)[0] if hduclas else None
 
 
 class Table:
@@ -152,6 +168,13 @@ class Table:
         idx = self._index.get(name.upper())
         return "" if idx is None else str(self.header.get(f"TUNIT{idx}", "")).strip()
 
+    def energy_scale(self, name) -> float:
+        """Factor to keV for energy column ``name`` from its TUNIT
+        (:func:`energy_scale`; the error names the file and the keyword)."""
+        idx = self._index.get(name.upper())
+        return energy_scale(self.tunit(name), self.path,
+                            f"{name} (TUNIT{idx} in extension {self.hdu.name})")
+
     def keyword(self, name, default=None):
         val = self.header.get(name.upper(), default)
         return default if val is None else val
@@ -178,10 +201,19 @@ def as_str(value):
     return value
 
 
-def energy_scale(unit: str) -> float:
-    """Factor to keV from a TUNIT string (keV assumed when empty)."""
-    unit = unit.strip().lower()
-    return {"": 1.0, "kev": 1.0, "ev": 1e-3, "mev": 1e3}.get(unit, 1.0)
+_ENERGY_UNITS = {"": 1.0, "kev": 1.0, "ev": 1e-3, "mev": 1e3}
+
+
+def energy_scale(unit: str, path=None, column: str = "energy column") -> float:
+    """Factor to keV from a TUNIT string: keV, eV or MeV in any case; keV
+    when the TUNIT is absent or empty (the OGIP default).  Any other unit
+    is a :class:`~edgefit.errors.BadUnitError` naming ``path`` and
+    ``column``: an energy grid is never read in a unit guessed."""
+    key = str(unit).strip().lower()
+    if key not in _ENERGY_UNITS:
+        raise BadUnitError(path, f"{column} has unit {str(unit).strip()!r}; an energy column "
+                                 "must be in keV, eV or MeV")
+    return _ENERGY_UNITS[key]
 
 
 def to_float_array(values, path, what) -> np.ndarray:

@@ -32,12 +32,12 @@ import numpy as np
 import scipy.sparse as sp
 from astropy.io import fits
 
-from ..errors import (ArgumentError, BadCountsError, BadExposureError, BadGridError,
-                      ChannelMismatchError, GridMismatchError, InputFileError, InputWarning,
-                      MissingColumnError, MissingExtensionError, MissingRowError)
+from ..errors import (ArgumentError, BadChannelsError, BadCountsError, BadExposureError,
+                      BadGridError, BadScalingError, ChannelMismatchError, GridMismatchError,
+                      InputFileError, InputWarning, MissingColumnError,
+                      MissingExtensionError, MissingRowError)
 from .._units import HC_KEV_ANGSTROM
-from ._fitsio import (Table, as_str, energy_scale, find_hdu, find_hdu_or_none, open_fits,
-                      to_float_array)
+from ._fitsio import Table, as_str, find_hdu, find_hdu_or_none, open_fits, to_float_array
 from .response import Response
 from .spectrum import Spectrum
 
@@ -143,9 +143,10 @@ def read_arf(path) -> ArfData:
     """
     hdul = open_fits(path)
     t = Table(find_hdu(hdul, path, ARF_EXT, ("SPECRESP",), "SPECRESP (ARF)"), path)
-    scale = energy_scale(t.tunit("ENERG_LO"))
-    lo, hi = _check_energy_grid(to_float_array(t.column("ENERG_LO"), path, "ENERG_LO") * scale,
-                                to_float_array(t.column("ENERG_HI"), path, "ENERG_HI") * scale,
+    lo, hi = _check_energy_grid(to_float_array(t.column("ENERG_LO"), path, "ENERG_LO")
+                                * t.energy_scale("ENERG_LO"),
+                                to_float_array(t.column("ENERG_HI"), path, "ENERG_HI")
+                                * t.energy_scale("ENERG_HI"),
                                 path, "ARF")
     area = to_float_array(t.column("SPECRESP"), path, "SPECRESP")
     if not np.all(np.isfinite(area)) or np.any(area < 0):
@@ -154,15 +155,31 @@ def read_arf(path) -> ArfData:
     return ArfData(lo, hi, area, path=os.fspath(path), meta=meta)
 
 
+def _warn_detchans(t: Table, n, path):
+    """InputWarning when the DETCHANS keyword of ``t`` is not ``n``."""
+    detchans = t.keyword("DETCHANS")
+    if detchans is None:
+        return
+    try:
+        ok = int(detchans) == n
+    except (TypeError, ValueError):
+        ok = False
+    if not ok:
+        warnings.warn(InputWarning(
+            f"{os.fspath(path)}: DETCHANS = {detchans!r} in extension {t.hdu.name} but it "
+            f"has {n} channels; the {n} channels present are used"), stacklevel=4)
+
+
 def _read_ebounds_hdu(hdul, path) -> EboundsData:
     t = Table(find_hdu(hdul, path, EBOUNDS_EXT, ("EBOUNDS",), "EBOUNDS"), path)
-    scale = energy_scale(t.tunit("E_MIN"))
+    scale = t.energy_scale("E_MIN")
     e_min = to_float_array(t.column("E_MIN"), path, "E_MIN") * scale
-    e_max = to_float_array(t.column("E_MAX"), path, "E_MAX") * scale
+    e_max = to_float_array(t.column("E_MAX"), path, "E_MAX") * t.energy_scale("E_MAX")
     if t.has_column("CHANNEL"):
         chans = np.asarray(t.column("CHANNEL"), dtype=int)
     else:
         chans = np.arange(e_min.size) + t.tlmin("CHANNEL", 1)
+    _warn_detchans(t, e_min.size, path)
     _check_channel_bounds(e_min, e_max, path)
     return EboundsData(chans, e_min, e_max, path=os.fspath(path))
 
@@ -210,9 +227,10 @@ def _read_matrix_hdu(hdu, path, n_chan_hint=None, chan_offset_hint=None):
     """Parse a MATRIX/SPECRESP MATRIX table into (lo, hi, csr (chan x energy),
     first_chan, Table)."""
     t = Table(hdu, path)
-    scale = energy_scale(t.tunit("ENERG_LO"))
-    lo, hi = _check_energy_grid(to_float_array(t.column("ENERG_LO"), path, "ENERG_LO") * scale,
-                                to_float_array(t.column("ENERG_HI"), path, "ENERG_HI") * scale,
+    lo, hi = _check_energy_grid(to_float_array(t.column("ENERG_LO"), path, "ENERG_LO")
+                                * t.energy_scale("ENERG_LO"),
+                                to_float_array(t.column("ENERG_HI"), path, "ENERG_HI")
+                                * t.energy_scale("ENERG_HI"),
                                 path, "RMF")
     n_en = lo.size
     n_grp = np.asarray(t.column("N_GRP"), dtype=np.int64).reshape(-1)
@@ -392,12 +410,18 @@ def _spectrum_from_row(t: Table, path, row, type2):
 
     if t.has_column("CHANNEL"):
         ch = t.column("CHANNEL")
-        channels = np.asarray(ch[row] if type2 else ch, dtype=int).reshape(-1)
+        channels = to_float_array(ch[row] if type2 else ch, path, "CHANNEL").reshape(-1)
         if channels.size != n:
             raise InputFileError(path, f"CHANNEL has {channels.size} entries but COUNTS has "
                                        f"{n}{where}")
+        if not np.all(np.isfinite(channels)) or np.any(channels != np.round(channels)):
+            raise BadChannelsError(path, f"CHANNEL has values that are not whole "
+                                         f"numbers{where}")
+        channels = channels.astype(np.int64)
     else:
         channels = np.arange(n) + t.tlmin("CHANNEL", 1)
+    order = _channel_order(channels, path, where)
+    _warn_detchans(t, n, path)
 
     stat_err = t.get("STAT_ERR", r)
     if stat_err is not None:
@@ -427,6 +451,12 @@ def _spectrum_from_row(t: Table, path, row, type2):
             "backfile": as_str(t.get("BACKFILE", r)), "rate_column": is_rate,
             "hduclas2": as_str(t.keyword("HDUCLAS2")),
             "simulated": bool(t.keyword("SIMULATD", False))}
+    if order is not None:   # channels listed out of order: sort every per-channel array
+        counts, channels, quality = counts[order], channels[order], quality[order]
+        stat_err = None if stat_err is None else stat_err[order]
+        grouping = None if grouping is None else grouping[order]
+        backscal = backscal if np.ndim(backscal) == 0 else backscal[order]
+        areascal = areascal if np.ndim(areascal) == 0 else areascal[order]
     spec = Spectrum(counts=counts, exposure=exposure, channels=channels, backscal=backscal,
                     areascal=areascal, quality=quality, grouping=grouping, stat_err=stat_err,
                     poisson=poisson, meta=meta)
@@ -434,11 +464,31 @@ def _spectrum_from_row(t: Table, path, row, type2):
     # background carried in the same row (type II grating convention)
     if t.has_column("BACKGROUND_UP") or t.has_column("BACKGROUND_DOWN"):
         spec.background = _two_sided_background(t, path, row if type2 else None, n, exposure,
-                                                channels)
+                                                channels, order)
     return spec
 
 
-def _two_sided_background(t, path, row, n, exposure, channels):
+def _channel_order(channels, path, where=""):
+    """None when CHANNEL increases strictly; else the sorting permutation,
+    with an InputWarning naming the file and keyword.  Repeated channel
+    numbers are refused (BadChannelsError): which count belongs to the
+    response row cannot be known."""
+    if channels.size < 2 or np.all(np.diff(channels) > 0):
+        return None
+    order = np.argsort(channels, kind="stable")
+    srt = channels[order]
+    dup = np.flatnonzero(np.diff(srt) == 0)
+    if dup.size:
+        raise BadChannelsError(path, f"CHANNEL repeats channel {int(srt[dup[0]])}{where} "
+                                     f"({dup.size} repeated value(s))")
+    warnings.warn(InputWarning(
+        f"{os.fspath(path)}: CHANNEL values are not in increasing order{where}; the "
+        "channels (with their counts, errors, quality and grouping) are sorted by "
+        "channel number"), stacklevel=5)
+    return order
+
+
+def _two_sided_background(t, path, row, n, exposure, channels, order=None):
     """Background = BACKGROUND_UP + BACKGROUND_DOWN with area scaling
     BACKSCUP + BACKSCDN (regions either side of the dispersed spectrum)."""
     total = np.zeros(n)
@@ -452,7 +502,7 @@ def _two_sided_background(t, path, row, n, exposure, channels):
             raise InputFileError(path, f"{col} has {vals.size} values but COUNTS has {n}")
         if not np.all(np.isfinite(vals)) or np.any(vals < 0):
             raise BadCountsError(path, f"{col} has negative or non-finite counts")
-        total += vals
+        total += vals if order is None else vals[order]
         s = t.get(key, row)
         if s is None:
             raise MissingColumnError(path, f"{col} is present but its area scaling {key} is not")
@@ -555,6 +605,53 @@ def _check_channels(spec, resp, path):
             path, f"spectrum channels start at {int(spec.channels[0])} but its response's "
                   f"({resp.rmf_path or 'in memory'}) start at {int(resp.channels[0])} "
                   "(check TLMIN of CHANNEL / F_CHAN)")
+    differ = np.flatnonzero(np.asarray(spec.channels) != np.asarray(resp.channels))
+    if differ.size:
+        i = int(differ[0])
+        raise ChannelMismatchError(
+            path, f"CHANNEL {int(spec.channels[i])} at index {i} but its response's "
+                  f"({resp.rmf_path or 'in memory'}) channel there is {int(resp.channels[i])} "
+                  "(the CHANNEL column has gaps)")
+
+
+def _bad_scaling(spec, key):
+    """(first bad value, number of bad channels) of BACKSCAL/AREASCAL
+    among the good-quality channels, or None when all are positive."""
+    v = np.broadcast_to(np.asarray(getattr(spec, key.lower()), dtype=float),
+                        (spec.n_channels,))
+    bad = (~np.isfinite(v) | (v <= 0)) & spec.good
+    if not bad.any():
+        return None
+    return float(v[np.flatnonzero(bad)[0]]), int(bad.sum())
+
+
+def _check_scaling(spec):
+    """BACKSCAL and AREASCAL must be positive and finite (in the channels
+    of good quality) wherever a background is scaled with them: refused
+    (BadScalingError) when ``spec`` has a background, an InputWarning
+    otherwise.  A background's own scalings are always needed."""
+    src = spec.meta.get("path")
+    bkg = spec.background
+    for key in ("BACKSCAL", "AREASCAL"):
+        found = _bad_scaling(spec, key)
+        if found is None:
+            continue
+        what = (f"{key} = {found[0]:g} (in {found[1]} good channel(s)); it must be "
+                "positive")
+        if bkg is not None:
+            raise BadScalingError(src, f"{what}: the background is scaled with it")
+        warnings.warn(InputWarning(f"{src}: {what} (no background uses it here)"),
+                      stacklevel=3)
+    if bkg is not None:
+        two_sided = bkg.meta.get("kind") == "BACKGROUND_UP+DOWN"
+        for key in ("BACKSCAL", "AREASCAL"):
+            found = _bad_scaling(bkg, key)
+            if found is not None:
+                name = "BACKSCUP + BACKSCDN" if two_sided and key == "BACKSCAL" else key
+                raise BadScalingError(bkg.meta.get("path"), f"background {name} = "
+                                      f"{found[0]:g}; it must be positive to scale the "
+                                      "background to the source")
+    return spec
 
 
 def _open_pha(path):
@@ -592,12 +689,12 @@ def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spe
     """
     t = _open_pha(path)
     if not _is_type2(t):
-        return [_read_type1(t, path, row, order, arm, attach)]
+        return [_check_scaling(_read_type1(t, path, row, order, arm, attach))]
     out, cache = [], {}
     for i in _select_rows(t, path, row, order, arm):
         s = _spectrum_from_row(t, path, i, True)
-        out.append(_attach_companions(s, path, i, s.meta["order"], s.meta["arm"], attach,
-                                      cache))
+        out.append(_check_scaling(_attach_companions(s, path, i, s.meta["order"],
+                                                     s.meta["arm"], attach, cache)))
     return out
 
 
@@ -628,7 +725,19 @@ def read_pha(path, row=None, order=None, arm=None, attach=True) -> Spectrum:
     MissingRowError
         No row matches ``row``/``order``/``arm`` (an :class:`AmbiguousRowError`
         when several do and the request does not pick one).
+    BadChannelsError
+        CHANNEL repeats a channel number (channels listed out of order are
+        sorted, with an InputWarning).
+    BadScalingError
+        BACKSCAL or AREASCAL is zero, negative or not finite in a good
+        channel and a background is scaled with it (an InputWarning when
+        no background is attached).
     """
+    return _check_scaling(_read_one(path, row, order, arm, attach))
+
+
+def _read_one(path, row, order, arm, attach):
+    """:func:`read_pha` without the final BACKSCAL/AREASCAL check."""
     t = _open_pha(path)
     if not _is_type2(t):
         return _read_type1(t, path, row, order, arm, attach)
@@ -657,7 +766,7 @@ def load_spectrum(pha, rmf=None, arf=None, background=None, row=None, order=None
     row, order, arm
         As in :func:`read_pha`.
     """
-    spec = read_pha(pha, row=row, order=order, arm=arm, attach=rmf is None)
+    spec = _read_one(pha, row, order, arm, attach=rmf is None)
     if rmf is not None:
         resp = read_response(rmf, arf)
         _check_channels(spec, resp, pha)
@@ -672,7 +781,7 @@ def load_spectrum(pha, rmf=None, arf=None, background=None, row=None, order=None
         else:
             spec.background = _read_background(background, spec, row=spec.meta.get("row"),
                                                order=order, arm=arm)
-    return spec
+    return _check_scaling(spec)
 
 
 # ----------------------------------------------------------------------
