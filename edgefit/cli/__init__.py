@@ -15,7 +15,8 @@ import sys
 from ..errors import EdgefitError
 
 #: Modules of edgefit.cli that define sub-commands, in help order.
-COMMAND_MODULES = ["inspect", "fit", "demo", "dust_tables", "batch", "simulate", "plan"]
+COMMAND_MODULES = ["inspect", "fit", "demo", "dust_tables", "batch", "simulate", "plan",
+                   "regress"]
 
 
 def build_parser() -> argparse.ArgumentParser:
