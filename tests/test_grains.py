@@ -48,9 +48,9 @@ def test_small_grains_give_ndust_over_atoms_per_grain():
     tau = n_dust * per_si
     t = Table()
     t["name"] = ["sim-a", "sim-b", "sim-c"]
-    t["tau_above_edge"] = tau * u.dimensionless_unscaled
-    t["tau_above_edge_lo"] = 0.9 * tau * u.dimensionless_unscaled
-    t["tau_above_edge_hi"] = 1.2 * tau * u.dimensionless_unscaled
+    t["dust_tau_above"] = tau * u.dimensionless_unscaled
+    t["dust_tau_above_lo"] = 0.9 * tau * u.dimensionless_unscaled
+    t["dust_tau_above_hi"] = 1.2 * tau * u.dimensionless_unscaled
     out = grain_columns(t, material="olivine", element="Si", sizes=0.005 * u.um,
                         count_once=False, kind="abs")
     expect = n_dust / _atoms_per_grain(0.005)
@@ -109,8 +109,8 @@ def test_shielded_relation_recovers_grain_size():
     t["nh_total"] = (nh * (1 + 0.05 * rng.standard_normal(n))) * u.cm ** -2
     t["nh_total_err"] = 0.05 * nh * u.cm ** -2
     sig = 0.08 * tau
-    t["tau_above_edge"] = (tau + sig * rng.standard_normal(n)) * u.dimensionless_unscaled
-    t["tau_above_edge_err"] = sig * u.dimensionless_unscaled
+    t["dust_tau_above"] = (tau + sig * rng.standard_normal(n)) * u.dimensionless_unscaled
+    t["dust_tau_above_err"] = sig * u.dimensionless_unscaled
     res = fit_shielded_relation(t, material="olivine", element="Si")
     a = np.array(res["shielded"]["profile_radius_um"])
     chi2 = np.array(res["shielded"]["profile_chi2"])

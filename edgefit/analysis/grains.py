@@ -1,9 +1,9 @@
 """Grain columns from dust optical depths, through self-shielding.
 
 A sightline's fitted dust optical depth at a reference energy E (by default
-20 eV above the edge, the ``tau_above_edge`` derived quantity of a dust
-edge) is τ = N_gr σ_gr(E), with N_gr the grain column (grains cm⁻²) and
-σ_gr the extinction cross section of one grain averaged over the size
+20 eV above the edge: the ``tau_above`` derived quantity of a dust edge,
+sample-table column ``dust_tau_above`` for a component named ``dust``) is
+τ = N_gr σ_gr(E), with N_gr the grain column (grains cm⁻²) and σ_gr the extinction cross section of one grain averaged over the size
 distribution, from the package's own Mie / anomalous-diffraction per-size
 tables (:func:`edgefit.dust.tables.grain_cross_sections`).  So
 
@@ -43,22 +43,22 @@ import numpy as np
 from astropy import units as u
 
 from .._units import HC_KEV_ANGSTROM, as_kev
-from ..errors import InputFileError, PhysicsDataError
+from ..errors import ArgumentError, InputFileError, PhysicsDataError
 from .regression import SampleColumnError, read_quantity
 
 __all__ = ["grain_cross_section", "shielding_factor", "geometric_shielding",
            "grain_columns", "fit_shielded_relation", "reference_energy"]
 
 
-def reference_energy(element, offset_kev=0.02) -> float:
-    """Default reference energy (keV): ``offset_kev`` above the element's
-    edge as placed by the atomic tables (as the dust edge's
-    ``tau_above_edge`` derived quantity uses)."""
+def reference_energy(element) -> float:
+    """Default reference energy (keV): just above the element's edge as
+    placed by the atomic tables (:func:`edgefit.physics.atomic.edge_bracket`,
+    the rule of the dust edge's ``tau_above``)."""
     from ..dust.tables import region_for
     from ..physics import atomic
 
     edge = region_for(element)[0]
-    return atomic.edge_position(element, edge) + offset_kev
+    return atomic.edge_bracket(atomic.edge_position(element, edge))[1]
 
 
 def _distribution(sizes):
@@ -83,7 +83,7 @@ def _per_size(material, element, energy_kev, radii, count_once, kind="ext"):
     sig_abs, sig_sca, _ = grain_cross_sections(material, np.array([energy_kev]), radii)
     n_atoms = material.atoms_per_grain(element, radii)
     if kind not in ("ext", "abs"):
-        raise PhysicsDataError(f"kind must be 'ext' or 'abs', not {kind!r}")
+        raise ArgumentError(f"kind must be 'ext' or 'abs', not {kind!r}")
     ext = sig_abs[0] + sig_sca[0] if kind == "ext" else sig_abs[0].copy()
     if count_once:
         cz = material.count(element)
@@ -195,7 +195,7 @@ def shielding_factor(material="olivine", element="Si", radius=1.0, energy=None, 
     return factor, tau_d
 
 
-def grain_columns(table, tau="tau_above_edge", *, material="olivine", element="Si",
+def grain_columns(table, tau="dust_tau_above", *, material="olivine", element="Si",
                   sizes=0.1, energy=None, count_once=True, kind="ext", prefix="",
                   source=None):
     """Add grain and dust-element columns (with 68 % intervals) to a sample
@@ -250,7 +250,7 @@ def _censored_chi2(model, y, sig, upper):
     return chi2
 
 
-def fit_shielded_relation(table, tau="tau_above_edge", nh="nh_total", *, material="olivine",
+def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, material="olivine",
                           element="Si", abundance=None, dust_fraction=None, energy=None,
                           count_once=True, kind="ext", radii=None, source=None) -> dict:
     """Fit τ against N_H with the self-shielded relation and a straight line.

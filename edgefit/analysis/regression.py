@@ -73,7 +73,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from astropy import units as u
 
-from ..errors import FitError, InputFileError, MissingColumnError, ShortChainWarning
+from ..errors import (ArgumentError, FitError, InputFileError, MissingColumnError,
+                      ShortChainWarning)
 
 __all__ = ["SYMMETRISATION_RULE", "SampleColumnError", "Measurements", "RegressionResult",
            "read_quantity", "regress", "odr_line", "ODR_SETTINGS", "bayes_line", "censored_kendall",
@@ -222,7 +223,7 @@ def censored_kendall(x, y, x_upper=None, y_upper=None) -> dict:
     x, y = np.asarray(x, float), np.asarray(y, float)
     n = len(x)
     if n < 3:
-        raise ValueError("censored Kendall's tau needs at least 3 points")
+        raise ArgumentError("censored Kendall's tau needs at least 3 points")
     xu = np.zeros(n, bool) if x_upper is None else np.asarray(x_upper, bool)
     yu = np.zeros(n, bool) if y_upper is None else np.asarray(y_upper, bool)
     a = _pair_signs(x, xu)
