@@ -536,17 +536,20 @@ class McmcSettings(_Section):
 @dataclass
 class DerivedSettings(_Section):
     """``[derived]``: reference energy of optical depths (default: just
-    above each edge) and the interval levels of derived quantities."""
+    above each edge), the interval levels of derived quantities and the
+    number of posterior (or covariance-Gaussian) draws they use."""
 
     reference_energy: float | None = None
     reference_unit: str = "keV"
     levels: tuple = (ONE_SIGMA, 0.90)
+    draws: int = 2000
 
     KEY = "derived"
     CHECKS = {
         "reference_energy": (lambda v: _number(v) and v > 0, "a positive number"),
         "reference_unit": (lambda v: isinstance(v, str), "a unit such as \"keV\""),
         "levels": (_probabilities, "a list of probabilities in (0, 1)"),
+        "draws": (lambda v: _integer(v, 1), "a positive integer"),
     }
 
     def reference(self):

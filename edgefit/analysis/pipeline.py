@@ -181,7 +181,8 @@ def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=
 
     der = cfg.derived
     stage("derived", lambda: derived_quantities(result, reference_energy=der.reference(),
-                                                levels=tuple(der.levels)))
+                                                levels=tuple(der.levels),
+                                                max_draws=der.draws))
     pl = cfg.plots
     if pl.enabled and plots and figures is not None:
         stage("plots", lambda: figures(result, out_dir, pl))

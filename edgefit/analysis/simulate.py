@@ -105,7 +105,7 @@ def _pair(value, path, key):
 def simulation_from_dict(data, path=None, seed=None):
     """A :class:`SimulationSetup` from a parsed simulation configuration
     (see the module docstring); errors name ``path`` and the key."""
-    from ..config import apply_parameter_settings, build_model
+    from .config import apply_parameter_settings, build_model
     from ..data import read_response
     from ..data.instrument import DEFAULT_BAND_KEV, ENERGY_STEP_KEV, arm_response
 

@@ -1,0 +1,408 @@
+"""Fit every sightline of a manifest, in parallel, resumably.
+
+:func:`run_batch` runs :func:`edgefit.analysis.pipeline.run_sightline` for
+each sightline of a :class:`~edgefit.analysis.manifest.Manifest` on a local
+process pool (default) or on a dask.distributed cluster (``scheduler``).
+
+Output folder layout::
+
+    DIR/sample.ecsv, DIR/sample.fits     the sample table (sample_table.py)
+    DIR/sightlines/<name>/               one folder per finished sightline:
+        fit.ecsv fit.fits fit.json fit_parameters.ecsv fit_summary.txt
+        posterior_samples.npz            when MCMC ran
+        *.png                            figures, when drawn
+        row.json                         its sample-table record + input hash
+
+How it stays safe:
+
+* Workers compute into a private temporary folder and send the files back;
+  the main process writes them into ``DIR/.work/`` and renames the folder
+  into ``DIR/sightlines/`` -- a sightline's folder appears whole or not at
+  all.  The sample table is rewritten (temporary file, rename) after every
+  finished sightline.
+* ``row.json`` holds a SHA-256 of the sightline's inputs (merged manifest
+  entry, hydrogen columns, run options, edgefit version and the bytes of
+  every input file, see :meth:`SightlineEntry.input_hash`).  A rerun skips
+  a sightline whose hash is unchanged and whose status is not ``failed``;
+  changed and failed ones are fitted again.
+* A failing sightline becomes a ``failed`` row with a one-line reason; the
+  others go on.
+* Ctrl-C (SIGINT) or SIGTERM stops the workers, throws away what was
+  running (nothing of it reaches ``DIR/sightlines/``), rewrites the table
+  of the finished ones and raises :class:`BatchInterrupted`, whose message
+  says how many finished and how to resume.
+
+dask is imported only when ``scheduler`` is given (optional extra
+``edgefit[cluster]``); the workers need edgefit installed and the input
+files at the same paths (a shared file system); results travel back to the
+main process, which alone writes ``DIR``.
+"""
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import sys
+import tempfile
+import uuid
+from contextlib import contextmanager
+from pathlib import Path
+
+from ..errors import ArgumentError, EdgefitError, MissingDependencyError
+from .manifest import Manifest, load_manifest
+from .sample_table import failed_row, sample_table, write_sample_table
+
+__all__ = ["run_batch", "BatchInterrupted", "default_output", "fit_task", "ROW_FILE",
+           "SIGHTLINES_DIR"]
+
+#: The record of a finished sightline, inside its folder.
+ROW_FILE = "row.json"
+#: Sub-folder of the output holding one folder per sightline.
+SIGHTLINES_DIR = "sightlines"
+_WORK_DIR = ".work"
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                "NUMBA_NUM_THREADS")
+
+
+class BatchInterrupted(EdgefitError):
+    """A batch stopped by Ctrl-C or SIGTERM; finished sightlines are kept."""
+
+    def __init__(self, finished, total, output, resume_hint, signum=signal.SIGINT):
+        self.finished = finished
+        self.total = total
+        self.output = output
+        self.signum = int(signum)
+        super().__init__(f"interrupted: {finished} of {total} sightlines finished and kept "
+                         f"in {output}; {resume_hint}")
+
+
+class _Terminated(BaseException):
+    """Raised in the main thread by the SIGTERM handler."""
+
+
+def default_output(manifest_path):
+    """``<manifest folder>/<manifest stem>_batch``."""
+    p = Path(manifest_path)
+    return p.parent / f"{p.stem}_batch"
+
+
+def _one_line(exc):
+    msg = str(exc).strip()
+    if isinstance(exc, EdgefitError) and msg:
+        return msg.splitlines()[0]
+    return f"{type(exc).__name__}: {msg.splitlines()[0]}" if msg else type(exc).__name__
+
+
+# ---------------------------------------------------------------------------
+# in the worker
+def _worker_init():
+    """Workers leave Ctrl-C to the main process, which stops them."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def fit_task(task):
+    """Fit one sightline (run in a worker process).
+
+    ``task`` is a plain dict (see :func:`_task`); returns ``{"name",
+    "folder", "row", "files"}`` where ``files`` maps relative paths to the
+    bytes of every file the pipeline wrote.  Never raises for a problem of
+    the sightline: that becomes a ``failed`` row."""
+    from .config import config_from_dict
+    from .pipeline import run_sightline
+    from .sample_table import sightline_row
+
+    tmp = Path(tempfile.mkdtemp(prefix="edgefit-sightline-"))
+    seen = []
+    try:
+        try:
+            cfg = config_from_dict(task["table"], task["manifest"], base=task["base"],
+                                   key_prefix=f"sightline[{task['index']}].",
+                                   name=task["name"], output=tmp)
+            result = run_sightline(cfg, tmp, mcmc=task["mcmc"], plots=task["plots"],
+                                   steps=task["steps"], quiet=True, command="batch",
+                                   keep_samples=True, figures=task["figures"],
+                                   warn=lambda m: seen.append(
+                                       "warning: " + (str(m).splitlines() or [""])[0]))
+            row = sightline_row(result, task["name"], seen)
+        except Exception as exc:  # noqa: BLE001 -- one sightline's failure is its row
+            row = failed_row(task["name"], _one_line(exc))
+        files = {p.relative_to(tmp).as_posix(): p.read_bytes()
+                 for p in sorted(tmp.rglob("*")) if p.is_file()}
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    row["input_hash"] = task["hash"]
+    return {"name": task["name"], "folder": task["folder"], "row": row, "files": files}
+
+
+# ---------------------------------------------------------------------------
+# in the main process
+def _task(manifest, entry, digest, mcmc, plots, steps, figures):
+    return {"manifest": str(manifest.path), "base": str(entry.config.base),
+            "index": entry.index, "name": entry.name, "folder": entry.folder,
+            "table": entry.table, "hash": digest, "mcmc": mcmc, "plots": plots,
+            "steps": steps, "figures": figures}
+
+
+def _read_record(out, entry):
+    p = out / SIGHTLINES_DIR / entry.folder / ROW_FILE
+    try:
+        rec = json.loads(p.read_text())
+    except (OSError, ValueError):
+        return None
+    return rec if isinstance(rec, dict) and rec.get("name") == entry.name else None
+
+
+def _commit(out, result):
+    """Write one finished sightline's files atomically: a temporary folder
+    in DIR/.work, renamed into DIR/sightlines/<folder>."""
+    work = out / _WORK_DIR
+    work.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f"{result['folder']}.", dir=work))
+    for rel, data in result["files"].items():
+        p = (tmp / rel).resolve()
+        if tmp.resolve() not in p.parents:
+            continue  # only files inside the folder
+        p.parent.mkdir(parents=True, exist_ok=True)
+        p.write_bytes(data)
+    (tmp / ROW_FILE).write_text(json.dumps(result["row"], indent=1) + "\n")
+    dest = out / SIGHTLINES_DIR / result["folder"]
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    old = None
+    if dest.exists():
+        old = work / f"{result['folder']}.old-{uuid.uuid4().hex[:8]}"
+        os.rename(dest, old)
+    os.rename(tmp, dest)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+@contextmanager
+def _single_threaded_workers(active):
+    """Child processes inherit one-thread settings for BLAS/OpenMP/numba
+    (several workers on few cores would otherwise oversubscribe them)."""
+    saved = {k: os.environ.get(k) for k in _THREAD_VARS}
+    if active:
+        for k in _THREAD_VARS:
+            os.environ.setdefault(k, "1")
+    try:
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+@contextmanager
+def _sigterm_raises():
+    """SIGTERM raises _Terminated in the main thread while inside."""
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        raise _Terminated()
+
+    old = signal.signal(signal.SIGTERM, handler)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
+
+
+@contextmanager
+def _signals_deferred():
+    """SIGINT/SIGTERM arriving inside are delivered on leaving (POSIX)."""
+    sigs = {signal.SIGINT, signal.SIGTERM}
+    if not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, sigs)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
+def _run_pool(tasks, workers, on_result):
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from multiprocessing import get_context
+
+    with _single_threaded_workers(workers > 1):
+        ex = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
+                                 initializer=_worker_init)
+        try:
+            futures = {ex.submit(fit_task, t): t for t in tasks}
+            for fut in as_completed(futures):
+                t = futures[fut]
+                try:
+                    res = fut.result()
+                except Exception as exc:  # noqa: BLE001 -- e.g. a worker killed
+                    res = {"name": t["name"], "folder": t["folder"], "files": {},
+                           "row": dict(failed_row(t["name"], "worker lost: "
+                                                  + _one_line(exc)), input_hash=t["hash"])}
+                on_result(res)
+        except BaseException:
+            for p in list(getattr(ex, "_processes", {}).values()):
+                p.terminate()
+            ex.shutdown(wait=False, cancel_futures=True)
+            raise
+        ex.shutdown(wait=True)
+
+
+def _run_inline(tasks, on_result):
+    for t in tasks:
+        on_result(fit_task(t))
+
+
+def _run_dask(tasks, scheduler, on_result):
+    try:
+        from dask.distributed import Client, as_completed
+    except ImportError as exc:
+        raise MissingDependencyError(
+            "--scheduler needs dask.distributed: pip install 'edgefit[cluster]'") from exc
+    own = not isinstance(scheduler, Client)
+    try:
+        client = Client(scheduler, timeout="30s") if own else scheduler
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise ArgumentError(f"cannot reach the dask scheduler at {scheduler}: "
+                            f"{_one_line(exc)}") from None
+    futures = {}
+    try:
+        for t in tasks:
+            fut = client.submit(fit_task, t, pure=False,
+                                key=f"edgefit-{t['folder']}-{t['hash'][:12]}")
+            futures[fut] = t
+        for fut in as_completed(list(futures)):
+            t = futures[fut]
+            try:
+                res = fut.result()
+            except Exception as exc:  # noqa: BLE001 -- a lost worker
+                res = {"name": t["name"], "folder": t["folder"], "files": {},
+                       "row": dict(failed_row(t["name"], "worker lost: " + _one_line(exc)),
+                                   input_hash=t["hash"])}
+            on_result(res)
+    except BaseException:
+        client.cancel(list(futures))
+        raise
+    finally:
+        if own:
+            client.close()
+
+
+def run_batch(manifest, output=None, *, workers=None, scheduler=None, fresh=False,
+              only=None, mcmc=True, plots=True, steps=None, figures=None, progress=True,
+              resume_hint=None):
+    """Fit the sightlines of a manifest and return the sample table.
+
+    Parameters
+    ----------
+    manifest : path or Manifest
+        The batch manifest (:func:`~edgefit.analysis.manifest.load_manifest`
+        checks it whole before anything runs).
+    output : path, optional
+        Output folder (default ``<manifest stem>_batch`` beside it).
+    workers : int, optional
+        Local worker processes (default: the number of CPUs); 0 runs the
+        sightlines one after another in this process.
+    scheduler : str or dask.distributed.Client, optional
+        Run on this dask.distributed cluster instead of the local pool.
+    fresh : bool
+        Refit every selected sightline even when its inputs are unchanged.
+    only : list of str, optional
+        Fit only these sightlines (the table still lists every finished one).
+    mcmc, plots, steps
+        As for :func:`~edgefit.analysis.pipeline.run_sightline`.
+    figures : callable, optional
+        Figure hook handed to ``run_sightline`` (must be picklable, e.g.
+        :func:`edgefit.plotting.fit_plots.save_configured`); none by default.
+    progress : bool
+        A tqdm bar (on stderr) counting sightlines done and failed.
+
+    Returns
+    -------
+    astropy.table.Table
+        The sample table (also written to ``DIR/sample.ecsv`` and
+        ``DIR/sample.fits``): every sightline of the manifest whose results
+        are up to date, in manifest order.
+
+    Raises
+    ------
+    BatchInterrupted
+        On Ctrl-C / SIGTERM, after the finished sightlines are safe.
+    """
+    if not isinstance(manifest, Manifest):
+        manifest = load_manifest(manifest)
+    out = Path(output) if output is not None else default_output(manifest.path)
+    selected = manifest.select(only)
+    if workers is None:
+        workers = os.cpu_count() or 1
+    if workers < 0:
+        raise ArgumentError(f"workers must be >= 0, got {workers}")
+    (out / SIGHTLINES_DIR).mkdir(parents=True, exist_ok=True)
+    shutil.rmtree(out / _WORK_DIR, ignore_errors=True)  # leftovers of a killed run
+    options = {"mcmc": bool(mcmc), "plots": bool(plots), "steps": steps}
+    digests = {e.name: e.input_hash(options) for e in manifest}
+    records = {}
+    for e in manifest:
+        rec = _read_record(out, e)
+        if rec is not None and rec.get("input_hash") == digests[e.name]:
+            records[e.name] = rec
+    todo = [e for e in selected
+            if fresh or e.name not in records or records[e.name]["status"] == "failed"]
+    for e in todo:
+        records.pop(e.name, None)
+    hydrogen = {e.name: e.hydrogen for e in manifest}
+    meta = {"manifest": manifest.path.name, "n_sightlines": len(manifest)}
+
+    def write_table():
+        rows = [records[e.name] for e in manifest if e.name in records]
+        table = sample_table(rows, hydrogen, meta)
+        write_sample_table(table, out)
+        return table
+
+    table = write_table()
+    tasks = [_task(manifest, e, digests[e.name], bool(mcmc), bool(plots), steps, figures)
+             for e in todo]
+    from tqdm.auto import tqdm
+
+    bar = tqdm(total=len(tasks), desc="sightlines", unit="sightline", file=sys.stderr,
+               disable=not progress, dynamic_ncols=True)
+    counts = {"done": 0, "failed": 0}
+
+    def on_result(res):
+        nonlocal table
+        with _signals_deferred():   # a folder and the table are written whole
+            _commit(out, res)
+            records[res["name"]] = res["row"]
+            table = write_table()
+        counts["failed" if res["row"]["status"] == "failed" else "done"] += 1
+        bar.set_postfix(counts, refresh=False)
+        bar.update(1)
+
+    try:
+        with _sigterm_raises():
+            if not tasks:
+                pass
+            elif scheduler is not None:
+                _run_dask(tasks, scheduler, on_result)
+            elif workers == 0:
+                _run_inline(tasks, on_result)
+            else:
+                _run_pool(tasks, min(workers, len(tasks)), on_result)
+    except (KeyboardInterrupt, _Terminated) as exc:
+        signum = signal.SIGTERM if isinstance(exc, _Terminated) else signal.SIGINT
+        bar.close()
+        shutil.rmtree(out / _WORK_DIR, ignore_errors=True)
+        write_table()
+        finished = sum(1 for e in manifest if e.name in records)
+        hint = resume_hint or ("call run_batch again with the same manifest and output "
+                               "to resume (finished sightlines are skipped)")
+        raise BatchInterrupted(finished, len(manifest), out, hint, signum) from None
+    bar.close()
+    shutil.rmtree(out / _WORK_DIR, ignore_errors=True)
+    return table

@@ -1,0 +1,307 @@
+"""The sample table: one row per sightline of a batch.
+
+:func:`sightline_row` turns one sightline's :class:`~edgefit.inference.FitResult`
+into a JSON-ready record; :func:`sample_table` stacks records (in manifest
+order) into an astropy Table with units; :func:`write_sample_table` writes
+``sample.ecsv`` and ``sample.fits`` atomically.  The format is documented in
+the README (section "The sample table") and summarised here:
+
+* ``name``, ``status`` (``ok``, ``doubtful``, ``failed``), ``reason`` (one
+  line; empty when ok);
+* ``statistic`` (C or chi-square at the best fit), ``dof``, ``n_bins``,
+  ``gof_p`` (goodness-of-fit p-value of the statistic), ``ppc_p``
+  (posterior predictive p-value; NaN when not run), ``converged`` and
+  ``flags`` (comma-separated convergence flags);
+* the hydrogen columns of the manifest (``nh_hi``, ``nh_hi_err``,
+  ``nh_hi_upper``, the same for ``n_h2`` and ``nh_total``, in cm^-2) and
+  ``nh_hi_2h2`` = N(HI) + 2 N(H2) with ``nh_hi_2h2_err`` (the two tracer
+  errors in quadrature, 2 x for H2) and ``nh_hi_2h2_upper``;
+* for every fitted (free) parameter, every derived quantity and every
+  total element column ``total_<El>_cm2`` = N_gas + N_dust: three columns
+  ``Q``, ``Q_lo``, ``Q_hi`` with the unit of Q -- the best-fit value and
+  the central 68.27 % interval (:data:`edgefit.stats.ONE_SIGMA`).
+
+``meta["interval_source"]`` says for every Q where its interval came
+from: ``profile`` (profile likelihood, Delta stat = 1), ``posterior``
+(MCMC quantiles), ``covariance`` (parameters: value -/+ covariance error;
+derived quantities and totals: quantiles of draws from the covariance
+Gaussian, which keep the correlations) or ``none``; a dict
+{sightline: source} when the sightlines differ.  The FITS file repeats
+these as COMMENT cards.
+"""
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from ..stats import ONE_SIGMA
+from .manifest import HYDROGEN_KEYS
+
+__all__ = ["sightline_row", "failed_row", "sample_table", "write_sample_table",
+           "read_sample_table", "STATUSES", "POOR_FIT_P"]
+
+#: Row statuses.
+STATUSES = ("ok", "doubtful", "failed")
+#: A goodness-of-fit p-value below this marks a fit doubtful (common practice).
+POOR_FIT_P = 1e-3
+_CM2 = "cm-2"
+
+
+def _f(x):
+    """float, with None and non-finite values as None (JSON null)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _is_one_sigma(level):
+    return abs(float(level) - ONE_SIGMA) < 5e-4
+
+
+def _parameter_interval(result, name):
+    """(lo, hi, source) of a free parameter's 68.27 % interval."""
+    for lev, iv in result.intervals.get(name, {}).items():
+        if _is_one_sigma(lev) and iv.lower is not None and iv.upper is not None:
+            return iv.lower, iv.upper, "profile"
+    if result.mcmc is not None and name in result.mcmc.names:
+        _, lo, hi = result.mcmc.quantiles(name, ONE_SIGMA)
+        return lo, hi, "posterior"
+    err = result.error(name)
+    if err is not None and math.isfinite(err):
+        v = float(result.params[name].value)
+        return v - err, v + err, "covariance"
+    return None, None, "none"
+
+
+def _draw_source(derived):
+    return {"MCMC posterior": "posterior",
+            "covariance Gaussian": "covariance"}.get(derived.source, "none")
+
+
+def _totals(result):
+    """{element: (best, samples, unit)} of N_gas + N_dust for every element
+    with components of both phases, summed draw by draw over the derived
+    quantities' joint draws."""
+    from ..inference.derived import PHASES
+    from ..models.base import COLUMN_KEY
+
+    der = result.derived
+    if der is None:
+        return {}
+    by_el = {}
+    for comp in result.model.components():
+        phase = getattr(comp, "phase", None)
+        element = getattr(comp, "element", None)
+        qname = f"{comp.name}_{COLUMN_KEY}"
+        if phase in PHASES and element and qname in der.names():
+            by_el.setdefault(element, {}).setdefault(phase, []).append(der[qname])
+    out = {}
+    for el, phases in by_el.items():
+        if not all(p in phases for p in PHASES):
+            continue
+        qs = [q for p in PHASES for q in phases[p]]
+        best = sum(q.best for q in qs)
+        samples = np.sum([q.samples for q in qs], axis=0)
+        out[el] = (best, samples, qs[0].unit)
+    return out
+
+
+def sightline_row(result, name, warnings_seen=()):
+    """The sample-table record of one finished sightline (JSON-ready dict).
+
+    ``status`` is ``doubtful`` when a convergence flag was raised, the MCMC
+    chain is shorter than its autocorrelation rule, the goodness-of-fit
+    p-value is below :data:`POOR_FIT_P` or a convergence warning was
+    seen; the ``reason`` says which.  Keys: name, status, reason,
+    statistic, dof, n_bins, gof_p, ppc_p, converged, flags, quantities
+    (ordered list of [name, best, lo, hi, unit, source])."""
+    reasons = []
+    if not result.converged:
+        reasons.append("convergence flags: " + ", ".join(result.flags))
+    if result.mcmc is not None and result.mcmc.short_chain:
+        reasons.append("MCMC chain shorter than its autocorrelation rule")
+    gof_p = (result.goodness or {}).get("p_value")
+    if gof_p is not None and math.isfinite(gof_p) and gof_p < POOR_FIT_P:
+        reasons.append(f"poor fit (goodness p = {gof_p:.2g})")
+    for w in warnings_seen:
+        if w not in reasons:
+            reasons.append(w)
+    quantities = []
+    for n in result.free_names:
+        lo, hi, src = _parameter_interval(result, n)
+        quantities.append([n, _f(result.params[n].value), _f(lo), _f(hi), result.unit(n), src])
+    if result.derived is not None:
+        src = _draw_source(result.derived)
+        for q in result.derived.quantities:
+            lo, hi = q.interval(ONE_SIGMA)
+            quantities.append([q.name, _f(q.best), _f(lo), _f(hi), q.unit, src])
+        for el, (best, samples, unit) in _totals(result).items():
+            s = samples[np.isfinite(samples)]
+            lo, hi = ((np.quantile(s, [0.5 - ONE_SIGMA / 2, 0.5 + ONE_SIGMA / 2]))
+                      if s.size else (None, None))
+            quantities.append([f"total_{el}_cm2", _f(best), _f(lo), _f(hi), unit, src])
+    return {"name": name, "status": "doubtful" if reasons else "ok",
+            "reason": "; ".join(reasons), "statistic": _f(result.statistic),
+            "dof": int(result.dof), "n_bins": int(result.n_bins), "gof_p": _f(gof_p),
+            "ppc_p": _f((result.ppc or {}).get("p_value")), "converged": bool(result.converged),
+            "flags": ",".join(result.flags), "quantities": quantities}
+
+
+def failed_row(name, reason):
+    """The record of a sightline that failed: ``reason`` is one line."""
+    reason = (str(reason).strip().splitlines() or ["unknown error"])[0]
+    return {"name": name, "status": "failed", "reason": reason, "statistic": None,
+            "dof": None, "n_bins": None, "gof_p": None, "ppc_p": None, "converged": False,
+            "flags": "", "quantities": []}
+
+
+def _nan(x):
+    return np.nan if x is None else float(x)
+
+
+def _hydrogen_columns(h):
+    """Values of the hydrogen columns (and N(HI) + 2 N(H2)) for one row."""
+    out = {k: (bool(h.get(k, False)) if k.endswith("_upper") else _nan(h.get(k)))
+           for k in HYDROGEN_KEYS}
+    hi, h2 = h.get("nh_hi"), h.get("n_h2")
+    if hi is not None and h2 is not None:
+        out["nh_hi_2h2"] = hi + 2.0 * h2
+        ehi, eh2 = h.get("nh_hi_err"), h.get("n_h2_err")
+        out["nh_hi_2h2_err"] = (math.hypot(ehi, 2.0 * eh2)
+                                if ehi is not None and eh2 is not None else np.nan)
+        out["nh_hi_2h2_upper"] = bool(h.get("nh_hi_upper") or h.get("n_h2_upper"))
+    else:
+        out["nh_hi_2h2"] = np.nan
+        out["nh_hi_2h2_err"] = np.nan
+        out["nh_hi_2h2_upper"] = False
+    return out
+
+
+def sample_table(records, hydrogen=None, meta=None):
+    """An astropy Table from sightline records (in the order given).
+
+    ``hydrogen`` maps a sightline name to its manifest hydrogen columns.
+    Quantities missing from a row (another model) are NaN."""
+    from astropy import units as u
+    from astropy.table import Column, Table
+
+    hydrogen = hydrogen or {}
+    order, units, sources = [], {}, {}
+    for r in records:
+        for qname, _b, _lo, _hi, unit, src in r["quantities"]:
+            if qname not in units:
+                order.append(qname)
+                units[qname] = unit
+            sources.setdefault(qname, {})[r["name"]] = src
+    t = Table()
+    n = len(records)
+    t["name"] = Column([r["name"] for r in records], dtype=str)
+    t["status"] = Column([r["status"] for r in records], dtype=str)
+    t["reason"] = Column([r["reason"] for r in records], dtype=str)
+    t["statistic"] = [_nan(r["statistic"]) for r in records]
+    t["dof"] = np.array([-1 if r["dof"] is None else r["dof"] for r in records], dtype=int)
+    t["n_bins"] = np.array([-1 if r["n_bins"] is None else r["n_bins"] for r in records],
+                           dtype=int)
+    t["gof_p"] = [_nan(r["gof_p"]) for r in records]
+    t["ppc_p"] = [_nan(r["ppc_p"]) for r in records]
+    t["converged"] = np.array([bool(r["converged"]) for r in records], dtype=bool)
+    t["flags"] = Column([r["flags"] for r in records], dtype=str)
+    hcols = [_hydrogen_columns(hydrogen.get(r["name"], {})) for r in records]
+    for k in (hcols[0] if hcols else _hydrogen_columns({})):
+        vals = [h[k] for h in hcols]
+        if k.endswith("_upper"):
+            t[k] = np.array(vals, dtype=bool)
+        else:
+            t[k] = np.array(vals, dtype=float) * u.Unit(_CM2)
+    for qname in order:
+        cols = np.full((n, 3), np.nan)
+        for i, r in enumerate(records):
+            for q in r["quantities"]:
+                if q[0] == qname:
+                    cols[i] = [_nan(q[1]), _nan(q[2]), _nan(q[3])]
+        unit = _unit(units[qname])
+        for j, suffix in enumerate(("", "_lo", "_hi")):
+            t[qname + suffix] = cols[:, j] if unit is None else cols[:, j] * unit
+            if unit is None and units[qname]:
+                t[qname + suffix].description = f"unit: {units[qname]}"
+    interval_source = {}
+    for qname in order:
+        by_name = sources[qname]
+        distinct = set(by_name.values())
+        interval_source[qname] = distinct.pop() if len(distinct) == 1 else dict(by_name)
+    t.meta["interval_level"] = ONE_SIGMA
+    t.meta["interval_source"] = interval_source
+    t.meta.update(meta or {})
+    return t
+
+
+def _unit(unit_str):
+    from astropy import units as u
+
+    if not unit_str:
+        return u.dimensionless_unscaled
+    try:
+        return u.Unit(unit_str)
+    except ValueError:
+        return None
+
+
+def _atomic_write(path, writer):
+    """Call ``writer(tmp_path)`` then rename the temporary file to ``path``."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    os.close(fd)
+    try:
+        writer(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_sample_table(table, folder):
+    """Write ``sample.ecsv`` and ``sample.fits`` into ``folder``, each
+    atomically (temporary file, then rename); returns their paths."""
+    from astropy import units as u
+
+    from ..inference.result import _fits_ready
+
+    folder = Path(folder)
+    ecsv, fits = folder / "sample.ecsv", folder / "sample.fits"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", u.UnitsWarning)
+        _atomic_write(ecsv, lambda p: table.write(p, format="ascii.ecsv", overwrite=True))
+        ft = _fits_ready(table)
+        comments = [f"interval level {ONE_SIGMA}"]
+        for q, src in table.meta.get("interval_source", {}).items():
+            if isinstance(src, dict):
+                src = "; ".join(f"{k}={v}" for k, v in src.items())
+            comments.append(f"{q} interval: {src}")
+        ft.meta = {k[:8].upper(): v for k, v in table.meta.items()
+                   if isinstance(v, (int, float, str, bool)) and len(k) <= 8}
+        ft.meta["comments"] = comments
+        _atomic_write(fits, lambda p: ft.write(p, format="fits", overwrite=True))
+    return ecsv, fits
+
+
+def read_sample_table(folder_or_file):
+    """Read ``sample.ecsv`` (a folder or the file itself) as an astropy
+    Table; empty text cells (``reason`` of an ok row, ``flags``), which
+    ECSV reads back as masked, become empty strings again."""
+    from astropy.table import MaskedColumn, Table
+
+    p = Path(folder_or_file)
+    if p.is_dir():
+        p = p / "sample.ecsv"
+    t = Table.read(p, format="ascii.ecsv")
+    for c in t.colnames:
+        if isinstance(t[c], MaskedColumn) and t[c].dtype.kind in "US":
+            t[c] = t[c].filled("")
+    return t

@@ -1,0 +1,240 @@
+"""``edgefit batch`` and :func:`edgefit.analysis.run_batch` on SIMULATED
+samples (tests/_batch_sim.py: invented sightlines drawn with edgefit's own
+simulator).
+
+What is checked against what:
+
+* Resume: a real ``edgefit batch`` subprocess interrupted by SIGINT and
+  rerun gives the same table as an uninterrupted run (every float to
+  rel 1e-12, the same rows once each) -- the reference is the
+  uninterrupted run itself.
+* Process pool against a dask.distributed LocalCluster with 2 worker
+  processes: the same table (rel 1e-12).
+* Failure isolation: a truncated PHA makes its row ``failed`` naming the
+  file; the others are ``ok``.
+* N_H from tracers: N(HI) + 2 N(H2) (molecules carry two atoms; e.g.
+  Bohlin, Savage & Drake 1978, ApJ 224, 132), errors added in quadrature
+  (independent tracers, common practice); the total element column's
+  interval comes from the same joint draws as the two columns, so it is
+  narrower than the sum of the two half-widths when they anticorrelate
+  (checked: it is not the sum of errors).
+* Every manifest error is one line naming the manifest and the key, exit 2.
+"""
+import json
+import math
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+from astropy.table import Table
+
+from edgefit.analysis import load_manifest, read_sample_table, run_batch
+from edgefit.cli import main
+from edgefit.errors import ConfigError
+
+sys.path.insert(0, os.path.dirname(__file__))
+from _batch_sim import write_sample  # noqa: E402
+
+FAST = dict(profile="[]", draws=200)
+
+
+def _assert_same_table(a, b):
+    assert list(a["name"]) == list(b["name"])
+    assert len(set(a["name"])) == len(a)
+    assert a.colnames == b.colnames
+    for c in a.colnames:
+        if a[c].dtype.kind == "f":
+            np.testing.assert_allclose(np.asarray(a[c]), np.asarray(b[c]), rtol=1e-12,
+                                       atol=0, equal_nan=True, err_msg=c)
+        else:
+            assert list(a[c]) == list(b[c]), c
+
+
+# --- manifest errors ---------------------------------------------------------
+@pytest.fixture(scope="module")
+def small(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("small")
+    return write_sample(folder, n=2, **FAST)
+
+
+def _bad_manifest(small, tmp_path, old, new):
+    text = small.read_text()
+    assert old in text
+    p = small.parent / f"bad_{tmp_path.name}.toml"
+    p.write_text(text.replace(old, new, 1))
+    return p
+
+
+def _cli_error(capsys, manifest):
+    rc = main(["batch", str(manifest), "-o", str(manifest.parent / "never"), "-q"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 2 and len(err) == 1, err
+    assert str(manifest) in err[0]
+    assert not (manifest.parent / "never").exists()   # nothing ran
+    return err[0]
+
+
+def test_manifest_unknown_key(small, tmp_path, capsys):
+    m = _bad_manifest(small, tmp_path, 'name = "SIM-B02"', 'name = "SIM-B02"\nexposure = 3')
+    assert "sightline[1].exposure: unknown key" in _cli_error(capsys, m)
+    m = _bad_manifest(small, tmp_path, "[defaults.derived]", "[defaults.fitting]\n"
+                      "x = 1\n[defaults.derived]")
+    assert "defaults.fitting: unknown key" in _cli_error(capsys, m)
+
+
+def test_manifest_missing_file(small, tmp_path, capsys):
+    m = _bad_manifest(small, tmp_path, '"sim-b02_p1.pha"', '"sim-b02_p9.pha"')
+    line = _cli_error(capsys, m)
+    assert "sightline[1].pha[1]: file not found" in line and "sim-b02_p9.pha" in line
+
+
+def test_manifest_duplicate_name(small, tmp_path, capsys):
+    m = _bad_manifest(small, tmp_path, 'name = "SIM-B02"', 'name = "SIM-B01"')
+    line = _cli_error(capsys, m)
+    assert "sightline[1].name: duplicate name 'SIM-B01'" in line
+
+
+def test_manifest_sightline_without_spectra(small, tmp_path, capsys):
+    m = _bad_manifest(small, tmp_path, 'pha = ["sim-b02_m1.pha", "sim-b02_p1.pha"]', "")
+    line = _cli_error(capsys, m)
+    assert "sightline[1].pha: sightline 'SIM-B02' has no spectra" in line
+    m = _bad_manifest(small, tmp_path, 'pha = ["sim-b02_m1.pha", "sim-b02_p1.pha"]',
+                      "pha = []")
+    assert "has no spectra" in _cli_error(capsys, m)
+
+
+def test_manifest_merges_defaults_and_overrides(small, tmp_path):
+    # tables appended at the end belong to the last sightline, SIM-B02
+    m = tmp_path / "override.toml"
+    m.write_text(small.read_text() + '\n[sightline.errors]\nprofile = "all"\n'
+                 '[sightline.model.components.pl]\nparams.index = { value = 2.5, '
+                 'min = 0.5, max = 4.0 }\n')
+    # relative file names are relative to the manifest: keep it beside the data
+    m = small.parent / f"override_{tmp_path.name}.toml"
+    m.write_text((tmp_path / "override.toml").read_text())
+    man = load_manifest(m)
+    a, b = man.sightlines
+    assert a.config.errors.profile == () and b.config.errors.profile == "all"
+    assert a.config.components["pl"].values["index"] == 2.0
+    assert b.config.components["pl"].values["index"] == 2.5
+    assert [s.range for s in b.config.spectra] == [[1.70, 2.10]] * 2   # defaults.spectrum
+    m.write_text(small.read_text() + "\n[sightline.model.components.pl]\nparams.slope = 1\n")
+    with pytest.raises(ConfigError, match=r"sightline\[1\]\.model\.components\.pl\.params"):
+        load_manifest(m)
+
+
+# --- running -----------------------------------------------------------------
+def test_truncated_pha_fails_only_its_row(tmp_path):
+    m = write_sample(tmp_path, n=3, **FAST)
+    bad = tmp_path / "sim-b02_p1.pha"
+    data = bad.read_bytes()
+    bad.write_bytes(data[: len(data) // 2])
+    t = run_batch(m, tmp_path / "out", workers=0, progress=False)
+    assert list(t["name"]) == ["SIM-B01", "SIM-B02", "SIM-B03"]
+    assert list(t["status"]) == ["ok", "failed", "ok"]
+    assert "sim-b02_p1.pha" in t["reason"][1] and "\n" not in t["reason"][1]
+    assert math.isnan(t["gas_si_col"][1]) and np.isfinite(t["gas_si_col"][0])
+    # the other rows carry values with units and their interval sources
+    assert t["gas_si_col_cm2"].unit == "cm-2" and t["nh_hi"].unit == "cm-2"
+    assert t.meta["interval_source"]["gas_si_col"] == "covariance"
+    on_disk = read_sample_table(tmp_path / "out")
+    _assert_same_table(t, on_disk)
+    fits = Table.read(tmp_path / "out" / "sample.fits")
+    assert list(fits["status"]) == ["ok", "failed", "ok"]
+    # a repaired file is picked up by the rerun (its hash changed); the
+    # finished rows are not refitted
+    row1 = tmp_path / "out" / "sightlines" / "SIM-B01" / "row.json"
+    before = row1.stat().st_mtime_ns
+    bad.write_bytes(data)
+    t2 = run_batch(m, tmp_path / "out", workers=0, progress=False)
+    assert list(t2["status"]) == ["ok", "ok", "ok"]
+    assert row1.stat().st_mtime_ns == before
+
+
+def test_readme_batch_example_runs(tmp_path, monkeypatch):
+    import re
+    from pathlib import Path
+
+    readme = Path(__file__).resolve().parents[1] / "README.md"
+    blocks = re.findall(r"```python\n(.*?)```", readme.read_text(encoding="utf-8"), re.S)
+    (code,) = [b for b in blocks if "run_batch" in b]
+    assert "workers=2" in code
+    code = code.replace("workers=2", "workers=0")   # in this process: quicker here
+    write_sample(tmp_path, n=1, **FAST)       # writes sample.toml
+    monkeypatch.chdir(tmp_path)
+    namespace = {}
+    exec(compile(code, str(readme), "exec"), namespace)  # our own README, not user input
+    table = namespace["table"]
+    assert list(table["status"]) == ["ok"] and (tmp_path / "sample_batch" / "sample.ecsv").is_file()
+
+
+def test_hydrogen_and_total_columns(tmp_path):
+    m = write_sample(tmp_path, n=1, **FAST)
+    t = run_batch(m, tmp_path / "out", workers=0, progress=False)
+    e = load_manifest(m).sightlines[0].hydrogen
+    assert t["nh_hi_2h2"][0] == pytest.approx(e["nh_hi"] + 2 * e["n_h2"], rel=1e-15)
+    assert t["nh_hi_2h2_err"][0] == pytest.approx(math.hypot(e["nh_hi_err"],
+                                                             2 * e["n_h2_err"]), rel=1e-15)
+    assert math.isnan(t["nh_total"][0]) and not t["nh_total_upper"][0]
+    # total column = gas + dust at the best fit; its interval is not the
+    # sum of the two errors (joint draws: gas and dust anticorrelate)
+    tot = t["total_Si_cm2"][0]
+    assert tot == pytest.approx(t["gas_si_col_cm2"][0] + t["dust_col_cm2"][0], rel=1e-12)
+    w_tot = t["total_Si_cm2_hi"][0] - t["total_Si_cm2_lo"][0]
+    w_sum = sum(t[f"{q}_hi"][0] - t[f"{q}_lo"][0] for q in ("gas_si_col_cm2", "dust_col_cm2"))
+    assert 0 < w_tot < 0.9 * w_sum
+
+
+def test_local_cluster_equals_process_pool(tmp_path):
+    distributed = pytest.importorskip("dask.distributed")
+    m = write_sample(tmp_path, n=3, **FAST)
+    pool = run_batch(m, tmp_path / "pool", workers=2, progress=False)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        dask_t = run_batch(m, tmp_path / "dask", scheduler=cluster.scheduler_address,
+                           progress=False)
+    _assert_same_table(pool, dask_t)
+    assert list(pool["status"]) == ["ok"] * 3
+
+
+def _count_finished(out):
+    d = out / "sightlines"
+    return sum(1 for p in d.glob("*/row.json")) if d.is_dir() else 0
+
+
+@pytest.mark.slow
+def test_sigint_then_resume_equals_uninterrupted_run(tmp_path):
+    m = write_sample(tmp_path, n=8, **FAST)
+    out = tmp_path / "interrupted"
+    cmd = [sys.executable, "-c", "import sys; from edgefit.cli import main; "
+           "sys.exit(main(sys.argv[1:]))", "batch", str(m), "-o", str(out), "--workers", "2",
+           "--no-plots", "-q"]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.time() + 300
+    while _count_finished(out) < 2 and proc.poll() is None and time.time() < deadline:
+        time.sleep(0.05)
+    assert proc.poll() is None, "the batch ended before it could be interrupted"
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    msg = err.strip().splitlines()[-1]
+    done = _count_finished(out)
+    assert 2 <= done < 8
+    assert f"interrupted: {done} of 8 sightlines finished" in msg and "to resume" in msg
+    assert not (out / ".work").exists()          # nothing half-written left
+    part = read_sample_table(out)
+    assert len(part) == done and list(part["status"]) == ["ok"] * done
+    # resume with the same command
+    cmd_rerun = cmd[:-1] + ["-q"]
+    rerun = subprocess.run(cmd_rerun, capture_output=True, text=True, timeout=600)
+    assert rerun.returncode == 0, rerun.stderr
+    resumed = read_sample_table(out)
+    full = run_batch(m, tmp_path / "uninterrupted", workers=2, progress=False)
+    _assert_same_table(resumed, full)
+    assert list(resumed["name"]) == [f"SIM-B{i:02d}" for i in range(1, 9)]
+    rows = [json.loads(p.read_text()) for p in sorted((out / "sightlines").glob("*/row.json"))]
+    assert len(rows) == 8 and len({r["name"] for r in rows}) == 8
