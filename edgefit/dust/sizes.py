@@ -314,6 +314,83 @@ def dust_mass_column(n_element_dust, material, element) -> float:
 # ---------------------------------------------------------------------------
 # integration over a size grid
 # ---------------------------------------------------------------------------
+def _moments_numpy(f, half, a, uu, u_left, power):
+    """Per grid interval k, the moments Σ_q F_kq t_kq^(3-j) (j = 0..3) of
+    the normalised integrand weights F = n(a) a^p (∫ da) / ∫ n da at the
+    Gauss-Legendre nodes, t = ln a - u_k.  ``f`` (the shape n(a) at the
+    nodes) is overwritten."""
+    f *= half[:, None] * _GL_W * a                           # ∫ da = ∫ a du
+    norm = float(np.sum(f))
+    f *= a ** power if power != 3.0 else a * a * a
+    f *= 1.0 / norm
+    t = uu - u_left[:, None]
+    mom = np.empty((f.shape[0], 4))
+    mom[:, 3] = f.sum(axis=1)
+    f *= t
+    mom[:, 2] = f.sum(axis=1)
+    f *= t
+    mom[:, 1] = f.sum(axis=1)
+    f *= t
+    mom[:, 0] = f.sum(axis=1)
+    return mom
+
+
+def _moments_loop(f, half, a, uu, u_left, glw, power, mom):
+    """:func:`_moments_numpy` as one loop (compiled by numba); ``mom`` is
+    filled in place."""
+    nk, nq = f.shape
+    norm = 0.0
+    for k in range(nk):
+        for q in range(nq):
+            v = f[k, q] * (half[k] * glw[q] * a[k, q])
+            f[k, q] = v
+            norm += v
+    inv = 1.0 / norm
+    for k in range(nk):
+        m0 = 0.0
+        m1 = 0.0
+        m2 = 0.0
+        m3 = 0.0
+        for q in range(nq):
+            aq = a[k, q]
+            v = f[k, q] * (aq * aq * aq if power == 3.0 else aq ** power) * inv
+            t = uu[k, q] - u_left[k]
+            m3 += v
+            v *= t
+            m2 += v
+            v *= t
+            m1 += v
+            v *= t
+            m0 += v
+        mom[k, 0] = m0
+        mom[k, 1] = m1
+        mom[k, 2] = m2
+        mom[k, 3] = m3
+
+
+_NUMBA = {"tried": False, "moments": None}
+
+
+def _moments_kernel():
+    """The numba-compiled :func:`_moments_loop`, or None (numba missing or
+    ``EDGEFIT_NO_NUMBA`` set: :func:`_moments_numpy` is used)."""
+    if not _NUMBA["tried"]:
+        _NUMBA["tried"] = True
+        import os
+
+        if os.environ.get("EDGEFIT_NO_NUMBA"):
+            return None
+        try:
+            import numba
+        except ImportError:
+            return None
+        try:
+            _NUMBA["moments"] = numba.njit(cache=True)(_moments_loop)
+        except RuntimeError:  # pragma: no cover - no writable numba cache
+            _NUMBA["moments"] = numba.njit(_moments_loop)
+    return _NUMBA["moments"]
+
+
 class SizeGrid:
     """Increasing grain radii (µm) on which cross sections are tabulated,
     with the machinery to integrate tabulated quantities over a
@@ -389,21 +466,15 @@ class SizeGrid:
         uu = (left + half)[:, None] + half[:, None] * _GL_X      # (nk, 6)
         a = np.exp(uu)
         f = dist.shape(a)
-        f *= half[:, None] * _GL_W * a                           # ∫ da = ∫ a du
-        norm = float(np.sum(f))
-        f *= a ** self.power if self.power != 3.0 else a * a * a
-        f *= 1.0 / norm                                          # integrand weight for s
-        t = uu - self.u[k0:k1 + 1][:, None]
-        # moments of t^(3-p) per interval, contracted with the spline
-        # coefficients of those intervals in one matrix-vector product
-        mom = np.empty((k1 - k0 + 1, 4))
-        mom[:, 3] = f.sum(axis=1)
-        f *= t
-        mom[:, 2] = f.sum(axis=1)
-        f *= t
-        mom[:, 1] = f.sum(axis=1)
-        f *= t
-        mom[:, 0] = f.sum(axis=1)
+        if not (isinstance(f, np.ndarray) and f.dtype == float and f.flags.owndata
+                and f.flags.writeable and f.shape == a.shape):
+            f = np.array(np.broadcast_to(f, a.shape), dtype=float)   # overwritten below
+        kern = _moments_kernel()
+        if kern is not None:
+            mom = np.empty((k1 - k0 + 1, 4))
+            kern(f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power, mom)
+        else:
+            mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
         w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
         w /= a_p
         return w

@@ -376,20 +376,29 @@ class CompiledLikelihood:
         return state
 
     def _ready(self):
+        """Per shared grid: the compiled model, the Poisson datasets without
+        background stacked into one :class:`~edgefit._foldstat.FoldingGroup`
+        (their cross-normalisation slots and residual offsets), and the
+        other datasets (folded by the kernel, statistic by
+        :meth:`JointLikelihood._residual_one`)."""
         like = self.likelihood
+        starts = np.cumsum([0] + [d.n_groups for d in like.datasets])
+        self._starts = [int(x) for x in starts]
         plan = []
         for union, members in like._plan:
             cm = like.model.compile(union, self.names)
-            rows = []
-            for i, off, _n in members:
-                ds = like.datasets[i]
-                fast = like.statistic_name == "poisson" and not ds.has_background
-                rows.append((i, off, _foldstat.Folding(ds.matrix), ds.counts,
-                             self._xn_index[i], fast,
-                             np.empty(ds.n_groups)))
-            plan.append((cm, rows))
-        starts = np.cumsum([0] + [d.n_groups for d in like.datasets])
-        self._starts = [int(x) for x in starts]
+            fast = [(i, off) for i, off, _n in members
+                    if like.statistic_name == "poisson" and not like.datasets[i].has_background]
+            slow = [(i, off, _foldstat.Folding(like.datasets[i].matrix), self._xn_index[i])
+                    for i, off, _n in members if (i, off) not in fast]
+            group = xn_idx = group_starts = None
+            if fast:
+                ds = [like.datasets[i] for i, _ in fast]
+                group = _foldstat.FoldingGroup([d.matrix for d in ds], [o for _, o in fast],
+                                               [d.counts for d in ds])
+                xn_idx = np.array([self._xn_index[i] for i, _ in fast], dtype=np.intp)
+                group_starts = np.array([self._starts[i] for i, _ in fast], dtype=np.int64)
+            plan.append((cm, group, xn_idx, group_starts, slow))
         self._plan = plan
         return plan
 
@@ -427,46 +436,46 @@ class CompiledLikelihood:
         return bool(np.all(theta >= self.lower) and np.all(theta <= self.upper))
 
     # -- evaluation ---------------------------------------------------------
-    def _fluxes(self, vals):
-        plan = self._plan or self._ready()
-        return [(cm(vals), rows) for cm, rows in plan]
-
     def source_counts(self, theta):
         """Expected source counts per group for each dataset (list of
         arrays), cross-normalisation applied.  No NaN check here."""
         vals = self.full(theta).tolist()
-        out = [None] * len(self.likelihood.datasets)
+        like = self.likelihood
+        out = [None] * len(like.datasets)
         with np.errstate(all="ignore"):
-            for flux, rows in self._fluxes(vals):
-                for i, off, mat, _counts, xi, _fast, _scratch in rows:
-                    out[i] = _foldstat.fold(mat, flux, off, vals[xi])
+            for union, members in like._plan:
+                flux = like.model.compile(union, self.names)(vals)
+                for i, off, _n in members:
+                    out[i] = vals[self._xn_index[i]] * like.datasets[i].fold(
+                        flux[off:off + _n])
         return out
 
     def statistic(self, theta) -> float:
         """The fit statistic; ``inf`` when the model is not finite."""
         like = self.likelihood
         like.n_evaluations += 1
-        vals = self.full(theta).tolist()
+        v = self.full(theta)
+        vals = v.tolist()
+        plan = self._plan or self._ready()
         total = 0.0
+        ok = True
         try:
             with np.errstate(all="ignore"):
-                for flux, rows in self._fluxes(vals):
-                    for i, off, mat, counts, xi, fast, scratch in rows:
-                        if fast:
-                            c, ok = _foldstat.fold_deviance(mat, flux, off, vals[xi], counts,
-                                                            scratch)
-                        else:
-                            mu = _foldstat.fold(mat, flux, off, vals[xi])
-                            ok = _finite_non_negative(mu)
-                            if ok:
-                                r = like._residual_one(like.datasets[i], mu)
-                                c = float(np.sum(r ** 2))
+                for cm, group, xn_idx, _starts, slow in plan:
+                    flux = cm(vals)
+                    if group is not None:
+                        c, ok = group.deviance(flux, v[xn_idx])
                         if not ok:
                             break
                         total += c
-                    else:
-                        continue
-                    break
+                    for i, off, fm, xi in slow:
+                        mu = _foldstat.fold(fm, flux, off, vals[xi])
+                        ok = _finite_non_negative(mu)
+                        if not ok:
+                            break
+                        total += float(np.sum(like._residual_one(like.datasets[i], mu) ** 2))
+                    if not ok:
+                        break
         except (FloatingPointError, ZeroDivisionError, OverflowError):
             ok = False
         if not ok:
@@ -481,27 +490,26 @@ class CompiledLikelihood:
         statistic); a vector of :data:`BAD_RESIDUAL` when the model fails."""
         like = self.likelihood
         like.n_evaluations += 1
-        vals = self.full(theta).tolist()
+        v = self.full(theta)
+        vals = v.tolist()
+        plan = self._plan or self._ready()
+        starts = self._starts
         out = np.empty(like.n_bins)
         ok = True
         try:
             with np.errstate(all="ignore"):
-                plan = self._plan or self._ready()
-                starts = self._starts
-                for cm, rows in plan:
+                for cm, group, xn_idx, group_starts, slow in plan:
                     flux = cm(vals)
-                    for i, off, mat, counts, xi, fast, _scratch in rows:
-                        if fast:
-                            ok = _foldstat.fold_residuals(mat, flux, off, vals[xi], counts,
-                                                          out, starts[i])
-                        else:
-                            mu = _foldstat.fold(mat, flux, off, vals[xi])
-                            ok = _finite_non_negative(mu)
-                            if ok:
-                                out[starts[i]:starts[i + 1]] = like._residual_one(
-                                    like.datasets[i], mu)
+                    if group is not None:
+                        ok = group.residuals(flux, v[xn_idx], out, group_starts)
                         if not ok:
                             break
+                    for i, off, fm, xi in slow:
+                        mu = _foldstat.fold(fm, flux, off, vals[xi])
+                        ok = _finite_non_negative(mu)
+                        if not ok:
+                            break
+                        out[starts[i]:starts[i + 1]] = like._residual_one(like.datasets[i], mu)
                     if not ok:
                         break
         except (FloatingPointError, ZeroDivisionError, OverflowError):

@@ -282,14 +282,10 @@ class DustEdge(Component):
     #: depth per column on a grid per (distribution, fin, shift)).
     fast_cache_size = 16
 
-    def _dist_key(self, values):
-        return tuple(values[k] for k in self._dist_names)
-
-    def _weights_cached(self, table, pre, values):
+    def _weights_cached(self, table, pre, values, key):
         """(W, ⟨N_Z(a)⟩) of the size distribution, cached per distinct
-        value of its parameters."""
+        value ``key`` of its parameters."""
         cache = pre.setdefault("weights", {})
-        key = self._dist_key(values)
         hit = cache.get(key)
         if hit is None:
             try:
@@ -302,7 +298,7 @@ class DustEdge(Component):
             _remember(cache, key, hit, self.fast_cache_size)
         return hit
 
-    def _per_column(self, table, pre, values, rows):
+    def _per_column(self, table, pre, values, dkey, rows):
         """τ_dust / (N_Z,dust 1e16) on table rows ``rows``: the size average
         (one matrix product of the combined per-size cross section
         σ_abs + (1 − f_in) σ_sca, or σ_abs + σ_sca,lost with a halo, with the
@@ -310,10 +306,10 @@ class DustEdge(Component):
         (distribution, f_in)."""
         fin = 0.0 if self.halo is not None else values["fin"]
         cache = pre.setdefault("per_column", {})
-        key = (self._dist_key(values), fin, rows)
+        key = (dkey, fin, rows)
         hit = cache.get(key)
         if hit is None:
-            w, atoms = self._weights_cached(table, pre, values)
+            w, atoms = self._weights_cached(table, pre, values, dkey)
             combined = pre.setdefault("combined", {})
             mat = combined.get(fin)
             if mat is None:
@@ -347,13 +343,14 @@ class DustEdge(Component):
         and shift, so a change of the column alone costs one multiply and
         one exp over the grid)."""
         shift = values["shift"]
-        key = (self._dist_key(values), values["fin"], shift)
+        dkey = tuple([values[k] for k in self._dist_names])
+        key = (dkey, values["fin"], shift)
         shapes = pre["shapes"]
         u = shapes.get(key)
         if u is None:
             smin, smax = pre["shift_range"]
             rows = pre["rows"] if smin <= shift <= smax else (0, pre["pre"]["energy"].size)
-            per_col = self._per_column(pre["table"], pre["pre"], values, rows)
+            per_col = self._per_column(pre["table"], pre["pre"], values, dkey, rows)
             u = np.interp(pre["x"] - shift * 1e-3, pre["pre"]["energy"][rows[0]:rows[1]],
                           per_col)
             _remember(shapes, key, u, self.fast_cache_size)
