@@ -368,7 +368,35 @@ def _moments_loop(f, half, a, uu, u_left, glw, power, mom):
         mom[k, 3] = m3
 
 
-_NUMBA = {"tried": False, "moments": None}
+def _nodes_loop(u, ulo, uhi, glx, uu, half):
+    """:meth:`SizeGrid._nodes_numpy` as one loop: fills uu[:nk], half[:nk]
+    and returns (k0, nk)."""
+    last = u.size - 2
+    k0 = np.searchsorted(u, ulo, side="right") - 1
+    k1 = np.searchsorted(u, uhi, side="left") - 1
+    k0 = min(max(k0, 0), last)
+    k1 = min(max(k1, 0), last)
+    nk = 0
+    first = -1
+    for k in range(k0, k1 + 1):
+        left = max(u[k], ulo)
+        right = min(u[k + 1], uhi)
+        if not right > left:
+            if nk:
+                break
+            continue
+        if first < 0:
+            first = k
+        h = 0.5 * (right - left)
+        c = left + h
+        half[nk] = h
+        for q in range(glx.size):
+            uu[nk, q] = c + h * glx[q]
+        nk += 1
+    return first, nk
+
+
+_NUMBA = {"tried": False, "moments": None, "nodes": None}
 
 
 def _moments_kernel():
@@ -386,8 +414,10 @@ def _moments_kernel():
             return None
         try:
             _NUMBA["moments"] = numba.njit(cache=True)(_moments_loop)
+            _NUMBA["nodes"] = numba.njit(cache=True)(_nodes_loop)
         except RuntimeError:  # pragma: no cover - no writable numba cache
             _NUMBA["moments"] = numba.njit(_moments_loop)
+            _NUMBA["nodes"] = numba.njit(_nodes_loop)
     return _NUMBA["moments"]
 
 
@@ -450,6 +480,36 @@ class SizeGrid:
         lo, hi = dist.support()
         self._check_range(lo, hi)
         ulo, uhi = math.log(lo), math.log(hi)
+        kern = _moments_kernel()
+        if kern is not None:
+            # the support's grid intervals and their Gauss-Legendre nodes in
+            # one compiled call (same arithmetic as the NumPy lines below)
+            work = self.__dict__.get("_nodes_work")
+            if work is None:
+                work = self._nodes_work = (np.empty((self.a.size - 1, _GL_X.size)),
+                                           np.empty(self.a.size - 1))
+            k0, nk = _NUMBA["nodes"](self.u, ulo, uhi, _GL_X, work[0], work[1])
+            k1 = k0 + nk - 1
+            uu, half = work[0][:nk], work[1][:nk]
+            a = np.exp(uu)
+        else:
+            k0, k1, uu, half, a = self._nodes_numpy(ulo, uhi)
+        f = dist.shape(a)
+        if not (isinstance(f, np.ndarray) and f.dtype == float and f.flags.owndata
+                and f.flags.writeable and f.shape == a.shape):
+            f = np.array(np.broadcast_to(f, a.shape), dtype=float)   # overwritten below
+        if kern is not None:
+            mom = np.empty((k1 - k0 + 1, 4))
+            kern(f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power, mom)
+        else:
+            mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
+        w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
+        w /= a_p
+        return w
+
+    def _nodes_numpy(self, ulo, uhi):
+        """(k0, k1, ln a, half-widths, a) of the Gauss-Legendre nodes on the
+        grid intervals k0..k1 cut at the support [ulo, uhi] (in ln a)."""
         last = self.a.size - 2
         k0 = min(max(int(np.searchsorted(self.u, ulo, side="right")) - 1, 0), last)
         k1 = min(max(int(np.searchsorted(self.u, uhi, side="left")) - 1, 0), last)
@@ -464,20 +524,7 @@ class SizeGrid:
             left, right = left[idx[0]:idx[-1] + 1], right[idx[0]:idx[-1] + 1]
         half = 0.5 * (right - left)
         uu = (left + half)[:, None] + half[:, None] * _GL_X      # (nk, 6)
-        a = np.exp(uu)
-        f = dist.shape(a)
-        if not (isinstance(f, np.ndarray) and f.dtype == float and f.flags.owndata
-                and f.flags.writeable and f.shape == a.shape):
-            f = np.array(np.broadcast_to(f, a.shape), dtype=float)   # overwritten below
-        kern = _moments_kernel()
-        if kern is not None:
-            mom = np.empty((k1 - k0 + 1, 4))
-            kern(f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power, mom)
-        else:
-            mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
-        w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
-        w /= a_p
-        return w
+        return k0, k1, uu, half, np.exp(uu)
 
     def _a_power(self):
         cached = self.__dict__.get("_a_p")

@@ -27,6 +27,8 @@ __all__ = ["SmoothISM", "GasEdge", "IonLines"]
 
 _NH_UNIT = 1e22
 _EDGE_COL_UNIT = 1e16
+#: 2 r_e (hc in keV cm) x the column unit: sigma * 1e16 = this / E[keV] * f2
+_SIGMA_CONST = 2.0 * atomic.CLASSICAL_ELECTRON_RADIUS_CM * HC_KEV_ANGSTROM * 1e-8 * _EDGE_COL_UNIT
 
 
 def _energies(energy_kev):
@@ -228,22 +230,20 @@ class GasEdge(Component):
                 "table": (t.energy[0], t.energy[-1], t.log_energy, t.log_f2)}
 
     def _sigma_shifted(self, pre, shift):
-        """sigma_Z(E - shift) * 1e16 at the bin centres: the arithmetic of
-        :func:`edgefit.physics.atomic.photoabsorption` (same operations in
-        the same order, so the same numbers) without its input checks,
-        which are done here once on the sorted grid."""
+        """sigma_Z(E - shift) * 1e16 at the bin centres: the formula of
+        :func:`edgefit.physics.atomic.photoabsorption` (2 r_e hc/E f2, f2
+        interpolated in log-log) with its constants folded into one factor
+        (equal to rounding) and its input checks done once on the sorted
+        grid."""
         e = pre["x"] - shift * 1e-3
         emin, emax, log_e, log_f2 = pre["table"]
         if not (e[0] >= emin and e[-1] <= emax):
             return self.sigma(e) * _EDGE_COL_UNIT      # raises the range error
         f2 = np.log(e)
         f2 = np.exp(np.interp(f2, log_e, log_f2))
-        lam = HC_KEV_ANGSTROM / e
-        lam *= 1e-8
-        lam *= 2.0 * atomic.CLASSICAL_ELECTRON_RADIUS_CM
-        lam *= f2
-        lam *= _EDGE_COL_UNIT
-        return lam
+        sig = np.divide(_SIGMA_CONST, e, out=e)
+        sig *= f2
+        return sig
 
     def _line_arrays(self, v, n_z):
         c = np.array([v[f"line{i}_energy"] for i in range(1, self.n_lines + 1)])

@@ -244,15 +244,18 @@ class PhotonPowerLaw(Component):
     )
 
     def precompute(self, grid):
-        return np.log(grid.hi / grid.lo)
+        return np.log(grid.hi / grid.lo), np.log(grid.lo)
 
     def _evaluate(self, grid, pre, index, norm):
-        # photon_power_law_integral with log(hi/lo) computed once per grid
-        # and the product formed in place (same operations, same order)
-        out = grid.lo ** (1.0 - index)
+        # photon_power_law_integral with log(hi/lo) and log(lo) computed once
+        # per grid: lo^(1-G) as exp((1-G) ln lo) (equal to rounding)
+        lg, log_lo = pre
+        g1 = 1.0 - index
+        out = log_lo * g1
+        np.exp(out, out=out)
         out *= norm
-        out *= pre
-        out *= special.exprel((1.0 - index) * pre)
+        out *= lg
+        out *= special.exprel(g1 * lg)
         return out
 
 
