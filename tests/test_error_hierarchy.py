@@ -58,18 +58,20 @@ def test_hierarchy_shape():
 def test_missing_accelerator_is_one_error_type(monkeypatch):
     """Asking for the numba back end without numba raises the same
     MissingDependencyError from the Mie and the line kernels."""
+    from edgefit import _jit
     from edgefit.dust import mie
-    from edgefit.physics import lines
+    from edgefit.physics import voigt
 
     monkeypatch.setenv("EDGEFIT_NO_NUMBA", "1")
-    monkeypatch.setattr(mie, "_NUMBA", {"tried": False, "batch": None, "serial": None})
-    monkeypatch.setattr(lines, "_NUMBA", {"tried": False, "kernel": None})
+    assert _jit.numba_module() is None and not mie.numba_available()
     with pytest.raises(errors.MissingDependencyError, match="numba"):
         mie.mie_efficiencies(1.5, 2.0, backend="numba")
-    grid = lines.line_grid(np.array([1.9]), np.array([2.1]))
+    grid = voigt.line_grid(np.array([1.9]), np.array([2.1]))
     with pytest.raises(errors.MissingDependencyError, match="numba"):
-        lines._transmission(grid, np.array([2.0]), np.array([1e-4]), np.array([3e-4]),
-                            np.array([1e-5]), backend="numba")
+        voigt.grid_transmission(grid, np.array([2.0]), np.array([1e-4]), np.array([3e-4]),
+                                np.array([1e-5]), backend="numba")
+    with pytest.raises(errors.MissingDependencyError, match="numba"):
+        _jit.jit(lambda x: x)
 
 
 def test_argument_errors_are_edgefit_errors():

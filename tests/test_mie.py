@@ -180,9 +180,7 @@ def test_backends_agree_and_chunking():
 
 
 def test_numba_backend_refused_without_numba(monkeypatch):
-    import edgefit.dust.mie as mie
-    monkeypatch.setitem(mie._NUMBA, "tried", True)
-    monkeypatch.setitem(mie._NUMBA, "batch", None)
+    monkeypatch.setenv("EDGEFIT_NO_NUMBA", "1")
     with pytest.raises(MissingDependencyError, match="numba"):
         mie_efficiencies(1.5, 2.0, backend="numba")
     # "auto" falls back to NumPy silently, with the published B&H value

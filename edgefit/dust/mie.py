@@ -103,12 +103,12 @@ and Fast, Vector-Speed Computer Codes*, NCAR/TN-140+STR.
 """
 from __future__ import annotations
 
-import os
 from collections import namedtuple
 
 import numpy as np
 
-from ..errors import ArgumentError, MissingDependencyError
+from .. import _jit
+from ..errors import ArgumentError
 
 __all__ = ["MieEfficiencies", "mie_efficiencies", "n_terms", "numba_available",
            "PARALLEL_MIN_TERMS"]
@@ -283,43 +283,29 @@ def _blocks_kernel(m, mm1, x, nstop, nstart, out, bounds):
             out[3, i] = r[3]
 
 
-# Module globals the compiled block loop resolves at compile time.
+# Names the block loop reads from this module; the compiled version gets
+# numba.prange and the compiled sphere kernel instead (edgefit._jit.jit).
 _prange = range
 _sphere_kernel = _sphere
-_NUMBA = {"tried": False, "batch": None, "serial": None}
 
 #: Below this many terms (sum of n_stop) the compiled loop runs on one thread,
 #: where starting threads would cost more than it saves.
 PARALLEL_MIN_TERMS = 200_000
 
 
-def _numba_batch():
-    """Compile (once per process; numba's on-disk cache makes later
-    processes fast) and return the numba batch kernel, or None."""
-    global _prange, _sphere_kernel
-    if not _NUMBA["tried"]:
-        _NUMBA["tried"] = True
-        if os.environ.get("EDGEFIT_NO_NUMBA"):
-            return None
-        try:
-            import numba
-        except ImportError:
-            return None
-        _prange = numba.prange
-        try:
-            _sphere_kernel = numba.njit(cache=True)(_sphere)
-            _NUMBA["batch"] = numba.njit(parallel=True, cache=True)(_blocks_kernel)
-            _NUMBA["serial"] = numba.njit(cache=True)(_blocks_kernel)
-        except RuntimeError:           # no writable cache location: compile only
-            _sphere_kernel = numba.njit(_sphere)
-            _NUMBA["batch"] = numba.njit(parallel=True)(_blocks_kernel)
-            _NUMBA["serial"] = numba.njit(_blocks_kernel)
-    return _NUMBA["batch"]
+@_jit.kernels
+def _numba_kernels():
+    """(parallel, serial) compiled block loops (built once per process;
+    numba's on-disk cache makes later processes fast)."""
+    nb = _jit.require("the compiled Mie kernel")
+    names = {"_prange": nb.prange, "_sphere_kernel": _jit.jit(_sphere)}
+    return (_jit.jit(_blocks_kernel, parallel=True, globals=names),
+            _jit.jit(_blocks_kernel, globals=names))
 
 
 def numba_available():
     """True if the compiled (numba) back end can be used."""
-    return _numba_batch() is not None
+    return _numba_kernels() is not None
 
 
 # --------------------------------------------------------------------------
@@ -495,14 +481,10 @@ def mie_efficiencies(m, x, *, backend="auto", m_minus_1=None,
     out = np.empty((4, xf.size))
     if backend not in ("auto", "numba", "numpy"):
         raise ArgumentError(f"backend must be 'auto', 'numba' or 'numpy', not {backend!r}")
-    kernel = None if backend == "numpy" else _numba_batch()
-    if backend == "numba" and kernel is None:
-        raise MissingDependencyError("backend='numba' needs numba (pip install numba); "
-                          "use backend='numpy' or 'auto'")
+    kernels = None if backend == "numpy" else _numba_kernels(required=backend == "numba")
     if xf.size:
-        if kernel is not None:
-            if nstop.sum() < PARALLEL_MIN_TERMS:
-                kernel = _NUMBA["serial"]
+        if kernels is not None:
+            kernel = kernels[0] if nstop.sum() >= PARALLEL_MIN_TERMS else kernels[1]
             kernel(mf, mm1f, xf, nstop, nstart, out, _blocks(nstop))
         else:
             _numpy_batch(mf, mm1f, xf, nstop, nstart, out, int(chunk_terms))

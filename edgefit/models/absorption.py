@@ -20,7 +20,7 @@ import numpy as np
 from .._units import HC_KEV_ANGSTROM, as_kev
 from ..errors import ModelError
 from ..physics import abundances as _ab
-from ..physics import atomic, hydrogen, lines as _lines
+from ..physics import atomic, hydrogen, lines as _lines, voigt as _voigt
 from .base import COLUMN_KEY, MULTIPLICATIVE, Component, EnergyGrid, Param
 
 __all__ = ["SmoothISM", "GasEdge", "IonLines"]
@@ -262,7 +262,7 @@ class GasEdge(Component):
         np.exp(trans, out=trans)
         if self.n_lines and col > 0:
             c, area, s, g = self._line_arrays(v, col * _EDGE_COL_UNIT)
-            trans *= _lines.binned_line_transmission(grid.lo, grid.hi, c, area, s, g)
+            trans *= _voigt.binned_line_transmission(grid.lo, grid.hi, c, area, s, g)
         return trans
 
     def optical_depth(self, energy_kev, **values):
@@ -306,7 +306,7 @@ class IonLines(Component):
 
     (Voigt profile V of unit area; lambda_obs = lambda_0 (1 + v/c)), with
     the transmission exp(-tau) averaged over each bin
-    (:func:`edgefit.physics.lines.binned_line_transmission`) so equivalent
+    (:func:`edgefit.physics.voigt.binned_line_transmission`) so equivalent
     widths are conserved.  Line data: ``cross_sections/ion_lines.txt``
     (Si XIII, Si XIV, Mg XI, Mg XII, Ne IX, Ne X, O VII, O VIII; Ly-alpha
     doublets as two lines).
@@ -319,7 +319,7 @@ class IonLines(Component):
         How the bin-averaged transmission is computed: the compiled kernel
         (numba, used by "auto" when importable) or the vectorised NumPy body;
         both run the same algorithm and agree to rounding
-        (:func:`edgefit.physics.lines.binned_line_transmission`).
+        (:func:`edgefit.physics.voigt.binned_line_transmission`).
 
     Fit parameters: ``logn_<ion>`` [log10 cm^-2] ion column (one per ion);
     ``b`` [km/s] Doppler parameter shared by all lines; ``v`` [km/s]
@@ -359,8 +359,8 @@ class IonLines(Component):
         return owner, e0, area1, gam
 
     def precompute(self, grid: EnergyGrid):
-        """Line table and the grid arrays of :func:`edgefit.physics.lines.line_grid`."""
-        return self._table() + (_lines.line_grid(grid.lo, grid.hi),)
+        """Line table and the grid arrays of :func:`edgefit.physics.voigt.line_grid`."""
+        return self._table() + (_voigt.line_grid(grid.lo, grid.hi),)
 
     def _columns(self, v):
         """Ion columns (cm^-2) as a list; 0 for ions at or below LOGN_OFF."""
@@ -379,7 +379,7 @@ class IonLines(Component):
         cols = self._columns(v)
         c, a, s, g = self._line_arrays(pre, v, cols)
         if not v["b"] > 0:       # b <= 0 from an unbounded caller: checked path
-            return _lines.binned_line_transmission(grid.lo, grid.hi, c, a, s, g,
+            return _voigt.binned_line_transmission(grid.lo, grid.hi, c, a, s, g,
                                                    backend=self.backend)
         # parameter bounds keep b > 0 and gamma > 0, so only absent ions
         # need removing before the (unchecked) core routine
@@ -388,7 +388,7 @@ class IonLines(Component):
             if not keep.any():
                 return np.ones(len(grid))
             c, a, s, g = c[keep], a[keep], s[keep], g[keep]
-        return _lines._transmission(pre[4], c, a, s, g, backend=self.backend)
+        return _voigt.grid_transmission(pre[4], c, a, s, g, backend=self.backend)
 
     def optical_depth(self, energy_kev, **values):
         """Optical depth at ``energy_kev`` (unbinned Voigt profiles)."""

@@ -1,0 +1,99 @@
+"""The one place edgefit loads numba.
+
+numba is optional at run time: every compiled kernel has a NumPy path that
+runs the same algorithm.  Modules with kernels declare a *builder* -- a
+function that compiles their kernels with :func:`jit` and returns them --
+and decorate it with :func:`kernels`; calling the decorated function gives
+the compiled kernels (built once per process, numba's on-disk cache making
+later processes quick), or None when numba is not importable or the
+environment variable ``EDGEFIT_NO_NUMBA`` is set (checked on every call, so
+a test or a user can switch numba off at any time).  Asking for numba
+explicitly where it is missing is one error,
+:class:`~edgefit.errors.MissingDependencyError`, everywhere.
+
+No module-level mutable state: the import attempt and each builder's result
+are cached by :func:`functools.lru_cache`.
+"""
+from __future__ import annotations
+
+import functools
+import os
+import types
+from typing import Any, Callable, TypeVar
+
+from .errors import MissingDependencyError
+
+__all__ = ["numba_module", "disabled", "jit", "kernels", "require"]
+
+T = TypeVar("T")
+
+
+def disabled() -> bool:
+    """True when ``EDGEFIT_NO_NUMBA`` is set to a non-empty value."""
+    return bool(os.environ.get("EDGEFIT_NO_NUMBA"))
+
+
+@functools.lru_cache(maxsize=1)
+def _import_numba():
+    try:
+        import numba
+    except ImportError:
+        return None
+    return numba
+
+
+def numba_module():
+    """The numba module, or None when it cannot be imported or
+    ``EDGEFIT_NO_NUMBA`` is set."""
+    return None if disabled() else _import_numba()
+
+
+def require(what: str):
+    """The numba module, or MissingDependencyError saying that ``what``
+    needs it."""
+    nb = numba_module()
+    if nb is None:
+        raise MissingDependencyError(
+            f"{what} needs numba, which is not available (pip install numba, or unset "
+            "EDGEFIT_NO_NUMBA)")
+    return nb
+
+
+def jit(func: Callable, *, parallel: bool = False, globals: dict | None = None,
+        **options) -> Any:
+    """``numba.njit(func)`` with the on-disk cache where it can be written
+    (compile-only otherwise).  ``globals`` gives names that ``func`` reads
+    from its module a value for this compilation only (e.g. ``numba.prange``
+    for a loop that is a plain ``range`` in Python, or the compiled version
+    of a helper): ``func`` is rebuilt on a copy of its module's namespace,
+    which is never modified.  Other ``options`` (e.g. ``nogil=True``) go to
+    ``numba.njit``."""
+    nb = require(getattr(func, "__name__", "a compiled kernel"))
+    if globals:
+        func = types.FunctionType(func.__code__, {**func.__globals__, **globals},
+                                  func.__name__, func.__defaults__, func.__closure__)
+    try:
+        return nb.njit(cache=True, parallel=parallel, **options)(func)
+    except RuntimeError:      # no writable cache location: compile only
+        return nb.njit(parallel=parallel, **options)(func)
+
+
+def kernels(builder: Callable[[], T]) -> Callable[..., T | None]:
+    """Decorator for a module's kernel builder.
+
+    The decorated function, called as ``get()`` returns the builder's
+    result (built once per process) or None when numba is unavailable;
+    ``get(required=True)`` raises MissingDependencyError instead of
+    returning None."""
+    cached = functools.lru_cache(maxsize=1)(builder)
+
+    @functools.wraps(builder)
+    def get(required: bool = False):
+        if numba_module() is None:
+            if required:
+                require("backend='numba'")
+            return None
+        return cached()
+
+    get.cache_clear = cached.cache_clear  # type: ignore[attr-defined]
+    return get
