@@ -110,3 +110,66 @@ def test_population_bad_input():
     neg = {f"s{i}": (["q"], -np.ones((10, 1))) for i in range(3)}
     with pytest.raises(ArgumentError, match="logarithm"):
         population_fit(neg, "q", log=True)
+
+
+def _batch_folder(tmp_path, n=12, k=500, seed=3):
+    """A batch output folder as edgefit batch writes it (sample.ecsv with the
+    manifest's hydrogen columns; sightlines/<name>/posterior_samples.npz with
+    'names' and 'samples'), filled with simulated values."""
+    from astropy import units as u
+    from astropy.table import Table
+
+    rng = np.random.default_rng(seed)
+    names = [f"sim-{i:02d}" for i in range(n)] + ["sim-failed", "sim-nomcmc"]
+    lognh = rng.uniform(21.0, 22.0, n)
+    t = Table()
+    t["name"] = names
+    t["status"] = ["ok"] * n + ["failed", "ok"]
+    t["nh_hi"] = np.concatenate([10 ** lognh, [1e21, 2e21]]) * u.cm ** -2
+    t["nh_hi_err"] = 0.05 * t["nh_hi"]
+    t["nh_hi_upper"] = np.zeros(n + 2, bool)
+    t.write(tmp_path / "sample.ecsv", format="ascii.ecsv")
+    for i in range(n):
+        d = tmp_path / "sightlines" / names[i]
+        d.mkdir(parents=True)
+        centre = 2.0 + 1.5 * (lognh[i] - 21.5) + 0.2 * rng.standard_normal()
+        arr = np.column_stack([rng.normal(centre, 0.2, k), rng.normal(5.0, 1.0, k)])
+        np.savez_compressed(d / "posterior_samples.npz", samples=arr,
+                            names=np.array(["dust_col", "gas_si_col"]))
+    (tmp_path / "sightlines" / "sim-nomcmc").mkdir()
+    return tmp_path
+
+
+@pytest.mark.slow
+def test_population_command_on_a_batch_folder(tmp_path, capsys):
+    import json
+
+    from astropy.table import Table
+
+    from edgefit.cli import main
+
+    folder = _batch_folder(tmp_path)
+    out = tmp_path / "pop"
+    assert main(["population", str(folder), "--quantity", "dust_col", "--covariate", "nh_hi",
+                 "-o", str(out)]) == 0
+    d = json.loads((out / "population.json").read_text())
+    assert set(d["hyper"]) == {"c0", "c1", "s"}
+    assert [s[0] for s in d["skipped"]] == ["sim-failed", "sim-nomcmc"]
+    # simulated slope 1.5 per dex of N_H: inside the 99.7 % range (12 sightlines, loose)
+    c1 = d["hyper"]["c1"]
+    assert abs(c1["median"] - 1.5) < 3 * (c1["hi"] - c1["lo"])
+    t = Table.read(out / "population_sightlines.ecsv")
+    assert len(t) == 12 and "dust_col_population_lo" in t.colnames
+    assert (out / "population.png").stat().st_size > 10_000
+
+
+def test_population_command_bad_input(tmp_path, capsys):
+    from edgefit.cli import main
+
+    folder = _batch_folder(tmp_path, n=3)
+    rc = main(["population", str(folder), "--quantity", "dust_col", "--covariate", "nh_h2"])
+    err = capsys.readouterr().err.strip()
+    assert rc == 2 and len(err.splitlines()) == 1 and "nh_h2" in err and "sample.ecsv" in err
+    rc = main(["population", str(folder), "--quantity", "depletion_Si"])
+    err = capsys.readouterr().err.strip()
+    assert rc == 2 and "depletion_Si" in err and "posterior_samples.npz" in err

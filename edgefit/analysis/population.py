@@ -46,7 +46,7 @@ import numpy as np
 from ..errors import ArgumentError, ShortChainWarning
 from ..stats import ONE_SIGMA
 
-__all__ = ["population_fit", "PopulationResult", "weighted_quantiles"]
+__all__ = ["population_fit", "PopulationResult", "weighted_quantiles", "population_from_batch"]
 
 _MIN_TAU_MULTIPLE = 50
 _LOG_SQRT_2PI = 0.5 * math.log(2.0 * math.pi)
@@ -126,6 +126,8 @@ class PopulationResult:
     n_steps: int
     autocorr_steps: list
     warnings: list = field(default_factory=list)
+    skipped: list = field(default_factory=list)
+    output: str | None = None
 
     def to_dict(self):
         return {"quantity": self.quantity, "log": self.log,
@@ -306,3 +308,114 @@ def population_fit(samples, quantity, *, covariate=None, log=False, interim="fla
                             hyper=hyper, hyper_samples=flat, hyper_names=hyper_names,
                             sightlines=out, n_steps=int(total),
                             autocorr_steps=[float(t) for t in tau], warnings=notes)
+
+
+def _population_table(result):
+    """One row per sightline: n_eff and, per reported column, the single-fit
+    and population medians and 68 % ranges and the shrink factor."""
+    from astropy.table import Table
+
+    t = Table()
+    t["name"] = [e["name"] for e in result.sightlines]
+    t["n_eff"] = [e["n_eff"] for e in result.sightlines]
+    if result.covariate_ref is not None:
+        t["covariate"] = [e["covariate"] for e in result.sightlines]
+    cols = list(result.sightlines[0]["columns"])
+    for c in cols:
+        for kind in ("single", "population"):
+            for part, suffix in (("median", ""), ("lo", "_lo"), ("hi", "_hi")):
+                t[f"{c}_{kind}{suffix}"] = [e["columns"][c][kind][part]
+                                            for e in result.sightlines]
+        t[f"{c}_shrink"] = [e["columns"][c]["shrink"] for e in result.sightlines]
+    return t
+
+
+def population_from_batch(folder, quantity, *, covariate=None, log_covariate=True, log=False,
+                          interim="flat", output=None, plots=True, seed=0, progress=False):
+    """``edgefit population``: the population fit of a batch output folder.
+
+    Reads ``folder/sample.ecsv`` and each usable sightline's saved posterior
+    samples (``folder/sightlines/<name>/posterior_samples.npz``; sightlines
+    that failed or ran without MCMC are listed and left out), takes the
+    covariate from a sample-table column (log10 of it when
+    ``log_covariate``; rows where it is an upper limit or not finite are
+    left out), runs :func:`population_fit` and writes ``population.json``,
+    ``population_sightlines.ecsv`` and (unless ``plots`` is False)
+    ``population.png`` into ``output`` (default: ``folder``).  Returns the
+    :class:`PopulationResult` (its ``skipped`` attribute lists the names
+    left out and why).
+    """
+    import os
+    from pathlib import Path
+
+    from ..errors import InputFileError
+    from .manifest import folder_name
+    from .pipeline import SAMPLES_FILE, read_samples
+    from .regression import write_json
+    from .sample_table import read_sample_table
+
+    folder = Path(folder)
+    table_path = folder / "sample.ecsv" if folder.is_dir() else folder
+    if not table_path.exists():
+        raise InputFileError(table_path, "no sample table (run 'edgefit batch' first)")
+    if table_path.parent != folder:
+        folder = table_path.parent
+    try:
+        table = read_sample_table(table_path)
+    except Exception as exc:  # astropy raises many kinds for unreadable tables
+        raise InputFileError(table_path, f"cannot read the sample table ({exc})") from None
+    if covariate is not None and covariate not in table.colnames:
+        raise InputFileError(table_path, f"no column {covariate!r} for the covariate")
+    samples, cov, skipped = {}, {}, []
+    for row in table:
+        name = str(row["name"])
+        if "status" in table.colnames and str(row["status"]) == "failed":
+            skipped.append((name, "failed"))
+            continue
+        sdir = folder / "sightlines" / folder_name(name)
+        if not (sdir / SAMPLES_FILE).exists():
+            skipped.append((name, "no posterior samples (MCMC not run)"))
+            continue
+        if covariate is not None:
+            val = float(row[covariate])
+            upper = f"{covariate}_upper" in table.colnames and bool(row[f"{covariate}_upper"])
+            if upper or not np.isfinite(val) or (log_covariate and val <= 0):
+                skipped.append((name, f"{covariate} is an upper limit or not usable"))
+                continue
+            cov[name] = math.log10(val) if log_covariate else val
+        try:
+            samples[name] = read_samples(sdir)
+        except (OSError, KeyError, ValueError) as exc:
+            raise InputFileError(sdir / SAMPLES_FILE, f"cannot read samples ({exc})") from None
+        if quantity not in samples[name][0]:
+            raise InputFileError(sdir / SAMPLES_FILE,
+                                 f"no sampled parameter {quantity!r} (have "
+                                 f"{', '.join(samples[name][0])}); only free parameters "
+                                 "are sampled")
+    if len(samples) < 3:
+        raise InputFileError(table_path, f"{len(samples)} sightline(s) with posterior samples "
+                                         f"of {quantity!r}; a population needs at least 3")
+    result = population_fit(samples, quantity, covariate=cov if covariate else None, log=log,
+                            interim=interim, seed=seed, progress=progress)
+    result.skipped = skipped
+    out = Path(output) if output else folder
+    os.makedirs(out, exist_ok=True)
+    d = result.to_dict()
+    d.update({"source": str(table_path), "covariate": covariate,
+              "log_covariate": bool(log_covariate) if covariate else None,
+              "interim_prior": interim, "skipped": [list(s) for s in skipped]})
+    write_json(d, out / "population.json")
+    t = _population_table(result)
+    tmp = out / f".population_sightlines.ecsv.tmp{os.getpid()}"
+    t.write(tmp, format="ascii.ecsv", overwrite=True)
+    os.replace(tmp, out / "population_sightlines.ecsv")
+    if plots:
+        from ..plotting.population import plot_population
+
+        unit = getattr(table[quantity], "unit", None) if quantity in table.colnames else None
+        plot_population(result, out / "population.png",
+                        covariate_label=(f"log10 {covariate}" if covariate and log_covariate
+                                         else covariate),
+                        unit=str(unit) if unit is not None else None)
+    result.output = str(out)
+    return result
