@@ -119,3 +119,33 @@ def test_shielded_relation_recovers_grain_size():
     assert not ok[np.argmin(np.abs(np.log(a / 0.005)))]
     assert np.isfinite(res["delta_aic"]) and np.isfinite(res["delta_bic"])
     assert res["delta_bic"] - res["delta_aic"] == pytest.approx(-math.log(n) + 2, rel=1e-12)
+
+
+def test_grains_command_writes_columns_and_rejects_bad_column(tmp_path, capsys):
+    # The command adds grain_column / n_Si_dust with intervals to a copy of the table
+    # (values checked against tau / sigma_grain from grains.json: a definition, 1e-12);
+    # an optical-depth column with a unit gives one line naming table and column, exit 2.
+    import json
+
+    from edgefit.cli import main
+
+    t = Table()
+    t["name"] = ["sim-a", "sim-b", "sim-c"]
+    t["dust_tau_above"] = np.array([0.1, 0.2, 0.05]) * u.dimensionless_unscaled
+    t["dust_tau_above_lo"] = np.array([0.08, 0.17, 0.0]) * u.dimensionless_unscaled
+    t["dust_tau_above_hi"] = np.array([0.12, 0.24, 0.09]) * u.dimensionless_unscaled
+    t["bad_tau"] = [1.0, 2.0, 3.0] * u.cm ** -2
+    t["bad_tau_err"] = [0.1, 0.1, 0.1] * u.cm ** -2
+    path = tmp_path / "sample.ecsv"
+    t.write(path)
+    assert main(["grains", str(path), "--size", "0.2", "-o", str(tmp_path / "g")]) == 0
+    out = Table.read(tmp_path / "g" / "sample_grains.ecsv")
+    info = json.loads((tmp_path / "g" / "grains.json").read_text())["grain_columns"]["default"]
+    np.testing.assert_allclose(out["grain_column"], np.array([0.1, 0.2, 0.05])
+                               / info["sigma_grain"], rtol=1e-12)
+    np.testing.assert_allclose(out["n_Si_dust_hi"], np.array([0.12, 0.24, 0.09])
+                               * info["atoms_per_grain"] / info["sigma_grain"], rtol=1e-12)
+    assert out["grain_column"].unit == u.cm ** -2
+    rc = main(["grains", str(path), "--tau", "bad_tau", "-o", str(tmp_path / "h")])
+    err = capsys.readouterr().err.strip()
+    assert rc == 2 and len(err.splitlines()) == 1 and str(path) in err and "'bad_tau'" in err

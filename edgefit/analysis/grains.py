@@ -47,7 +47,7 @@ from ..errors import ArgumentError, InputFileError, PhysicsDataError
 from .regression import SampleColumnError, read_quantity
 
 __all__ = ["grain_cross_section", "shielding_factor", "geometric_shielding",
-           "grain_columns", "fit_shielded_relation", "reference_energy"]
+           "grain_columns", "fit_shielded_relation", "reference_energy", "grains_sample"]
 
 
 def reference_energy(element) -> float:
@@ -265,17 +265,19 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
     :mod:`edgefit.analysis.regression`); upper limits in τ enter as
     censored points; rows with an upper limit in N_H are left out.  The
     radius is profiled on a grid (``radii``, default 200 radii over
-    0.001-5 µm), so a multi-modal s(a) (scattering raises the extinction of
-    0.1-1 µm grains, shielding lowers it for larger ones) is handled; the
-    68 % set is where χ² is within 1 of its minimum (possibly several
-    ranges).
+    0.001-5 µm) and every local minimum refined, so a multi-modal s(a)
+    (scattering raises the extinction of 0.1-1 µm grains, shielding lowers
+    it for larger ones) is handled and the answer does not depend on a
+    start; the 68 % set is where χ² is within 1 of its minimum (possibly
+    several ranges, ends found by root finding; ``n_minima`` counts the
+    local minima of the scan).
 
     Returns a dict with ``shielded`` (radius, its 68 % range(s), χ², k = 1,
     AIC, BIC, the χ² profile), ``line`` (α, β, χ², k = 2, AIC, BIC),
     ``delta_aic`` and ``delta_bic`` (shielded − line; negative favours the
     shielded relation), ``n_points``, and the fixed inputs.
     """
-    from scipy.optimize import minimize
+    from scipy.optimize import brentq, minimize, minimize_scalar
 
     from ..dust.materials import get_material
     from ..physics import abundances, atomic
@@ -307,19 +309,47 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
     ext, _, n_atoms = _per_size(material, element, e, a, count_once, kind)
     per_atom = ext / n_atoms
     coef = abundance * dust_fraction * per_atom          # dτ/dN_H for each radius
-    chi2 = np.array([_censored_chi2(c * x, y, np.sqrt(sy ** 2 + (c * sx) ** 2), upper)
-                     for c in coef])
-    i = int(np.argmin(chi2))
-    inside = chi2 <= chi2[i] + 1.0
+    def chi2_of(c):
+        return _censored_chi2(c * x, y, np.sqrt(sy ** 2 + (c * sx) ** 2), upper)
+
+    def chi2_at(radius):
+        e_r, _, n_r = _per_size(material, element, e, np.array([radius]), count_once, kind)
+        return chi2_of(abundance * dust_fraction * float(e_r[0] / n_r[0]))
+
+    chi2 = np.array([chi2_of(c) for c in coef])
+    # refine every local minimum of the grid scan, then the chi^2 = min + 1 crossings
+    minima = []
+    for j in range(len(a)):
+        left = chi2[j - 1] if j > 0 else np.inf
+        right = chi2[j + 1] if j < len(a) - 1 else np.inf
+        if chi2[j] <= left and chi2[j] <= right:
+            lo_b, hi_b = math.log(a[max(j - 1, 0)]), math.log(a[min(j + 1, len(a) - 1)])
+            r = minimize_scalar(lambda t: chi2_at(math.exp(t)), bounds=(lo_b, hi_b),
+                                method="bounded", options={"xatol": 1e-6})
+            minima.append((float(r.fun), float(math.exp(r.x)), j) if r.fun < chi2[j]
+                          else (float(chi2[j]), float(a[j]), j))
+    best_chi2, best_a, _ = min(minima)
+    level = best_chi2 + 1.0
     ranges = []
-    start = None
-    for j, flag in enumerate(inside):
-        if flag and start is None:
-            start = j
-        if (not flag or j == len(inside) - 1) and start is not None:
-            end = j if flag else j - 1
-            ranges.append([float(a[start]), float(a[end])])
-            start = None
+    for c_min, a_min, j in sorted(minima, key=lambda m: m[1]):
+        if c_min > level:
+            continue
+        ends = []
+        for step in (-1, 1):
+            k = j
+            while 0 <= k + step < len(a) and chi2[k] <= level:
+                k += step
+            if chi2[k] <= level:      # the set reaches the end of the scanned radii
+                ends.append(float(a[k]))
+                continue
+            ends.append(float(math.exp(brentq(lambda t: chi2_at(math.exp(t)) - level,
+                                               *sorted((math.log(a_min), math.log(a[k])))))))
+        rng_ = sorted(ends)
+        if not ranges or rng_[0] > ranges[-1][1]:
+            ranges.append(rng_)
+        else:
+            ranges[-1][1] = max(ranges[-1][1], rng_[1])
+    i = int(np.argmin(chi2))
     n = len(x)
 
     def line_chi2(p):
@@ -339,9 +369,12 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
         if best is None or r.fun < best.fun:
             best = r
     alpha, beta = float(best.x[0]), float(best.x[1] * scale)
-    shielded = {"radius_um": float(a[i]), "radius_68": ranges, "chi2": float(chi2[i]),
-                "k": 1, "aic": float(chi2[i] + 2), "bic": float(chi2[i] + math.log(n)),
-                "slope_cm2": float(coef[i]), "profile_radius_um": a.tolist(),
+    e_b, _, n_b = _per_size(material, element, e, np.array([best_a]), count_once, kind)
+    shielded = {"radius_um": best_a, "radius_68": ranges, "chi2": best_chi2,
+                "k": 1, "aic": best_chi2 + 2, "bic": best_chi2 + math.log(n),
+                "n_minima": len(minima),
+                "slope_cm2": float(abundance * dust_fraction * e_b[0] / n_b[0]),
+                "profile_radius_um": a.tolist(),
                 "profile_chi2": chi2.tolist(),
                 "at_grid_edge": bool(i in (0, len(a) - 1))}
     line = {"intercept": alpha, "slope_cm2": beta, "chi2": float(best.fun), "k": 2,
@@ -354,3 +387,43 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
             "material": material.name, "element": element, "count_once": bool(count_once),
             "kind": kind,
             "thin_limit_slope_cm2": float(abundance * dust_fraction * per_atom[0])}
+
+
+def grains_sample(path, tau="dust_tau_above", *, material="olivine", element="Si",
+                  sizes=0.1, nh=None, energy=None, count_once=True, kind="ext", output=None,
+                  plots=True) -> dict:
+    """``edgefit grains``: read a sample table, add grain and dust-element
+    columns (:func:`grain_columns`), and, when ``nh`` names a hydrogen
+    column, fit the shielded τ–N_H relation beside a straight line
+    (:func:`fit_shielded_relation`).  Writes ``sample_grains.ecsv``,
+    ``grains.json`` and (with ``nh`` and ``plots``) ``grains.png`` into
+    ``output`` (default: the table's folder).  Returns the JSON content."""
+    import os
+
+    from .regression import read_sample, write_json
+
+    table = read_sample(path)
+    source = table.meta["source"]
+    out_table = grain_columns(table, tau, material=material, element=element, sizes=sizes,
+                              energy=energy, count_once=count_once, kind=kind, source=source)
+    result = {"source": source, "grain_columns": out_table.meta["grain_columns"]}
+    fit = None
+    if nh is not None:
+        fit = fit_shielded_relation(table, tau, nh, material=material, element=element,
+                                    energy=energy, count_once=count_once, kind=kind,
+                                    source=source)
+        result["shielded_fit"] = fit
+    out = output or os.path.dirname(os.path.abspath(source))
+    os.makedirs(out, exist_ok=True)
+    tmp = os.path.join(out, f".sample_grains.ecsv.tmp{os.getpid()}")
+    out_table.write(tmp, format="ascii.ecsv", overwrite=True)
+    os.replace(tmp, os.path.join(out, "sample_grains.ecsv"))
+    write_json(result, os.path.join(out, "grains.json"))
+    if fit is not None and plots:
+        from ..plotting.grains import plot_shielded_relation
+
+        plot_shielded_relation(fit, read_quantity(table, nh, source),
+                               read_quantity(table, tau, source),
+                               os.path.join(out, "grains.png"))
+    result["output"] = out
+    return result
