@@ -26,9 +26,6 @@ LAYERS = {
 ALIASES = {
     ("data/__init__.py", "cli.inspect"),
     ("data/ogip/__init__.py", "cli.inspect"),
-    # known, to be removed: regress_sample draws its figures itself instead
-    # of taking a figures function as run_sightline does
-    ("analysis/regression.py", "plotting.regression"),
 }
 
 

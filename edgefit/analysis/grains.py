@@ -391,13 +391,16 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
 
 def grains_sample(path, tau="dust_tau_above", *, material="olivine", element="Si",
                   sizes=0.1, nh=None, energy=None, count_once=True, kind="ext", output=None,
-                  plots=True) -> dict:
+                  figures=None) -> dict:
     """``edgefit grains``: read a sample table, add grain and dust-element
     columns (:func:`grain_columns`), and, when ``nh`` names a hydrogen
     column, fit the shielded τ–N_H relation beside a straight line
     (:func:`fit_shielded_relation`).  Writes ``sample_grains.ecsv``,
-    ``grains.json`` and (with ``nh`` and ``plots``) ``grains.png`` into
-    ``output`` (default: the table's folder).  Returns the JSON content."""
+    ``grains.json`` into ``output`` (default: the table's folder); with
+    ``nh`` and ``figures`` given, calls ``figures(fit, nh, tau, output)``
+    (``nh``/``tau`` as :class:`~edgefit.analysis.regression.Measurements`;
+    the command passes :func:`edgefit.plotting.grains.save_grains_figure`).
+    Returns the JSON content."""
     import os
 
     from .regression import read_sample, write_json
@@ -419,11 +422,7 @@ def grains_sample(path, tau="dust_tau_above", *, material="olivine", element="Si
     out_table.write(tmp, format="ascii.ecsv", overwrite=True)
     os.replace(tmp, os.path.join(out, "sample_grains.ecsv"))
     write_json(result, os.path.join(out, "grains.json"))
-    if fit is not None and plots:
-        from ..plotting.grains import plot_shielded_relation
-
-        plot_shielded_relation(fit, read_quantity(table, nh, source),
-                               read_quantity(table, tau, source),
-                               os.path.join(out, "grains.png"))
+    if fit is not None and figures is not None:
+        figures(fit, read_quantity(table, nh, source), read_quantity(table, tau, source), out)
     result["output"] = out
     return result

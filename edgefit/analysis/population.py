@@ -331,7 +331,7 @@ def _population_table(result):
 
 
 def population_from_batch(folder, quantity, *, covariate=None, log_covariate=True, log=False,
-                          interim="flat", output=None, plots=True, seed=0, progress=False):
+                          interim="flat", output=None, figures=None, seed=0, progress=False):
     """``edgefit population``: the population fit of a batch output folder.
 
     Reads ``folder/sample.ecsv`` and each usable sightline's saved posterior
@@ -340,8 +340,10 @@ def population_from_batch(folder, quantity, *, covariate=None, log_covariate=Tru
     covariate from a sample-table column (log10 of it when
     ``log_covariate``; rows where it is an upper limit or not finite are
     left out), runs :func:`population_fit` and writes ``population.json``,
-    ``population_sightlines.ecsv`` and (unless ``plots`` is False)
-    ``population.png`` into ``output`` (default: ``folder``).  Returns the
+    ``population_sightlines.ecsv`` into ``output`` (default: ``folder``)
+    and calls ``figures(result, output, covariate_label=..., unit=...)``
+    when given (the command passes
+    :func:`edgefit.plotting.population.save_population_figure`).  Returns the
     :class:`PopulationResult` (its ``skipped`` attribute lists the names
     left out and why).
     """
@@ -409,13 +411,10 @@ def population_from_batch(folder, quantity, *, covariate=None, log_covariate=Tru
     tmp = out / f".population_sightlines.ecsv.tmp{os.getpid()}"
     t.write(tmp, format="ascii.ecsv", overwrite=True)
     os.replace(tmp, out / "population_sightlines.ecsv")
-    if plots:
-        from ..plotting.population import plot_population
-
+    if figures is not None:
         unit = getattr(table[quantity], "unit", None) if quantity in table.colnames else None
-        plot_population(result, out / "population.png",
-                        covariate_label=(f"log10 {covariate}" if covariate and log_covariate
-                                         else covariate),
-                        unit=str(unit) if unit is not None else None)
+        figures(result, out, covariate_label=(f"log10 {covariate}"
+                                              if covariate and log_covariate else covariate),
+                unit=str(unit) if unit is not None else None)
     result.output = str(out)
     return result

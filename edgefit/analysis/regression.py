@@ -718,20 +718,19 @@ def write_json(obj, path):
     os.replace(tmp, path)
 
 
-def regress_sample(path, y, x, *, through_origin=False, output=None, seed=0, plots=True,
+def regress_sample(path, y, x, *, through_origin=False, output=None, seed=0, figures=None,
                    progress=False) -> RegressionResult:
     """``edgefit regress``: read a sample table, regress, write
-    ``regression.json`` and (unless ``plots`` is False) ``regression.png`` and
-    ``regression_corner.png`` into ``output`` (default: the table's folder)."""
+    ``regression.json`` into ``output`` (default: the table's folder) and
+    call ``figures(result, output)`` when given (the command passes
+    :func:`edgefit.plotting.regression.save_regression_figures`; analysis
+    code does not import the plotting layer)."""
     table = read_sample(path)
     result = regress(table, y, x, through_origin=through_origin, seed=seed, progress=progress)
     out = output or os.path.dirname(os.path.abspath(table.meta["source"]))
     os.makedirs(out, exist_ok=True)
     write_json(result.to_dict(), os.path.join(out, "regression.json"))
     result.output = out
-    if plots:
-        from ..plotting.regression import plot_regression, plot_regression_corner
-
-        plot_regression(result, os.path.join(out, "regression.png"))
-        plot_regression_corner(result, os.path.join(out, "regression_corner.png"))
+    if figures is not None:
+        figures(result, out)
     return result

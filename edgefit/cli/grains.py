@@ -41,12 +41,13 @@ def add_parser(subparsers):
 
 def run(args) -> int:
     from ..analysis.grains import grains_sample
+    from ..plotting.grains import save_grains_figure
 
     sizes = args.sizes if args.sizes else (args.size if args.size is not None else 0.1)
     res = grains_sample(args.sample, args.tau, material=args.material, element=args.element,
                         sizes=sizes, nh=args.nh, count_once=not args.no_count_once,
                         kind="abs" if args.absorption else "ext", output=args.output,
-                        plots=not args.no_plots)
+                        figures=None if args.no_plots else save_grains_figure)
     gc = res["grain_columns"]["default"]
     print(f"optical depth per grain {gc['sigma_grain']:.4g} cm2 at {gc['energy_kev']:.4g} keV "
           f"({gc['sizes']}); {gc['atoms_per_grain']:.4g} {gc['element']} atoms per grain")

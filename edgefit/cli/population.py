@@ -35,11 +35,13 @@ def add_parser(subparsers):
 
 def run(args) -> int:
     from ..analysis.population import population_from_batch
+    from ..plotting.population import save_population_figure
 
     res = population_from_batch(args.sample_dir, args.quantity, covariate=args.covariate,
                                 log_covariate=not args.linear_covariate, log=args.log,
                                 interim=args.interim, output=args.output,
-                                plots=not args.no_plots, seed=args.seed)
+                                figures=None if args.no_plots else save_population_figure,
+                                seed=args.seed)
     print(f"{len(res.sightlines)} sightlines; skipped {len(res.skipped)}")
     for k, v in res.hyper.items():
         print(f"  {k:3s} {v['median']:.5g} [{v['lo']:.5g}, {v['hi']:.5g}]")

@@ -30,9 +30,11 @@ def add_parser(subparsers):
 
 def run(args) -> int:
     from ..analysis.regression import regress_sample
+    from ..plotting.regression import save_regression_figures
 
     res = regress_sample(args.sample, args.y, args.x, through_origin=args.through_origin,
-                         output=args.output, seed=args.seed, plots=not args.no_plots)
+                         output=args.output, seed=args.seed,
+                         figures=None if args.no_plots else save_regression_figures)
     d = res.to_dict()
     print(f"{d['n_points']} points ({d['n_limits']} limits), slope in {d['units']['slope']}")
     if d["odr"] is not None:

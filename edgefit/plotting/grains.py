@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_shielded_relation"]
+__all__ = ["plot_shielded_relation", "save_grains_figure"]
 
 
 def plot_shielded_relation(fit, nh, tau, path=None):
@@ -56,3 +56,10 @@ def plot_shielded_relation(fit, nh, tau, path=None):
         fig.savefig(path, dpi=110)
         plt.close(fig)
     return fig
+
+
+def save_grains_figure(fit, nh, tau, folder):
+    """``grains.png`` in ``folder`` (:func:`plot_shielded_relation`)."""
+    import os
+
+    plot_shielded_relation(fit, nh, tau, os.path.join(folder, "grains.png"))

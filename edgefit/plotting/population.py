@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_population"]
+__all__ = ["plot_population", "save_population_figure"]
 
 
 def plot_population(result, path=None, covariate_label=None, unit=None):
@@ -59,3 +59,11 @@ def plot_population(result, path=None, covariate_label=None, unit=None):
         fig.savefig(path, dpi=120)
         plt.close(fig)
     return fig
+
+
+def save_population_figure(result, folder, covariate_label=None, unit=None):
+    """``population.png`` in ``folder`` (:func:`plot_population`)."""
+    import os
+
+    plot_population(result, os.path.join(folder, "population.png"),
+                    covariate_label=covariate_label, unit=unit)

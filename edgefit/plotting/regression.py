@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_regression", "plot_regression_corner"]
+__all__ = ["plot_regression", "plot_regression_corner", "save_regression_figures"]
 
 
 def _label(m):
@@ -115,3 +115,13 @@ def plot_regression_corner(result, path=None):
         fig.savefig(path, dpi=100)
         plt.close(fig)
     return fig
+
+
+def save_regression_figures(result, folder):
+    """``regression.png`` and ``regression_corner.png`` (when the Bayesian
+    line was sampled) in ``folder``."""
+    import os
+
+    plot_regression(result, os.path.join(folder, "regression.png"))
+    if result.bayes is not None:
+        plot_regression_corner(result, os.path.join(folder, "regression_corner.png"))
