@@ -17,18 +17,17 @@ that is not finite), so results agree with the NumPy path to rounding
 (the sum is taken row by row rather than pairwise).  Each row's product is
 accumulated in the same order as SciPy's CSR matrix-vector product.
 
-numba compiles the kernels when it is importable and ``EDGEFIT_NO_NUMBA``
-is unset (:func:`numba_available`); otherwise the same functions run as
-NumPy code (a SciPy product and the :mod:`edgefit.stats` functions).
+numba compiles the kernels (through :mod:`edgefit._jit`) when it is
+importable and ``EDGEFIT_NO_NUMBA`` is unset (:func:`numba_available`);
+otherwise the same functions run as NumPy code (a SciPy product and the :mod:`edgefit.stats` functions).
 """
 from __future__ import annotations
 
 import math
-import os
 
 import numpy as np
 
-from . import stats
+from . import _jit, stats
 
 __all__ = ["numba_available", "Folding", "FoldingGroup", "fold", "fold_deviance",
            "fold_residuals"]
@@ -162,48 +161,30 @@ def _residuals_py(mu, counts, bounds, out, starts):
     return musum - musum == 0.0
 
 
-_NUMBA = {"tried": False, "fold": None, "dev": None, "res": None, "gfold": None,
-          "bfold": None, "devsum": None, "gres": None}
-
-
-def _kernels():
-    if not _NUMBA["tried"]:
-        _NUMBA["tried"] = True
-        if os.environ.get("EDGEFIT_NO_NUMBA"):
-            return None
-        try:
-            import numba
-            from numba.extending import register_jitable
-        except ImportError:
-            return None
-        global _xlogy, _deviance_one, _deviance_sum, _fold_py
-        try:
-            jit = numba.njit(cache=True, nogil=True)
-            _xlogy = register_jitable(_xlogy)
-            _deviance_one = register_jitable(_deviance_one)
-            _deviance_sum = register_jitable(_deviance_sum)
-            _fold_py = register_jitable(_fold_py)
-            _compile_all(jit, numba.njit(cache=True, nogil=True, fastmath={"reassoc"}))
-        except RuntimeError:  # pragma: no cover - no writable numba cache
-            _compile_all(numba.njit(nogil=True), numba.njit(nogil=True, fastmath={"reassoc"}))
-    return _NUMBA["dev"]
-
-
-def _compile_all(jit, jit_reassoc):
-    _NUMBA["fold"] = jit(_fold_py)
-    _NUMBA["dev"] = jit(_fold_deviance_py)
-    _NUMBA["res"] = jit(_fold_residuals_py)
-    _NUMBA["gfold"] = jit(_group_fold_py)
-    # only the band products may be reassociated (no other fast-math flag:
-    # NaN and inf must keep their meaning for the model checks)
-    _NUMBA["bfold"] = jit_reassoc(_band_fold_py)
-    _NUMBA["devsum"] = jit(_deviance_sum)
-    _NUMBA["gres"] = jit(_residuals_py)
+@_jit.kernels
+def _numba_kernels():
+    """The compiled kernels by name (built once per process)."""
+    xlogy = _jit.jit(_xlogy, nogil=True)
+    one = _jit.jit(_deviance_one, nogil=True, globals={"_xlogy": xlogy})
+    dsum = _jit.jit(_deviance_sum, nogil=True, globals={"_deviance_one": one})
+    fold = _jit.jit(_fold_py, nogil=True)
+    helpers = {"_deviance_one": one, "_deviance_sum": dsum, "_fold_py": fold}
+    return {
+        "fold": fold,
+        "dev": _jit.jit(_fold_deviance_py, nogil=True, globals=helpers),
+        "res": _jit.jit(_fold_residuals_py, nogil=True, globals=helpers),
+        "gfold": _jit.jit(_group_fold_py, nogil=True),
+        # only the band products may be reassociated (no other fast-math
+        # flag: NaN and inf must keep their meaning for the model checks)
+        "bfold": _jit.jit(_band_fold_py, nogil=True, fastmath={"reassoc"}),
+        "devsum": dsum,
+        "gres": _jit.jit(_residuals_py, nogil=True, globals=helpers),
+    }
 
 
 def numba_available() -> bool:
     """True when the compiled kernels are used."""
-    return _kernels() is not None
+    return _numba_kernels() is not None
 
 
 # -- public entry points (numba when available, else NumPy) -----------------
@@ -264,20 +245,21 @@ class FoldingGroup:
         step_ok[first[length > 0]] = True
         self.start = start.astype(np.int64) if step_ok.all() else None
 
-    def _fold(self, flux, xn):
+    def _fold(self, flux, xn, kern):
         f = flux[:self.n_cols]
         if self.start is not None:
-            _NUMBA["bfold"](self.indptr, self.start, self.data, f, self.bounds, xn,
+            kern["bfold"](self.indptr, self.start, self.data, f, self.bounds, xn,
                             self.scratch)
         else:
-            _NUMBA["gfold"](self.indptr, self.indices, self.data, f, self.bounds, xn,
+            kern["gfold"](self.indptr, self.indices, self.data, f, self.bounds, xn,
                             self.scratch)
         return self.scratch
 
     def deviance(self, flux, xn):
         """(summed C deviance, ok) for expected counts xn[k] * M_k @ flux."""
-        if _kernels() is not None:
-            return _NUMBA["devsum"](self._fold(flux, xn), self.counts)
+        kern = _numba_kernels()
+        if kern is not None:
+            return kern["devsum"](self._fold(flux, xn, kern), self.counts)
         total = 0.0
         b = self.bounds
         for k, (fm, off) in enumerate(self.parts):
@@ -290,8 +272,10 @@ class FoldingGroup:
     def residuals(self, flux, xn, out, starts):
         """Signed residuals of dataset k into out[starts[k]:...]; False when
         an expected count is negative or not finite."""
-        if _kernels() is not None:
-            return _NUMBA["gres"](self._fold(flux, xn), self.counts, self.bounds, out, starts)
+        kern = _numba_kernels()
+        if kern is not None:
+            return kern["gres"](self._fold(flux, xn, kern), self.counts, self.bounds, out,
+                                starts)
         b = self.bounds
         for k, (fm, off) in enumerate(self.parts):
             if not fold_residuals(fm, flux, off, xn[k], self.counts[b[k]:b[k + 1]], out,
@@ -303,10 +287,11 @@ class FoldingGroup:
 def fold(fm, flux, off, xn):
     """xn * (matrix @ flux[off : off + n_cols]) for a :class:`Folding`."""
     f = flux[off:off + fm.n_cols]
-    if _kernels() is None:
+    kern = _numba_kernels()
+    if kern is None:
         return xn * (fm.matrix @ f)
     out = np.empty(fm.n_rows)
-    _NUMBA["fold"](fm.indptr, fm.indices, fm.data, f, xn, out)
+    kern["fold"](fm.indptr, fm.indices, fm.data, f, xn, out)
     return out
 
 
@@ -316,11 +301,11 @@ def fold_deviance(fm, flux, off, xn, counts, scratch=None):
     ``scratch``: an array of one float per row to fold into (reused
     between calls; allocated when not given)."""
     f = flux[off:off + fm.n_cols]
-    kern = _kernels()
+    kern = _numba_kernels()
     if kern is not None:
         if scratch is None:
             scratch = np.empty(fm.n_rows)
-        return kern(fm.indptr, fm.indices, fm.data, f, xn, counts, scratch)
+        return kern["dev"](fm.indptr, fm.indices, fm.data, f, xn, counts, scratch)
     mu = xn * (fm.matrix @ f)
     if not _finite_non_negative(mu):
         return math.inf, False
@@ -331,8 +316,9 @@ def fold_residuals(fm, flux, off, xn, counts, out, start):
     """Signed deviance residuals written to ``out[start:start + rows]``;
     returns False when mu is negative or not finite somewhere."""
     f = flux[off:off + fm.n_cols]
-    if _kernels() is not None:
-        return _NUMBA["res"](fm.indptr, fm.indices, fm.data, f, xn, counts, out, start)
+    kern = _numba_kernels()
+    if kern is not None:
+        return kern["res"](fm.indptr, fm.indices, fm.data, f, xn, counts, out, start)
     mu = xn * (fm.matrix @ f)
     if not _finite_non_negative(mu):
         return False

@@ -40,6 +40,7 @@ import numpy as np
 from astropy import units as u
 from scipy.interpolate import CubicSpline
 
+from .. import _jit
 from .._units import to_value
 from ..errors import PhysicsDataError
 
@@ -396,29 +397,12 @@ def _nodes_loop(u, ulo, uhi, glx, uu, half):
     return first, nk
 
 
-_NUMBA = {"tried": False, "moments": None, "nodes": None}
-
-
-def _moments_kernel():
-    """The numba-compiled :func:`_moments_loop`, or None (numba missing or
-    ``EDGEFIT_NO_NUMBA`` set: :func:`_moments_numpy` is used)."""
-    if not _NUMBA["tried"]:
-        _NUMBA["tried"] = True
-        import os
-
-        if os.environ.get("EDGEFIT_NO_NUMBA"):
-            return None
-        try:
-            import numba
-        except ImportError:
-            return None
-        try:
-            _NUMBA["moments"] = numba.njit(cache=True)(_moments_loop)
-            _NUMBA["nodes"] = numba.njit(cache=True)(_nodes_loop)
-        except RuntimeError:  # pragma: no cover - no writable numba cache
-            _NUMBA["moments"] = numba.njit(_moments_loop)
-            _NUMBA["nodes"] = numba.njit(_nodes_loop)
-    return _NUMBA["moments"]
+@_jit.kernels
+def _numba_kernels():
+    """The compiled :func:`_moments_loop` and :func:`_nodes_loop` (None when
+    numba is missing or ``EDGEFIT_NO_NUMBA`` is set: the NumPy lines of
+    :meth:`SizeGrid.weights` run instead)."""
+    return {"moments": _jit.jit(_moments_loop), "nodes": _jit.jit(_nodes_loop)}
 
 
 class SizeGrid:
@@ -480,7 +464,7 @@ class SizeGrid:
         lo, hi = dist.support()
         self._check_range(lo, hi)
         ulo, uhi = math.log(lo), math.log(hi)
-        kern = _moments_kernel()
+        kern = _numba_kernels()
         if kern is not None:
             # the support's grid intervals and their Gauss-Legendre nodes in
             # one compiled call (same arithmetic as the NumPy lines below)
@@ -488,7 +472,7 @@ class SizeGrid:
             if work is None:
                 work = self._nodes_work = (np.empty((self.a.size - 1, _GL_X.size)),
                                            np.empty(self.a.size - 1))
-            k0, nk = _NUMBA["nodes"](self.u, ulo, uhi, _GL_X, work[0], work[1])
+            k0, nk = kern["nodes"](self.u, ulo, uhi, _GL_X, work[0], work[1])
             k1 = k0 + nk - 1
             uu, half = work[0][:nk], work[1][:nk]
             a = np.exp(uu)
@@ -500,7 +484,7 @@ class SizeGrid:
             f = np.array(np.broadcast_to(f, a.shape), dtype=float)   # overwritten below
         if kern is not None:
             mom = np.empty((k1 - k0 + 1, 4))
-            kern(f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power, mom)
+            kern["moments"](f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power, mom)
         else:
             mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
         w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
