@@ -127,6 +127,13 @@ def test_manifest_merges_defaults_and_overrides(small, tmp_path):
         load_manifest(m)
 
 
+def test_only_unknown_name_is_one_line(small, capsys):
+    rc = main(["batch", str(small), "--only", "SIM-NOPE", "-q", "-o",
+               str(small.parent / "never")])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 2 and len(err) == 1 and "SIM-NOPE" in err[0]
+
+
 # --- running -----------------------------------------------------------------
 def test_truncated_pha_fails_only_its_row(tmp_path):
     m = write_sample(tmp_path, n=3, **FAST)
@@ -153,6 +160,17 @@ def test_truncated_pha_fails_only_its_row(tmp_path):
     t2 = run_batch(m, tmp_path / "out", workers=0, progress=False)
     assert list(t2["status"]) == ["ok", "ok", "ok"]
     assert row1.stat().st_mtime_ns == before
+    # a new tracer value only rewrites the table; a changed fit setting of
+    # one sightline refits that one alone
+    row3 = tmp_path / "out" / "sightlines" / "SIM-B03" / "row.json"
+    before3 = row3.stat().st_mtime_ns
+    text = m.read_text()
+    m.write_text(text.replace("nh_hi = 2.000000e+21", "nh_hi = 2.050000e+21")
+                 + '\n[sightline.fit]\nmethod = "least_squares"\nxnorm_free = false\n')
+    t3 = run_batch(m, tmp_path / "out", workers=0, progress=False)
+    assert t3["nh_hi"][0] == 2.05e21
+    assert row1.stat().st_mtime_ns == before and row3.stat().st_mtime_ns != before3
+    assert math.isnan(t3["xnorm_2"][2]) and np.isfinite(t3["xnorm_2"][0])
 
 
 def test_readme_batch_example_runs(tmp_path, monkeypatch):
@@ -169,7 +187,31 @@ def test_readme_batch_example_runs(tmp_path, monkeypatch):
     namespace = {}
     exec(compile(code, str(readme), "exec"), namespace)  # our own README, not user input
     table = namespace["table"]
-    assert list(table["status"]) == ["ok"] and (tmp_path / "sample_batch" / "sample.ecsv").is_file()
+    assert list(table["status"]) == ["ok"]
+    assert (tmp_path / "sample_batch" / "sample.ecsv").is_file()
+
+
+def test_mcmc_samples_kept_and_posterior_intervals(tmp_path):
+    from edgefit.analysis.pipeline import read_samples
+
+    m = write_sample(tmp_path, n=1, **FAST)
+    m.write_text(m.read_text().replace("[defaults.plots]", "[defaults.mcmc]\nenabled = true\n"
+                                       "walkers = 12\nsteps = 60\nseed = 3\n"
+                                       "[defaults.goodness]\nppc_draws = 10\n"
+                                       "[defaults.plots]"))
+    t = run_batch(m, tmp_path / "out", workers=0, progress=False)
+    folder = tmp_path / "out" / "sightlines" / "SIM-B01"
+    names, samples = read_samples(folder)
+    assert names == ["gas_si_col", "dust_col", "pl_index", "pl_norm", "xnorm_2"]
+    assert samples.shape[1] == 5 and samples.shape[0] > 0
+    # the table's intervals are these samples' central 68.27 % quantiles
+    lo, hi = np.quantile(samples[:, 0], [0.5 - 0.6827 / 2, 0.5 + 0.6827 / 2])
+    assert t["gas_si_col_lo"][0] == pytest.approx(lo, rel=1e-12)
+    assert t["gas_si_col_hi"][0] == pytest.approx(hi, rel=1e-12)
+    assert t.meta["interval_source"]["gas_si_col"] == "posterior"
+    assert t.meta["interval_source"]["total_Si_cm2"] == "posterior"
+    # 60 steps is far below the autocorrelation rule: doubtful, and says why
+    assert t["status"][0] == "doubtful" and "MCMC chain" in t["reason"][0]
 
 
 def test_hydrogen_and_total_columns(tmp_path):

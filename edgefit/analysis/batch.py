@@ -21,8 +21,9 @@ How it stays safe:
   all.  The sample table is rewritten (temporary file, rename) after every
   finished sightline.
 * ``row.json`` holds a SHA-256 of the sightline's inputs (merged manifest
-  entry, hydrogen columns, run options, edgefit version and the bytes of
-  every input file, see :meth:`SightlineEntry.input_hash`).  A rerun skips
+  entry, run options, edgefit version and the bytes of every input file,
+  see :meth:`SightlineEntry.input_hash`; the hydrogen columns are taken
+  from the manifest whenever the table is written).  A rerun skips
   a sightline whose hash is unchanged and whose status is not ``failed``;
   changed and failed ones are fitted again.
 * A failing sightline becomes a ``failed`` row with a one-line reason; the

@@ -106,14 +106,15 @@ class SightlineEntry:
         return files
 
     def input_hash(self, extra=None):
-        """SHA-256 (hex) of the merged manifest entry, the hydrogen
-        columns, ``extra`` (run options) and the bytes of every input
-        file: a rerun skips the sightline while this is unchanged."""
+        """SHA-256 (hex) of the merged manifest entry, ``extra`` (run
+        options), the edgefit version and the bytes of every input file: a
+        rerun skips the sightline while this is unchanged.  The hydrogen
+        columns are left out: they do not enter the fit, and the sample
+        table takes them from the manifest at every write."""
         from .. import __version__
 
         h = hashlib.sha256()
-        h.update(json.dumps({"table": self.table, "hydrogen": self.hydrogen,
-                             "name": self.name, "extra": extra or {},
+        h.update(json.dumps({"table": self.table, "name": self.name, "extra": extra or {},
                              "edgefit": __version__},
                             sort_keys=True, default=str).encode())
         for p in self.input_files():

@@ -19,9 +19,9 @@ def add_parser(subparsers):
     p = subparsers.add_parser("batch", help="fit many sightlines from a manifest into one "
                               "sample table", description=__doc__.split("\n\n")[0])
     p.add_argument("manifest", help="batch manifest (TOML)")
-    p.add_argument("-o", "--output", help="output folder (default: <manifest stem>_batch "
-                   "beside the manifest)")
-    p.add_argument("--workers", type=int, help="local worker processes (default: the "
+    p.add_argument("-o", "--output", metavar="DIR",
+                   help="output folder (default: <manifest stem>_batch beside the manifest)")
+    p.add_argument("--workers", type=int, metavar="N", help="local worker processes (default: the "
                    "number of CPUs; 0 = run in this process)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run on the dask.distributed "
                    "scheduler at ADDRESS (e.g. tcp://host:8786) instead of local processes")

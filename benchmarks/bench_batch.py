@@ -1,0 +1,80 @@
+"""Batch fitting: wall time on 1 and on 2 local workers, speed-up, and peak
+memory per worker, for 24 SIMULATED two-spectrum sightlines without MCMC.
+
+The sample is tests/_batch_sim.py's (invented sightlines: Si gas edge x
+olivine dust edge x power law through two grating-like arms, edgefit's
+own simulator).  Each run is a fresh ``edgefit batch`` subprocess (own
+output folder, ``--fresh``), so that its peak worker memory is that
+subprocess's ``RUSAGE_CHILDREN`` maximum resident set (the largest worker
+it waited for) and nothing is shared between the two runs but the disk
+cache of dust tables (warmed first).  Targets: speed-up >= 1.8 on a
+2-core machine, peak memory <= 500 MB per worker.  Printed, not asserted;
+the two runs are measured side by side in one invocation.
+
+    python benchmarks/bench_batch.py [--sightlines 24] [--draws 2000]
+"""
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent / "tests"))
+
+CHILD = r"""
+import json, resource, sys, time
+from edgefit.analysis import run_batch
+t0 = time.perf_counter()
+t = run_batch(sys.argv[1], sys.argv[2], workers=int(sys.argv[3]), fresh=True, mcmc=False,
+              plots=False, progress=False)
+wall = time.perf_counter() - t0
+kb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+print(json.dumps({"wall": wall, "peak_worker_mb": kb / 1024, "rows": len(t),
+                  "ok": int(sum(s == "ok" for s in t["status"]))}))
+"""
+
+
+def run(manifest, out, workers):
+    proc = subprocess.run([sys.executable, "-c", CHILD, str(manifest), str(out), str(workers)],
+                          capture_output=True, text=True, check=True)
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--sightlines", type=int, default=24)
+    ap.add_argument("--draws", type=int, default=2000,
+                    help="[derived] draws per sightline (default 2000, the pipeline's)")
+    args = ap.parse_args()
+    from _batch_sim import write_sample
+
+    with tempfile.TemporaryDirectory(prefix="edgefit-bench-batch-") as tmp:
+        tmp = Path(tmp)
+        manifest = write_sample(tmp / "data", n=args.sightlines, profile="[]",
+                                draws=args.draws)
+        warm = write_sample(tmp / "warm", n=1, profile="[]", draws=10)
+        run(warm, tmp / "warm_out", 1)          # dust tables into the disk cache
+        r1 = run(manifest, tmp / "w1", 1)
+        r2 = run(manifest, tmp / "w2", 2)
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"{args.sightlines} simulated two-spectrum sightlines, no MCMC, no profiles, "
+          f"{args.draws} derived draws; {os.cpu_count()} CPUs, load average {load:.1f}")
+    print(f"{'workers':>8} {'wall s':>8} {'s/sightline':>12} {'peak MB/worker':>15} "
+          f"{'rows ok':>8}")
+    for w, r in ((1, r1), (2, r2)):
+        print(f"{w:>8} {r['wall']:>8.1f} {r['wall'] / args.sightlines:>12.2f} "
+              f"{r['peak_worker_mb']:>15.0f} {r['ok']:>5}/{r['rows']}")
+    speedup = r1["wall"] / r2["wall"]
+    peak = max(r1["peak_worker_mb"], r2["peak_worker_mb"])
+    print(f"speed-up 2 vs 1 workers: {speedup:.2f}x (target >= 1.8x)  "
+          f"{'MET' if speedup >= 1.8 else 'NOT MET'}")
+    print(f"peak memory per worker: {peak:.0f} MB (target <= 500 MB)  "
+          f"{'MET' if peak <= 500 else 'NOT MET'}")
+
+
+if __name__ == "__main__":
+    main()
