@@ -15,7 +15,8 @@ Output folder layout::
 
 How it stays safe:
 
-* Workers compute into a private temporary folder and send the files back;
+* Workers (local processes forked from a preloaded server, or dask
+  workers) compute into a private temporary folder and send the files back;
   the main process writes them into ``DIR/.work/`` and renames the folder
   into ``DIR/sightlines/`` -- a sightline's folder appears whole or not at
   all.  The sample table is rewritten (temporary file, rename) after every
@@ -123,6 +124,7 @@ def fit_task(task):
             result = run_sightline(cfg, tmp, mcmc=task["mcmc"], plots=task["plots"],
                                    steps=task["steps"], quiet=True, command="batch",
                                    keep_samples=True, figures=task["figures"],
+                                   checkpoints=False,
                                    warn=lambda m: seen.append(
                                        "warning: " + (str(m).splitlines() or [""])[0]))
             row = sightline_row(result, task["name"], seen)
@@ -215,6 +217,24 @@ def _sigterm_raises():
         signal.signal(signal.SIGTERM, old)
 
 
+#: Modules imported once in the fork server, so that workers start without
+#: importing them again (spawn would pay that in every worker).
+_PRELOAD = ["edgefit.analysis.batch", "edgefit.analysis.pipeline", "edgefit.inference",
+            "edgefit.models", "edgefit.data"]
+
+
+def _pool_context():
+    """A 'forkserver' context with edgefit preloaded where the platform has
+    one (workers fork from a clean single-threaded server), else 'spawn'."""
+    from multiprocessing import get_all_start_methods, get_context
+
+    if "forkserver" in get_all_start_methods():
+        ctx = get_context("forkserver")
+        ctx.set_forkserver_preload(_PRELOAD)
+        return ctx
+    return get_context("spawn")
+
+
 @contextmanager
 def _signals_deferred():
     """SIGINT/SIGTERM arriving inside are delivered on leaving (POSIX)."""
@@ -231,10 +251,9 @@ def _signals_deferred():
 
 def _run_pool(tasks, workers, on_result):
     from concurrent.futures import ProcessPoolExecutor, as_completed
-    from multiprocessing import get_context
 
-    with _single_threaded_workers(workers > 1):
-        ex = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
+    with _single_threaded_workers(True):
+        ex = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(),
                                  initializer=_worker_init)
         try:
             futures = {ex.submit(fit_task, t): t for t in tasks}

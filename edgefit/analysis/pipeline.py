@@ -52,7 +52,8 @@ def read_samples(folder):
 
 
 def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=False,
-                  command="fit", keep_samples=False, warn=None, figures=None):
+                  command="fit", keep_samples=False, warn=None, figures=None,
+                  checkpoints=True):
     """Run every step a sightline configuration asks for and write the
     results; returns the :class:`~edgefit.inference.FitResult`.
 
@@ -77,6 +78,10 @@ def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=
         ``figures(result, folder, plot_settings)`` draws the figures (e.g.
         :func:`edgefit.plotting.fit_plots.save_configured`); without it no
         figures are drawn.
+    checkpoints : bool
+        Rewrite the output after every step (default).  False writes once
+        at the end, or when a step fails -- for callers that keep the
+        folder only when the run ends anyway (``edgefit batch`` workers).
 
     A failing step records ``failed_<step>`` in the result's meta, writes
     what exists and raises (an EdgefitError naming the file and the step's
@@ -132,8 +137,9 @@ def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=
         if keep_samples:
             write_samples(result, out_dir)
 
-    write()
-    say(f"best fit written to {out_dir}")
+    if checkpoints:
+        write()
+        say(f"best fit written to {out_dir}")
 
     def stage(label, func):
         try:
@@ -150,13 +156,16 @@ def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=
             if isinstance(exc, EdgefitError):
                 raise
             raise cfg.error(label, f"{type(exc).__name__}: {exc}") from exc
-        write()
+        if checkpoints:
+            write()
 
     prof = cfg.errors.profile
     if prof:
         names = result.free_names if prof == "all" else list(prof)
         for n in names:
             if n not in result.free_names:
+                if not checkpoints:
+                    write()   # the best fit survives
                 raise cfg.error("errors.profile", f"{n!r} is not a free parameter "
                                 f"(free: {result.free_names})")
         say(f"profiling {len(names)} parameter(s) ...")
@@ -186,6 +195,8 @@ def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=
     pl = cfg.plots
     if pl.enabled and plots and figures is not None:
         stage("plots", lambda: figures(result, out_dir, pl))
+    if not checkpoints:
+        write()
     say(result.summary())
     say(f"results in {out_dir}")
     return result
