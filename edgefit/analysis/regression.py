@@ -37,7 +37,12 @@ and possibly upper limits, in three ways:
    maximum-a-posteriori start from several points; the chain is extended
    until it is at least 50 autocorrelation times long (or ``max_steps``).
    Internally x and y are centred and scaled to order one; results are
-   given in the table's units.  The recovery test in the suite and
+   given in the table's units.  Limitation: when the x errors are as large
+   as the spread of the x values, the width of the true-x distribution can
+   shrink towards zero and the slope is then barely identified (it is only
+   held by the bound |slope| < 1000 in scaled units); the chain becomes
+   very slow to mix and a ShortChainWarning says so.  The intervals of such
+   a fit should not be trusted.  The recovery test in the suite and
    ``benchmarks/validate_regression.py`` (68 % coverage over repeats) show
    that this variant recovers known lines with censored points.
 
