@@ -11,6 +11,11 @@
    hyper-parameter's truth, with the 99 % binomial band around 0.6827.
 
 Run: ``python benchmarks/bench_population.py [--repeats N] [--no-timing]``.
+
+Last run (2-core machine shared with other jobs): 29 s for 50 x 2,000;
+coverage over 100 repeats 0.670 (c0), 0.790 (c1), 0.570 (s), band
+[0.560, 0.800] -- inside, but s (flat prior, equal-tailed interval of a
+skewed posterior) sits at the low edge and c1 at the high one.
 """
 from __future__ import annotations
 
