@@ -241,6 +241,8 @@ def build_model(model_table, path=None):
             raise ConfigError(path, f"{key}.type: unknown component type {ctype!r}; known: "
                                     f"{sorted(COMPONENTS)}")
         cls = COMPONENTS[ctype]
+        if not isinstance(spec.get("options") or {}, dict):
+            raise ConfigError(path, f"{key}.options: must be a table")
         options = {k: _plain_value(v, path, f"{key}.options.{k}")
                    for k, v in (spec.get("options") or {}).items()}
         params = spec.get("params") or {}

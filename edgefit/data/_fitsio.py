@@ -7,17 +7,19 @@ message.
 """
 from __future__ import annotations
 
+import functools
 import os
 import warnings
 
 import numpy as np
 from astropy.io import fits
 
-from ..errors import (BadUnitError, InputFileError, InputWarning, MissingColumnError,
+from ..errors import (BadUnitError, EdgefitError, InputFileError, InputWarning, MissingColumnError,
                       MissingExtensionError, MissingFileError, NotFITSError,
                       TruncatedFileError)
 
-__all__ = ["open_fits", "find_hdu", "Table"]
+__all__ = ["open_fits", "find_hdu", "Table", "to_float_array", "to_int_array", "to_float",
+           "file_errors"]
 
 _FITS_BLOCK = 2880
 
@@ -62,22 +64,29 @@ def open_fits(path):
             raise TruncatedFileError(path, f"file is only {size} bytes, shorter than one "
                                            "FITS header block (2880 bytes)")
         raise NotFITSError(path, "not a FITS file (it does not start with a SIMPLE card)")
+    hdul = None
     try:
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), open(path, "rb") as fh:
             warnings.simplefilter("ignore")  # astropy's own truncation warnings: we check
-            hdul = fits.open(path, memmap=False, lazy_load_hdus=False)
+            hdul = fits.open(fh, memmap=False, lazy_load_hdus=False)
             for i, hdu in enumerate(hdul):
                 info = hdul.fileinfo(i)
                 if info["datLoc"] + _data_bytes(hdu.header) > size:
                     raise TruncatedFileError(
                         path, f"file is truncated: HDU {i} ({hdu.name or 'PRIMARY'}) needs "
                               f"{info['datLoc'] + _data_bytes(hdu.header)} bytes, file has {size}")
-                if hdu.data is not None and isinstance(hdu, fits.BinTableHDU):
+                if isinstance(hdu, fits.BinTableHDU) and hdu.data is not None:
                     _ = hdu.data[:0]  # touch the table so that errors surface here
+                    _ = hdu.columns.names
             hdul.close()
     except InputFileError:
+        if hdul is not None:
+            hdul.close()
         raise
-    except (OSError, ValueError, TypeError, IndexError, KeyError) as exc:
+    except (OSError, ValueError, TypeError, IndexError, KeyError, AttributeError,
+            fits.VerifyError) as exc:
+        if hdul is not None:
+            hdul.close()
         raise TruncatedFileError(path, f"cannot read the FITS structure ({exc}); the file "
                                        "is probably truncated or corrupt") from exc
     return hdul
@@ -162,7 +171,7 @@ class Table:
         if idx is None:
             return default
         val = self.header.get(f"TLMIN{idx}")
-        return default if val is None else int(val)
+        return default if val is None else int(to_int_array(val, self.path, f"TLMIN{idx}"))
 
     def tunit(self, name):
         idx = self._index.get(name.upper())
@@ -217,7 +226,47 @@ def energy_scale(unit: str, path=None, column: str = "energy column") -> float:
 
 
 def to_float_array(values, path, what) -> np.ndarray:
+    """``values`` as floats, or InputFileError naming ``path`` and ``what``."""
     try:
         return np.asarray(values, dtype=float)
-    except (TypeError, ValueError) as exc:
+    except (TypeError, ValueError, OverflowError) as exc:
         raise InputFileError(path, f"{what} is not numeric ({exc})") from exc
+
+
+def to_int_array(values, path, what) -> np.ndarray:
+    """``values`` as 64-bit integers (whole, finite numbers only), or
+    InputFileError naming ``path`` and ``what``."""
+    arr = to_float_array(values, path, what)
+    if not np.all(np.isfinite(arr)) or np.any(arr != np.round(arr)) or \
+            np.any(np.abs(arr) >= 2.0 ** 62):
+        raise InputFileError(path, f"{what} must hold whole numbers")
+    return arr.astype(np.int64)
+
+
+def to_float(value, path, what) -> float:
+    """One number from a keyword or a one-element column cell."""
+    arr = to_float_array(value, path, what)
+    if arr.size != 1:
+        raise InputFileError(path, f"{what} must be one number, not {arr.size}")
+    return float(arr.reshape(()))
+
+
+def file_errors(reader):
+    """Decorator for a public reader whose first argument is the file: a
+    ValueError, TypeError, IndexError, KeyError, OverflowError or astropy
+    VerifyError that no specific check turned into an edgefit error (some
+    corruption nobody foresaw) becomes an :class:`InputFileError` naming
+    the file, so that bad files never end in a traceback.  The specific
+    checks come first and give the better messages."""
+    @functools.wraps(reader)
+    def wrapper(path, *args, **kwargs):
+        try:
+            return reader(path, *args, **kwargs)
+        except EdgefitError:
+            raise
+        except (ValueError, TypeError, IndexError, KeyError, OverflowError,
+                fits.VerifyError) as exc:
+            raise InputFileError(path, f"cannot read the file ({type(exc).__name__}: "
+                                       f"{exc})") from exc
+    return wrapper
+

@@ -8,6 +8,7 @@ blank lines are skipped, and any problem raises
 """
 from __future__ import annotations
 
+import math
 import os
 
 import numpy as np
@@ -38,7 +39,7 @@ def read_text_columns(path, columns=(0, 1), what="numbers") -> np.ndarray:
     ------
     InputFileError
         The file cannot be read as text, a line lacks a column or holds
-        something that is not a number, or there are no data rows.
+        something that is not a finite number, or there are no data rows.
     """
     path = os.fspath(path)
     columns = tuple(int(c) for c in columns)
@@ -51,11 +52,15 @@ def read_text_columns(path, columns=(0, 1), what="numbers") -> np.ndarray:
                     continue
                 parts = text.replace(",", " ").split()
                 try:
-                    rows.append([float(parts[c]) for c in columns])
+                    row = [float(parts[c]) for c in columns]
                 except (IndexError, ValueError):
                     cols = ", ".join(str(c + 1) for c in columns)
                     raise InputFileError(path, f"line {lineno}: expected {what} in column(s) "
                                          f"{cols}, got {text[:60]!r}") from None
+                if not all(math.isfinite(v) for v in row):
+                    raise InputFileError(path, f"line {lineno}: {what} must be finite "
+                                         f"numbers, got {text[:60]!r}")
+                rows.append(row)
     except UnicodeDecodeError:
         raise InputFileError(path, "not a plain-text table") from None
     if not rows:

@@ -240,6 +240,8 @@ class TabulatedSizes(SizeDistribution):
         n = np.asarray(n, dtype=float)
         if a.ndim != 1 or a.shape != n.shape or a.size < 2:
             raise PhysicsDataError(f"{source}: size table needs >= 2 (a, n) pairs")
+        if not np.all(np.isfinite(a)):
+            raise PhysicsDataError(f"{source}: sizes must be finite")
         order = np.argsort(a)
         a, n = a[order], n[order]
         if np.any(np.diff(a) <= 0) or np.any(a <= 0) or np.any(n <= 0) or \

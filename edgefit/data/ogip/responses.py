@@ -10,7 +10,7 @@ import scipy.sparse as sp
 
 from ...errors import (BadGridError, ChannelMismatchError, GridMismatchError, InputFileError,
                        InputWarning, MissingColumnError)
-from .._fitsio import Table, find_hdu, open_fits, to_float_array
+from .._fitsio import Table, file_errors, find_hdu, open_fits, to_float_array, to_int_array
 from ..response import Response
 
 __all__ = ["read_arf", "read_rmf", "read_ebounds", "read_response", "ArfData",
@@ -97,6 +97,7 @@ def _check_channel_bounds(e_min, e_max, path):
 
 # ----------------------------------------------------------------------
 # ARF, EBOUNDS, RMF
+@file_errors
 def read_arf(path) -> ArfData:
     """Read an ARF (SPECRESP extension).
 
@@ -140,7 +141,10 @@ def _read_ebounds_hdu(hdul, path) -> EboundsData:
     e_min = to_float_array(t.column("E_MIN"), path, "E_MIN") * scale
     e_max = to_float_array(t.column("E_MAX"), path, "E_MAX") * t.energy_scale("E_MAX")
     if t.has_column("CHANNEL"):
-        chans = np.asarray(t.column("CHANNEL"), dtype=int)
+        chans = to_int_array(t.column("CHANNEL"), path, "EBOUNDS CHANNEL").reshape(-1)
+        if chans.size != e_min.size:
+            raise InputFileError(path, f"EBOUNDS has {chans.size} CHANNEL values but "
+                                       f"{e_min.size} E_MIN values")
     else:
         chans = np.arange(e_min.size) + t.tlmin("CHANNEL", 1)
     _warn_detchans(t, e_min.size, path)
@@ -148,6 +152,7 @@ def _read_ebounds_hdu(hdul, path) -> EboundsData:
     return EboundsData(chans, e_min, e_max, path=os.fspath(path))
 
 
+@file_errors
 def read_ebounds(path) -> EboundsData:
     """Channel energy bounds (keV) from the EBOUNDS extension of an RMF."""
     return _read_ebounds_hdu(open_fits(path), path)
@@ -197,7 +202,9 @@ def _read_matrix_hdu(hdu, path, n_chan_hint=None, chan_offset_hint=None):
                                 * t.energy_scale("ENERG_HI"),
                                 path, "RMF")
     n_en = lo.size
-    n_grp = np.asarray(t.column("N_GRP"), dtype=np.int64).reshape(-1)
+    n_grp = to_int_array(t.column("N_GRP"), path, "N_GRP").reshape(-1)
+    if n_grp.size != n_en:
+        raise InputFileError(path, f"N_GRP has {n_grp.size} values for {n_en} energy bins")
     f_chan = _ragged(t.column("F_CHAN"), n_en, path, "F_CHAN")
     n_chan = _ragged(t.column("N_CHAN"), n_en, path, "N_CHAN")
     matrix = _ragged(t.column("MATRIX"), n_en, path, "MATRIX")
@@ -207,17 +214,19 @@ def _read_matrix_hdu(hdu, path, n_chan_hint=None, chan_offset_hint=None):
     detchans = t.keyword("DETCHANS", n_chan_hint)
     if detchans is None:
         raise MissingColumnError(path, "MATRIX extension has no DETCHANS keyword")
-    detchans = int(detchans)
+    detchans = int(to_int_array(detchans, path, "DETCHANS").reshape(-1)[0])
+    if detchans <= 0:
+        raise InputFileError(path, f"DETCHANS = {detchans}; it must be positive")
     if n_chan_hint is not None and detchans != n_chan_hint:
         raise ChannelMismatchError(path, f"DETCHANS = {detchans} in MATRIX but EBOUNDS has "
                                          f"{n_chan_hint} channels")
-    g_first = _take_prefix(f_chan, n_grp, path, "F_CHAN").astype(np.int64)
-    g_n = _take_prefix(n_chan, n_grp, path, "N_CHAN").astype(np.int64)
+    g_first = to_int_array(_take_prefix(f_chan, n_grp, path, "F_CHAN"), path, "F_CHAN")
+    g_n = to_int_array(_take_prefix(n_chan, n_grp, path, "N_CHAN"), path, "N_CHAN")
     g_row = np.repeat(np.arange(n_en), n_grp)
     if np.any(g_n < 0):
         raise InputFileError(path, "N_CHAN has negative entries")
     row_len = np.bincount(g_row, weights=g_n, minlength=n_en).astype(np.int64)
-    vals = _take_prefix(matrix, row_len, path, "MATRIX").astype(float)
+    vals = to_float_array(_take_prefix(matrix, row_len, path, "MATRIX"), path, "MATRIX")
     total = int(g_n.sum())
     start = np.cumsum(g_n) - g_n
     chan_idx = (np.arange(total) - np.repeat(start, g_n) + np.repeat(g_first - first, g_n))
@@ -233,6 +242,7 @@ def _read_matrix_hdu(hdu, path, n_chan_hint=None, chan_offset_hint=None):
     return lo, hi, mat, first, t
 
 
+@file_errors
 def read_rmf(path, arf=None) -> Response:
     """Read an RMF (or a full RSP) and, optionally, multiply in an ARF.
 

@@ -12,7 +12,8 @@ import numpy as np
 from ...errors import (BadChannelsError, BadCountsError, BadExposureError, BadScalingError,
                        ChannelMismatchError, InputFileError, InputWarning, MissingColumnError,
                        MissingRowError)
-from .._fitsio import Table, as_str, find_hdu, open_fits, to_float_array
+from .._fitsio import (Table, as_str, file_errors, find_hdu, open_fits, to_float,
+                       to_float_array, to_int_array)
 from ..spectrum import Spectrum
 from .responses import _warn_detchans, read_response
 
@@ -51,7 +52,7 @@ def _row_label(value):
 
 def _per_channel(value, n, path, name, row):
     """Scalar -> float; array of length n -> array; anything else an error."""
-    arr = np.asarray(value, dtype=float)
+    arr = to_float_array(value, path, name)
     if arr.ndim == 0:
         return float(arr)
     if arr.size == 1:
@@ -60,6 +61,17 @@ def _per_channel(value, n, path, name, row):
         raise InputFileError(path, f"{name} has {arr.size} values but the spectrum "
                                    f"{'row ' + str(row) + ' ' if row is not None else ''}"
                                    f"has {n} channels")
+    return arr
+
+
+def _per_channel_int(value, n, path, name, where=""):
+    """One whole number, or one per channel, as an int array of length n."""
+    arr = to_int_array(value, path, name)
+    if arr.size == 1:
+        return np.full(n, int(arr.reshape(-1)[0]), dtype=np.int64)
+    if arr.shape != (n,):
+        raise InputFileError(path, f"{name} has {arr.size} values but the spectrum has "
+                                   f"{n} channels{where}")
     return arr
 
 
@@ -99,7 +111,7 @@ def _spectrum_from_row(t: Table, path, row, type2):
     exposure = t.get("EXPOSURE", r)
     if exposure is None:
         raise BadExposureError(path, f"no EXPOSURE keyword or column{where}")
-    exposure = float(exposure)
+    exposure = to_float(exposure, path, f"EXPOSURE{where}")
     if not np.isfinite(exposure) or exposure <= 0:
         raise BadExposureError(path, f"EXPOSURE = {exposure}{where}; it must be a positive "
                                      "number of seconds")
@@ -137,10 +149,10 @@ def _spectrum_from_row(t: Table, path, row, type2):
         if np.ndim(stat_err) == 0:
             stat_err = np.full(n, float(stat_err))
     quality = t.get("QUALITY", r, default=0)
-    quality = np.broadcast_to(np.asarray(quality, dtype=int), (n,)).copy()
+    quality = _per_channel_int(quality, n, path, "QUALITY", where)
     grouping = t.get("GROUPING", r)
     if grouping is not None:
-        grouping = np.broadcast_to(np.asarray(grouping, dtype=int), (n,)).copy()
+        grouping = _per_channel_int(grouping, n, path, "GROUPING", where)
         if np.all(grouping == 0):
             grouping = None
     backscal = _per_channel(t.get("BACKSCAL", r, default=1.0), n, path, "BACKSCAL", row)
@@ -212,10 +224,7 @@ def _two_sided_background(t, path, row, n, exposure, channels, order=None):
         s = t.get(key, row)
         if s is None:
             raise MissingColumnError(path, f"{col} is present but its area scaling {key} is not")
-        s = np.asarray(s, dtype=float)
-        if s.ndim and s.size != 1:
-            raise InputFileError(path, f"{key} must be one number per row")
-        scal += float(s.reshape(()))
+        scal += to_float(s, path, key)
     return Spectrum(counts=total, exposure=exposure, channels=channels, backscal=scal,
                     meta={"path": os.fspath(path), "row": row, "kind": "BACKGROUND_UP+DOWN"})
 
@@ -379,6 +388,7 @@ def _read_type1(t: Table, path, row, order, arm, attach):
     return _attach_companions(spec, path, None, order, arm, attach)
 
 
+@file_errors
 def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spectrum]:
     """Every spectrum in a PHA file: one for type I, one per row for type II
     (optionally only the rows matching ``row``/``order``/``arm``).
@@ -404,6 +414,7 @@ def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spe
     return out
 
 
+@file_errors
 def read_pha(path, row=None, order=None, arm=None, attach=True) -> Spectrum:
     """Read one spectrum from a PHA type I or type II file.
 
@@ -456,6 +467,7 @@ def _read_one(path, row, order, arm, attach):
     return _attach_companions(s, path, rows[0], s.meta["order"], s.meta["arm"], attach)
 
 
+@file_errors
 def load_spectrum(pha, rmf=None, arf=None, background=None, row=None, order=None, arm=None):
     """A spectrum with its response and background, from explicit files or
     from the names in the PHA header.
