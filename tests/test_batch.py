@@ -280,3 +280,24 @@ def test_sigint_then_resume_equals_uninterrupted_run(tmp_path):
     assert list(resumed["name"]) == [f"SIM-B{i:02d}" for i in range(1, 9)]
     rows = [json.loads(p.read_text()) for p in sorted((out / "sightlines").glob("*/row.json"))]
     assert len(rows) == 8 and len({r["name"] for r in rows}) == 8
+
+
+def test_sigterm_keeps_finished_and_says_how_to_resume(tmp_path):
+    m = write_sample(tmp_path, n=3, **FAST)
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-c", "import sys; from edgefit.cli import main; "
+           "sys.exit(main(sys.argv[1:]))", "batch", str(m), "-o", str(out), "--workers", "0",
+           "--no-plots", "-q"]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.time() + 300
+    while _count_finished(out) < 1 and proc.poll() is None and time.time() < deadline:
+        time.sleep(0.05)
+    assert proc.poll() is None, "the batch ended before it could be stopped"
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 128 + signal.SIGTERM, err
+    done = _count_finished(out)
+    msg = err.strip().splitlines()[-1]
+    assert f"interrupted: {done} of 3 sightlines finished" in msg
+    assert f"edgefit batch {m} -o {out}" in msg and "--no-plots" in msg
+    assert not (out / ".work").exists() and len(read_sample_table(out)) == done
