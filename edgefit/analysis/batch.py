@@ -135,7 +135,20 @@ def fit_task(task):
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     row["input_hash"] = task["hash"]
-    return {"name": task["name"], "folder": task["folder"], "row": row, "files": files}
+    return {"name": task["name"], "folder": task["folder"], "row": row, "files": files,
+            "worker": _worker_usage()}
+
+
+def _worker_usage():
+    """This process's id, peak resident memory (MB) and CPU seconds so far."""
+    try:
+        import resource
+    except ImportError:   # not on every platform
+        return {"pid": os.getpid()}
+    r = resource.getrusage(resource.RUSAGE_SELF)
+    peak_bytes = r.ru_maxrss * (1 if sys.platform == "darwin" else 1024)  # KiB on Linux
+    return {"pid": os.getpid(), "peak_mb": peak_bytes / 2**20,
+            "cpu_s": r.ru_utime + r.ru_stime}
 
 
 # ---------------------------------------------------------------------------
@@ -316,7 +329,7 @@ def _run_dask(tasks, scheduler, on_result):
 
 def run_batch(manifest, output=None, *, workers=None, scheduler=None, fresh=False,
               only=None, mcmc=True, plots=True, steps=None, figures=None, progress=True,
-              resume_hint=None):
+              resume_hint=None, usage=None):
     """Fit the sightlines of a manifest and return the sample table.
 
     Parameters
@@ -342,6 +355,10 @@ def run_batch(manifest, output=None, *, workers=None, scheduler=None, fresh=Fals
         :func:`edgefit.plotting.fit_plots.save_configured`); none by default.
     progress : bool
         A tqdm bar (on stderr) counting sightlines done and failed.
+    usage : dict, optional
+        Filled with ``{worker pid: {"peak_mb": ..., "cpu_s": ...}}`` (peak
+        resident memory and CPU seconds of each worker process, as last
+        reported) -- for benchmarks.
 
     Returns
     -------
@@ -401,6 +418,9 @@ def run_batch(manifest, output=None, *, workers=None, scheduler=None, fresh=Fals
             records[res["name"]] = res["row"]
             table = write_table()
         counts["failed" if res["row"]["status"] == "failed" else "done"] += 1
+        if usage is not None and res.get("worker"):
+            w = dict(res["worker"])
+            usage[w.pop("pid")] = w
         bar.set_postfix(counts, refresh=False)
         bar.update(1)
 
