@@ -283,7 +283,7 @@ def test_sigint_then_resume_equals_uninterrupted_run(tmp_path):
 
 
 def test_sigterm_keeps_finished_and_says_how_to_resume(tmp_path):
-    m = write_sample(tmp_path, n=3, **FAST)
+    m = write_sample(tmp_path, n=6, **FAST)
     out = tmp_path / "out"
     cmd = [sys.executable, "-c", "import sys; from edgefit.cli import main; "
            "sys.exit(main(sys.argv[1:]))", "batch", str(m), "-o", str(out), "--workers", "0",
@@ -298,6 +298,6 @@ def test_sigterm_keeps_finished_and_says_how_to_resume(tmp_path):
     assert proc.returncode == 128 + signal.SIGTERM, err
     done = _count_finished(out)
     msg = err.strip().splitlines()[-1]
-    assert f"interrupted: {done} of 3 sightlines finished" in msg
+    assert f"interrupted: {done} of 6 sightlines finished" in msg
     assert f"edgefit batch {m} -o {out}" in msg and "--no-plots" in msg
     assert not (out / ".work").exists() and len(read_sample_table(out)) == done
