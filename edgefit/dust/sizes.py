@@ -43,9 +43,11 @@ from scipy.interpolate import CubicSpline
 from .. import _jit
 from .._units import to_value
 from ..errors import PhysicsDataError
+from ..params import Param
 
 __all__ = ["SizeDistribution", "PowerLaw", "SingleSize", "LogNormal", "CutoffPowerLaw",
-           "TabulatedSizes", "MRN", "FAMILIES", "make_distribution", "SizeGrid",
+           "TabulatedSizes", "MRN", "FAMILIES", "register_family", "make_distribution",
+           "SizeGrid",
            "as_um", "grain_column", "dust_mass_column", "mean_atoms_per_grain",
            "read_size_table"]
 
@@ -58,19 +60,49 @@ def as_um(value, name="size"):
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(6)
 
 
+#: Registered size-distribution families by name (filled as the classes
+#: below, and any user subclass with a ``family``, are defined).
+FAMILIES: dict[str, type["SizeDistribution"]] = {}
+
+
+def register_family(cls):
+    """Add a size-distribution class to :data:`FAMILIES` under its
+    ``family`` name (done on class creation)."""
+    old = FAMILIES.get(cls.family)
+    if old is not None and old is not cls and (old.__module__, old.__qualname__) != (
+            cls.__module__, cls.__qualname__):
+        raise PhysicsDataError(f"size-distribution family {cls.family!r} is taken by "
+                               f"{old.__module__}.{old.__qualname__}")
+    FAMILIES[cls.family] = cls
+    return cls
+
+
 class SizeDistribution:
     """Base class: subclasses define ``family``, ``PARAMS`` and :meth:`shape`.
 
-    ``PARAMS`` is a tuple of (name, default, min, max, unit, description,
-    vary) used by the dust component to declare fit parameters.
+    ``PARAMS`` is a tuple of :class:`~edgefit.params.Param` declarations
+    (name, default, bounds, unit, description, free by default), the same
+    type components use: :class:`~edgefit.models.dust.DustEdge` makes them
+    fit parameters.  A subclass with a ``family`` name registers itself in
+    :data:`FAMILIES` when it is defined (``register = False`` opts out, as
+    :class:`TabulatedSizes` does); defining a class of the same name and
+    module again (a notebook cell run twice) replaces the old one, another
+    class under a taken name is refused.
     """
 
     family: ClassVar[str] = ""
-    PARAMS: ClassVar[tuple] = ()
+    PARAMS: ClassVar[tuple[Param, ...]] = ()
+    register: ClassVar[bool] = True
+
+    def __init_subclass__(cls, **kw):
+        super().__init_subclass__(**kw)
+        cls.PARAMS = tuple(p if isinstance(p, Param) else Param(*p) for p in cls.PARAMS)
+        if cls.family and cls.__dict__.get("register", True):
+            register_family(cls)
 
     def __init__(self, **values):
-        names = [p[0] for p in self.PARAMS]
-        vals = {p[0]: p[1] for p in self.PARAMS}
+        names = [p.name for p in self.PARAMS]
+        vals = {p.name: p.default for p in self.PARAMS}
         for k, v in values.items():
             if k not in names:
                 raise PhysicsDataError(f"{self.family} size distribution has no parameter "
@@ -83,7 +115,7 @@ class SizeDistribution:
         self._check()
 
     def _is_size(self, name):
-        return next(p for p in self.PARAMS if p[0] == name)[4] == "um"
+        return next(p for p in self.PARAMS if p.name == name).unit == "um"
 
     def _check(self):
         lo, hi = self.support()
@@ -142,8 +174,8 @@ class SizeDistribution:
         return f"{type(self).__name__}({vals})"
 
 
-_AMIN = ("amin", 0.005, 0.001, 1.0, "um", "smallest grain radius", False)
-_AMAX = ("amax", 0.25, 0.006, 5.0, "um", "largest grain radius", True)
+_AMIN = Param("amin", 0.005, 0.001, 1.0, "um", "smallest grain radius", False)
+_AMAX = Param("amax", 0.25, 0.006, 5.0, "um", "largest grain radius", True)
 
 
 class PowerLaw(SizeDistribution):
@@ -151,7 +183,7 @@ class PowerLaw(SizeDistribution):
 
     family = "power_law"
     PARAMS = (_AMIN, _AMAX,
-              ("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False))
+              Param("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False))
 
     def __init__(self, index=3.5, amin=0.005, amax=0.25):
         super().__init__(index=index, amin=amin, amax=amax)
@@ -169,7 +201,7 @@ class SingleSize(SizeDistribution):
     """All grains have radius ``size`` (µm)."""
 
     family = "single"
-    PARAMS = (("size", 0.1, 0.001, 5.0, "um", "grain radius", True),)
+    PARAMS = (Param("size", 0.1, 0.001, 5.0, "um", "grain radius", True),)
 
     def __init__(self, size=0.1):
         super().__init__(size=size)
@@ -193,10 +225,10 @@ class LogNormal(SizeDistribution):
     """n(a) ∝ a^-1 exp(−ln²(a/a0) / (2 w²)) on [amin, amax]."""
 
     family = "lognormal"
-    PARAMS = (("center", 0.1, 0.002, 3.0, "um", "median radius a0", True),
-              ("width", 0.4, 0.05, 2.0, "", "width w in ln a", False),
-              ("amin", 0.001, 0.001, 1.0, "um", "smallest grain radius", False),
-              ("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
+    PARAMS = (Param("center", 0.1, 0.002, 3.0, "um", "median radius a0", True),
+              Param("width", 0.4, 0.05, 2.0, "", "width w in ln a", False),
+              Param("amin", 0.001, 0.001, 1.0, "um", "smallest grain radius", False),
+              Param("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
 
     def __init__(self, center=0.1, width=0.4, amin=0.001, amax=5.0):
         super().__init__(center=center, width=width, amin=amin, amax=amax)
@@ -213,10 +245,10 @@ class CutoffPowerLaw(SizeDistribution):
 
     family = "cutoff"
     PARAMS = (_AMIN,
-              ("index", 3.5, 1.0, 6.0, "", "power-law index q", False),
-              ("atrans", 0.2, 0.005, 3.0, "um", "transition radius a_t", False),
-              ("acut", 0.1, 0.005, 3.0, "um", "cut-off scale a_c", True),
-              ("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
+              Param("index", 3.5, 1.0, 6.0, "", "power-law index q", False),
+              Param("atrans", 0.2, 0.005, 3.0, "um", "transition radius a_t", False),
+              Param("acut", 0.1, 0.005, 3.0, "um", "cut-off scale a_c", True),
+              Param("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
 
     def __init__(self, index=3.5, amin=0.005, atrans=0.2, acut=0.1, amax=5.0):
         super().__init__(index=index, amin=amin, atrans=atrans, acut=acut, amax=amax)
@@ -234,6 +266,7 @@ class TabulatedSizes(SizeDistribution):
 
     family = "table"
     PARAMS = ()
+    register = False
 
     def __init__(self, a_um, n, source="<memory>"):
         a = np.asarray(as_um(a_um, "size"), dtype=float)
@@ -279,8 +312,6 @@ def read_size_table(path):
         raise InputFileError(path, str(exc).replace(f"{path}: ", "")) from None
 
 
-FAMILIES: dict[str, type[SizeDistribution]] = {
-    c.family: c for c in (PowerLaw, SingleSize, LogNormal, CutoffPowerLaw)}
 
 
 def make_distribution(family: str, **values) -> SizeDistribution:

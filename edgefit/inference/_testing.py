@@ -15,6 +15,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..models.base import MULTIPLICATIVE, Component, Param
+from ..physics.atomic import EDGE_OFFSET_KEV
 
 __all__ = ["toy_response", "ToyEdgeAbsorber", "toy_model", "TOY_TRUTH", "simulate_counts"]
 
@@ -61,6 +62,10 @@ class ToyEdgeAbsorber(Component):
 
     def _evaluate(self, grid, pre, tau0, step):
         return np.exp(-self.optical_depth(grid.mid, tau0=tau0, step=step))
+
+    def reference_energy(self):
+        """Just above the edge (edge + 20 eV, atomic.EDGE_OFFSET_KEV)."""
+        return self.edge_kev + EDGE_OFFSET_KEV
 
     def derived(self, **values):
         v = self._merged(values)

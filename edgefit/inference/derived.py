@@ -9,19 +9,18 @@ each component of the model:
 * ``<component>_tau``: the optical depth of every multiplicative
   component that defines ``optical_depth(energy_kev, **values)``, at a
   reference energy.  The reference is, in order: a value given by the
-  caller (one energy for all, or per component name); the component's
-  ``reference_energy_kev`` attribute; its ``edge_energy_kev`` /
-  ``edge_kev`` attribute or ``edge_energy()`` method plus
-  :data:`~edgefit.physics.atomic.EDGE_OFFSET_KEV` (20 eV), i.e. just above
-  the edge by the same rule as the components' ``tau_above``.  Components
-  with none of these are skipped.
+  caller (one energy for all, or per component name), else the
+  component's :meth:`~edgefit.models.base.Component.reference_energy`
+  (for edges: just above the edge, 20 eV, the same rule as their
+  ``tau_above``).  Components with neither are skipped.
 * ``<component>_<key>``: every entry of the component's
   ``derived(**values)`` dict (e.g. element column, grain column density,
   dust mass column, self-shielding ratio, N_H), with the unit it states.
 * ``depletion_<element>`` = N_dust / (N_gas + N_dust) for every element
   that has both a gas-phase and a dust component.  A component takes part
-  when its class declares ``phase = "gas"`` or ``phase = "dust"`` and an
-  ``element`` (e.g. "Si"), and its ``derived`` dict has an element column
+  when it declares (:class:`~edgefit.models.base.Component` attributes)
+  ``phase = "gas"`` or ``phase = "dust"`` and an ``element`` (e.g. "Si"),
+  and its ``derived`` dict has an element column
   in cm^-2 under :data:`~edgefit.models.base.COLUMN_KEY` (``col_cm2``); several components of one
   phase add up.  No name is guessed: a component without ``phase`` never
   enters a depletion.
@@ -34,7 +33,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..models.base import ADDITIVE, COLUMN_KEY
-from ..physics.atomic import EDGE_OFFSET_KEV
 from ..stats import ONE_SIGMA
 
 __all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "COLUMN_KEY",
@@ -117,9 +115,8 @@ PHASES = ("gas", "dust")
 
 
 def _phase(comp):
-    """'gas', 'dust' or None, from the component class's ``phase`` attribute."""
-    phase = getattr(comp, "phase", None)
-    return phase if phase in PHASES else None
+    """'gas', 'dust' or None, from the component's declared ``phase``."""
+    return comp.phase if comp.phase in PHASES else None
 
 
 def _reference_energy(comp, reference_energy):
@@ -128,20 +125,8 @@ def _reference_energy(comp, reference_energy):
             return float(reference_energy[comp.name])
     elif reference_energy is not None:
         return float(reference_energy)
-    for attr in ("reference_energy_kev",):
-        val = getattr(comp, attr, None)
-        if val is not None:
-            return float(val)
-    for attr in ("edge_energy_kev", "edge_kev", "edge_energy"):
-        val = getattr(comp, attr, None)
-        if callable(val):
-            try:
-                val = val()
-            except TypeError:
-                val = None
-        if val is not None:
-            return float(val) + EDGE_OFFSET_KEV
-    return None
+    ref = comp.reference_energy()
+    return None if ref is None else float(ref)
 
 
 def _evaluate_all(model, values, refs):
@@ -163,7 +148,7 @@ def _evaluate_all(model, values, refs):
             der = comp.derived(**short)
         for key, (val, unit) in der.items():
             out[f"{comp.name}_{key}"] = (float(val), unit, f"{type(comp).__name__}.{key}")
-        element = getattr(comp, "element", None)
+        element = comp.element
         phase = _phase(comp)
         if element and phase and COLUMN_KEY in der:
             columns.setdefault(element, {}).setdefault(phase, 0.0)

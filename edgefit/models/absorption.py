@@ -218,6 +218,10 @@ class GasEdge(Component):
         init.update(values)
         super().__init__(name or f"gas_{self.element.lower()}", fixed=fixed, **init)
 
+    def reference_energy(self) -> float:
+        """Just above the edge: its position plus 20 eV (keV)."""
+        return atomic.edge_bracket(self.edge_kev)[1]
+
     def sigma(self, energy_kev, shift_ev=0.0):
         """sigma_Z(E - shift) in cm^2 per atom (continuum only)."""
         e, scalar = _energies(energy_kev)

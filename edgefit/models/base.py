@@ -27,15 +27,13 @@ Components and models are picklable (no closures, no open files).
 from __future__ import annotations
 
 import keyword
-import math
-from dataclasses import dataclass
 from typing import Any, ClassVar, Mapping
 
 import numpy as np
-from astropy import units as u
 
 from ..errors import ModelError, ParameterClashError, UnknownParameterError
 from ..grid import EnergyGrid
+from ..params import Param
 
 __all__ = ["EnergyGrid", "Param", "ModelNode", "Component", "CompositeModel",
            "CompiledModel", "COMPONENTS", "register_component", "MULTIPLICATIVE",
@@ -52,35 +50,6 @@ COLUMN_KEY = "col_cm2"
 #: Registry of component classes by their ``registry_name``; used by the
 #: generic tests and by the safe configuration-file parser.
 COMPONENTS: dict[str, type["Component"]] = {}
-
-
-@dataclass(frozen=True)
-class Param:
-    """Declaration of one component parameter.
-
-    ``unit`` is the unit the number is expressed in (an astropy unit
-    string, e.g. ``"1e22 cm-2"``, ``"keV"``, ``"um"``; empty for
-    dimensionless).  ``vary`` is whether the parameter is free by default.
-    """
-
-    name: str
-    default: float
-    min: float = -math.inf
-    max: float = math.inf
-    unit: str = ""
-    description: str = ""
-    vary: bool = True
-
-    def convert(self, value, component: str = "") -> float:
-        """A number in this parameter's unit from a number or Quantity."""
-        if isinstance(value, u.Quantity):
-            unit = u.Unit(self.unit) if self.unit else u.dimensionless_unscaled
-            try:
-                return float(value.to_value(unit, equivalencies=u.spectral()))
-            except u.UnitConversionError as exc:
-                raise ModelError(f"{component}.{self.name}: cannot convert {value.unit} "
-                                 f"to {self.unit or 'dimensionless'}") from exc
-        return float(value)
 
 
 def _check_identifier(name: str, what: str):
@@ -184,6 +153,13 @@ class Component(ModelNode):
     params: ClassVar[tuple[Param, ...]] = ()
     default_name: ClassVar[str] = "comp"
     registry_name: ClassVar[str | None] = None
+    #: The element whose column this component carries (e.g. ``"Si"``; set
+    #: per instance by edge components), or None.
+    element: str | None = None
+    #: ``"gas"`` or ``"dust"`` when the component counts that phase of
+    #: :attr:`element` (depletions are formed from such pairs, with the
+    #: column its :meth:`derived` reports under :data:`COLUMN_KEY`), else None.
+    phase: ClassVar[str | None] = None
     #: Maximum number of energy grids whose precomputation is cached.
     cache_size: ClassVar[int] = 32
 
@@ -235,6 +211,13 @@ class Component(ModelNode):
         dust optical depth just above an edge.  Not defined for additive
         components."""
         raise NotImplementedError(f"{type(self).__name__} does not define an optical depth")
+
+    def reference_energy(self) -> float | None:
+        """Energy (keV) at which derived quantities report this component's
+        optical depth unless the caller gives one: for an edge component,
+        just above its edge (:func:`edgefit.physics.atomic.edge_bracket`).
+        None (the default) when the component has no natural energy."""
+        return None
 
     def derived(self, **values) -> dict[str, tuple[float, str]]:
         """Component-specific derived quantities for parameter ``values``
@@ -447,10 +430,16 @@ class CompiledModel:
 
 
 def register_component(cls):
-    """Add a component class to :data:`COMPONENTS` under its registry name."""
+    """Add a component class to :data:`COMPONENTS` under its registry name.
+
+    Defining a class again under the same module and name (a notebook cell
+    run twice, a module reloaded) replaces the old registration; another
+    class under a taken registry name is refused."""
     name = cls.registry_name
-    if name in COMPONENTS and COMPONENTS[name] is not cls:
+    old = COMPONENTS.get(name)
+    if old is not None and old is not cls and (old.__module__, old.__qualname__) != (
+            cls.__module__, cls.__qualname__):
         raise ModelError(f"component registry name {name!r} is taken by "
-                         f"{COMPONENTS[name].__qualname__}")
+                         f"{old.__module__}.{old.__qualname__}")
     COMPONENTS[name] = cls
     return cls

@@ -165,7 +165,7 @@ class DustEdge(Component):
                 raise ModelError(f"unknown size distribution {sizes!r}; have "
                                  f"{', '.join(FAMILIES)} or a TabulatedSizes")
             self.family, self.fixed_distribution = sizes, None
-            dist_params = tuple(Param(*p) for p in FAMILIES[sizes].PARAMS)
+            dist_params = FAMILIES[sizes].PARAMS
         self.params = self._BASE_PARAMS + dist_params + self._TAIL_PARAMS
         self._dist_names = tuple(p.name for p in dist_params)
         self.count_once = bool(count_once)
@@ -375,6 +375,10 @@ class DustEdge(Component):
         (:func:`edgefit.physics.atomic.edge_position`)."""
         edge = _tables().region_for(self.element)[0]
         return atomic.edge_position(self.element, edge)
+
+    def reference_energy(self) -> float:
+        """Just above the edge: :meth:`edge_energy` plus 20 eV (keV)."""
+        return atomic.edge_bracket(self.edge_energy())[1]
 
     def derived(self, **values):
         """N_Z in dust ``col_cm2`` (cm^-2), grain column (cm^-2), dust mass
