@@ -92,8 +92,13 @@ class DustEdge(Component):
     name : str, optional
         Component name (default ``"dust"``).
     material : str or Material
-        Built-in material name (``"olivine"``, ``"pyroxene"`` ...) or a
-        :class:`~edgefit.dust.materials.Material`.
+        Built-in material name (``"olivine"``, ``"pyroxene"`` ...), a
+        :class:`~edgefit.dust.materials.Material`, or a chemical formula
+        (e.g. ``"Mg1.8Fe0.2SiO4"``) together with ``density``.
+    density : float or Quantity, optional
+        Mass density (g cm^-3) of a material given by its formula; this is
+        how a configuration file defines a material of its own
+        (``options = { material = "Mg1.8Fe0.2SiO4", density = 3.4 }``).
     element : str
         The edge element Z whose dust column is the parameter ``col``.
     sizes : str or SizeDistribution
@@ -145,13 +150,14 @@ class DustEdge(Component):
         ("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False),
     )) + _TAIL_PARAMS
 
-    def __init__(self, name=None, *, material="olivine", element="Si", sizes="power_law",
-                 count_once=True, halo=None, energy_range=None, table=None, size_grid=None,
-                 method="auto", rtol=None, cache=True, fixed=(), **values):
+    def __init__(self, name=None, *, material="olivine", density=None, element="Si",
+                 sizes="power_law", count_once=True, halo=None, energy_range=None,
+                 table=None, size_grid=None, method="auto", rtol=None, cache=True, fixed=(),
+                 **values):
         from ..dust.materials import get_material
         from ..dust.sizes import FAMILIES, SizeDistribution, SizeGrid
 
-        self.material = get_material(material)
+        self.material = get_material(material, density)
         self.element = atomic.element_symbol(element)
         self.material.count(self.element)  # error if the material lacks it
         if isinstance(sizes, SizeDistribution):
