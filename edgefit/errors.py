@@ -37,6 +37,7 @@ __all__ = [
     "EdgefitWarning",
     "ConvergenceWarning",
     "ShortChainWarning",
+    "ModeMixingWarning",
     "PhysicsWarning",
     "InputWarning",
 ]
@@ -175,6 +176,12 @@ class ConvergenceWarning(EdgefitWarning):
 
 class ShortChainWarning(EdgefitWarning):
     """An MCMC chain is shorter than about 50 autocorrelation times."""
+
+
+class ModeMixingWarning(ShortChainWarning):
+    """An MCMC chain did not move between the separate minima the fit
+    found (or did not pass its split-R-hat / effective-sample-size checks),
+    so the relative weight of the modes is not sampled."""
 
 
 class PhysicsWarning(EdgefitWarning):

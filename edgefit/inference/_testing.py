@@ -17,7 +17,9 @@ import numpy as np
 from ..models.base import MULTIPLICATIVE, Component, Param
 from ..physics.atomic import EDGE_OFFSET_KEV
 
-__all__ = ["toy_response", "ToyEdgeAbsorber", "toy_model", "TOY_TRUTH", "simulate_counts"]
+__all__ = ["toy_response", "ToyEdgeAbsorber", "toy_model", "TOY_TRUTH", "simulate_counts",
+           "EDGE_FIT_RANGES", "edge_sightline_model", "edge_sightline_truth",
+           "simulate_edge_sightline"]
 
 
 def toy_response(emin=1.6, emax=2.2, n_channels=900, n_energy=None, fwhm_kev=None,
@@ -98,3 +100,68 @@ def simulate_counts(model, response, exposure, values=None, seed=None, backgroun
                              seed)
     spec.background = background
     return spec
+
+
+#: Fit energy ranges (keV) of the simulated edge sightlines, inside the
+#: default dust-table regions (:data:`edgefit.dust.tables.EDGE_REGIONS`).
+EDGE_FIT_RANGES = {"Si": (1.70, 2.00), "Mg": (1.22, 1.42), "Fe": (0.67, 0.80),
+                   "O": (0.50, 0.62)}
+
+
+def edge_sightline_model(element="Si", material="olivine"):
+    """The gas/dust model of one edge with the upper grain size free:
+    SmoothISM("ism", excluding the element) x GasEdge("gas") x
+    DustEdge("dust", MRN power law, amax free) x PhotonPowerLaw("pl")."""
+    from ..models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
+
+    return (SmoothISM("ism", exclude=(element,)) * GasEdge("gas", element=element)
+            * DustEdge("dust", material=material, element=element, sizes="power_law")
+            * PhotonPowerLaw("pl"))
+
+
+def edge_sightline_truth(model, element, nh, depletion, amax, index=1.8):
+    """Parameter values of :func:`edge_sightline_model` for hydrogen column
+    ``nh`` (1e22 cm^-2), the element's dust share ``depletion`` and upper
+    grain size ``amax`` (µm); the element's total column is nh x its
+    abundance in the model's table.  Returns (values, total in 1e16 cm^-2)."""
+    from ..physics import abundances as _ab
+
+    ism = model.component("ism")
+    total = nh * 1e22 * _ab.abundances(ism.abundances)[element] / 1e16
+    dust_col = model.component("dust").params[0].name
+    return {"ism_nh": nh, "gas_col": (1 - depletion) * total,
+            f"dust_{dust_col}": depletion * total, "dust_amax": amax,
+            "pl_index": index, "pl_norm": 1.0}, total
+
+
+def simulate_edge_sightline(model, element, values, rng, *, counts_per_channel=300.0,
+                            arms=1, channel_angstrom=0.0025, fwhm_angstrom=0.012):
+    """Seeded Poisson spectra of ``model`` at ``values`` around the edge of
+    ``element``: ``arms`` grating-like spectra (Gaussian line spread of
+    ``fwhm_angstrom``, channels of ``channel_angstrom``; a second arm has
+    80 % of the area), the continuum normalisation scaled so that the
+    median channel holds ``counts_per_channel`` counts in the first arm.
+    Returns (list of Dataset, values with the scaled normalisation)."""
+    from ..data import gaussian_response, simulate_spectrum
+    from .._units import HC_KEV_ANGSTROM
+    from .dataset import Dataset
+
+    lo, hi = EDGE_FIT_RANGES[element]
+    w_lo, w_hi = HC_KEV_ANGSTROM / (hi * 1.03), HC_KEV_ANGSTROM / (lo / 1.03)
+    n_ch = int(round((w_hi - w_lo) / channel_angstrom))
+    ch_edges = HC_KEV_ANGSTROM / np.linspace(w_hi, w_lo, n_ch + 1)
+    e_edges = np.geomspace(lo / 1.05, hi * 1.05, int(1.3 * n_ch) + 1)
+    values = dict(values)
+    out = []
+    for k in range(arms):
+        resp = gaussian_response(e_edges, ch_edges, fwhm_angstrom, 100.0 * (1.0 - 0.2 * k))
+        if k == 0:
+            flux = model.evaluate(resp.grid, values)
+            mu = resp.fold(flux)
+            scale = counts_per_channel / float(np.median(mu))
+            values["pl_norm"] = values.get("pl_norm", 1.0) * scale
+        flux = model.evaluate(resp.grid, values)
+        spec = simulate_spectrum(flux, resp, 1.0, rng,
+                                 meta={"object": f"SIM-{element}-EDGE (simulated)"})
+        out.append(Dataset(spec, ranges=(lo, hi), label=f"arm {k + 1}"))
+    return out, values

@@ -16,6 +16,8 @@ each component of the model:
 * ``<component>_<key>``: every entry of the component's
   ``derived(**values)`` dict (e.g. element column, grain column density,
   dust mass column, self-shielding ratio, N_H), with the unit it states.
+* ``total_column_<element>`` = N_gas + N_dust (cm^-2) for the same
+  elements as the depletion below;
 * ``depletion_<element>`` = N_dust / (N_gas + N_dust) for every element
   that has both a gas-phase and a dust component.  A component takes part
   when it declares (:class:`~edgefit.models.base.Component` attributes)
@@ -133,6 +135,9 @@ def _evaluate_all(model, values, refs):
     """name -> (value, unit, description) for one set of full values."""
     out = {}
     columns = {}
+    to_model = getattr(model, "model_values", None)
+    if to_model is not None:  # e.g. TotalAndFraction: gas and dust columns from its pair
+        values = to_model(values)
     for comp in model.components():
         short = {p.name: values[f"{comp.name}_{p.name}"] for p in comp.params
                  if f"{comp.name}_{p.name}" in values}
@@ -159,6 +164,8 @@ def _evaluate_all(model, values, refs):
             dep = by_phase["dust"] / tot if tot > 0 else math.nan
             out[f"depletion_{element}"] = (dep, "", f"{element} dust share "
                                            "N_dust/(N_gas+N_dust)")
+            out[f"total_column_{element}"] = (tot, "cm-2", f"{element} column in gas and "
+                                              "dust, N_gas + N_dust")
     return out
 
 

@@ -17,11 +17,37 @@ Doubtful convergence is never silent: the result's ``flags`` list names
 every problem (``no_success``, ``at_bound:<name>``, ``no_covariance``,
 ``nonfinite_covariance``, ``model_not_finite``, ``fallback:<method>``) and
 a :class:`~edgefit.errors.ConvergenceWarning` repeats them.
+
+Global best fit over the grain sizes
+------------------------------------
+With grain sizes free, the statistic often has two valleys (small grains
+with more dust, large grains with more gas and N_H) that a local
+minimiser cannot leave.  So by default (``starts="auto"``) the fit is
+started from the user's values *and* from ``n_size_starts`` points spread
+across the bounds of every free size parameter (model parameters in µm):
+log-spaced values inset 5 % from each bound, the other parameters at the
+user's values; with several size parameters the grids are paired in a
+seeded random order (a Latin hypercube).  The lowest end point is
+polished once more and kept, so the answer does not depend on the
+user's starting values.  End points are grouped into distinct minima by
+their size parameters (|Δ ln a| > :data:`SAME_MINIMUM_LOG_SIZE` for some
+size parameter); every distinct minimum is kept in ``result.minima``
+(statistic, ΔC from the best, values), and when a second one lies within
+``multimodal_delta`` (default :data:`MULTIMODAL_DELTA`, the 99 %
+one-parameter ΔC = 6.63) of the best the result is flagged
+``multimodal`` (an informational flag: the best fit is still the best).
+
+Gas and dust that the data cannot separate are said so: when a gas-phase
+and a dust-phase component of one element both have a free column and
+the covariance correlation of the two columns is beyond
+:data:`DEGENERACY_CORRELATION` in magnitude, the informational flag
+``gas_dust_degenerate:<element>`` is added.
 """
 from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -29,11 +55,79 @@ from ..errors import ConvergenceWarning, FitError, ModelError
 from .likelihood import JointLikelihood
 from .result import FitResult
 
-__all__ = ["fit_sightline", "minimise", "LeastSquaresObjective", "BOUND_TOLERANCE"]
+__all__ = ["fit_sightline", "minimise", "LeastSquaresObjective", "BOUND_TOLERANCE",
+           "Minimum", "size_parameter_names", "size_start_values", "MULTIMODAL_DELTA",
+           "DEGENERACY_CORRELATION", "SAME_MINIMUM_LOG_SIZE", "reparametrise",
+           "distinct_minima", "degeneracy_flags"]
 
 #: A parameter within this fraction of its allowed range from a bound is
 #: reported as "at bound".
 BOUND_TOLERANCE = 1e-6
+#: A second minimum within this Delta C of the best makes a fit
+#: ``multimodal``: the chi-square(1 dof) 99 % quantile (Wilks 1938), so any
+#: such minimum can matter to an interval up to 99 %.
+MULTIMODAL_DELTA = 6.634896601021214
+#: |correlation| of a gas and a dust column beyond which the fit says the
+#: data do not separate them (common practice threshold).
+DEGENERACY_CORRELATION = 0.95
+#: End points whose size parameters all agree within this |Delta ln a| are
+#: one minimum.
+SAME_MINIMUM_LOG_SIZE = 0.15
+#: Number of starts spread over the size parameters' bounds.
+N_SIZE_STARTS = 5
+#: Inset of the start grid from each bound (fraction, in log).
+_START_INSET = 1.05
+
+
+@dataclass
+class Minimum:
+    """One distinct minimum met by the multi-start fit."""
+
+    statistic: float
+    params: object = field(repr=False)  # lmfit Parameters at the minimum
+    start: str = ""
+    delta: float = 0.0
+
+    def values(self):
+        return {n: float(p.value) for n, p in self.params.items()}
+
+    def as_dict(self, free=None):
+        vals = self.values()
+        if free is not None:
+            vals = {n: vals[n] for n in free if n in vals}
+        return {"statistic": self.statistic, "delta": self.delta, "start": self.start,
+                "values": vals}
+
+
+def size_parameter_names(model, params):
+    """Free model parameters that are grain radii (unit ``um``), in model
+    order: the size-distribution parameters the global fit spreads its
+    starts over."""
+    out = []
+    for full, (_, p) in model.parameters().items():
+        if p.unit == "um" and full in params and params[full].vary and not params[full].expr:
+            out.append(full)
+    return out
+
+
+def size_start_values(params, names, n=N_SIZE_STARTS, seed=0):
+    """``n`` starting points (dicts name -> value) spread log-uniformly
+    across the bounds of the size parameters ``names`` (inset 5 % from each
+    bound); several parameters are paired in a seeded random order."""
+    if not names or n <= 0:
+        return []
+    rng = np.random.default_rng(seed)
+    grids = []
+    for k, name in enumerate(names):
+        p = params[name]
+        lo = float(p.min) if np.isfinite(p.min) and p.min > 0 else 1e-3
+        hi = float(p.max) if np.isfinite(p.max) else 10.0
+        lo_i, hi_i = lo * _START_INSET, hi / _START_INSET
+        if hi_i <= lo_i:
+            lo_i, hi_i = lo, hi
+        g = np.geomspace(lo_i, hi_i, n)
+        grids.append(g if k == 0 else rng.permutation(g))
+    return [{name: float(grids[k][i]) for k, name in enumerate(names)} for i in range(n)]
 
 
 class LeastSquaresObjective:
@@ -141,9 +235,115 @@ def _bound_flags(params, free):
     return flags
 
 
+def _same_minimum(a, b, size_names, stat_a=None, stat_b=None):
+    """True when two end points are one minimum: their size parameters
+    agree (|Delta ln a| <= SAME_MINIMUM_LOG_SIZE), or -- given both
+    statistics -- the statistics agree to 1e-3 and every other free
+    parameter to 1e-3 relative (the sizes then do not matter, e.g. with
+    the dust column at zero)."""
+    same_sizes = True
+    for n in size_names:
+        va, vb = float(a[n].value), float(b[n].value)
+        if va <= 0 or vb <= 0:
+            if abs(va - vb) > 1e-9:
+                same_sizes = False
+                break
+        elif abs(math.log(va / vb)) > SAME_MINIMUM_LOG_SIZE:
+            same_sizes = False
+            break
+    if same_sizes:
+        return True
+    if stat_a is None or stat_b is None or abs(stat_a - stat_b) > 1e-3:
+        return False
+    for n, p in a.items():
+        if n in size_names or not p.vary or p.expr:
+            continue
+        va, vb = float(p.value), float(b[n].value)
+        if abs(va - vb) > 1e-3 * max(abs(va), abs(vb), 1e-6):
+            return False
+    return True
+
+
+def distinct_minima(ends, size_names):
+    """Group end points [(statistic, params, start label)] into distinct
+    minima (by their size parameters); sorted by statistic, ``delta``
+    relative to the lowest."""
+    minima: list[Minimum] = []
+    for stat, params, label in sorted(ends, key=lambda e: e[0]):
+        if not math.isfinite(stat):
+            continue
+        if any(_same_minimum(m.params, params, size_names, m.statistic, stat)
+               for m in minima):
+            continue
+        minima.append(Minimum(float(stat), params, label))
+    if minima:
+        s0 = minima[0].statistic
+        for m in minima:
+            m.delta = m.statistic - s0
+    return minima
+
+
+def _column_pairs(model, params):
+    """{element: (gas column names, dust column names)} of the free column
+    parameters of components declaring ``phase`` gas/dust (their first
+    parameter, in 1e16 cm^-2)."""
+    out = {}
+    for comp in model.components():
+        phase = getattr(comp, "phase", None)
+        element = getattr(comp, "element", None)
+        if phase not in ("gas", "dust") or not element or not comp.params:
+            continue
+        name = f"{comp.name}_{comp.params[0].name}"
+        if name in params and params[name].vary and not params[name].expr:
+            out.setdefault(element, ([], []))[0 if phase == "gas" else 1].append(name)
+    return out
+
+
+def degeneracy_flags(result):
+    """``gas_dust_degenerate:<element>`` for each element whose free gas and
+    dust columns have a covariance correlation beyond
+    :data:`DEGENERACY_CORRELATION` (or whose covariance is missing while
+    both are free)."""
+    flags = []
+    model = result.model
+    tp, fp = getattr(model, "total_param", None), getattr(model, "fraction_param", None)
+    if tp and result.params[tp].vary and result.params[fp].vary:
+        # total/fraction form: the gas-dust covariance through the Jacobian
+        # of (N_gas, N_dust) = (T (1 - f), T f)
+        names = [tp, fp]
+        ok = result.covariance is not None and all(n in result.covariance_names
+                                                   for n in names)
+        if ok:
+            t, f = float(result.params[tp].value), float(result.params[fp].value)
+            jac = np.array([[1.0 - f, -t], [f, t]])
+            c = jac @ result.covariance_of(names) @ jac.T
+            rho = c[0, 1] / math.sqrt(c[0, 0] * c[1, 1]) if c[0, 0] > 0 and c[1, 1] > 0 else 1.0
+        if not ok or abs(rho) >= DEGENERACY_CORRELATION:
+            flags.append(f"gas_dust_degenerate:{model.element}")
+    for element, (gas, dust) in _column_pairs(model, result.params).items():
+        if not gas or not dust:
+            continue
+        names = gas + dust
+        cov = (result.covariance_of(names)
+               if result.covariance is not None and all(n in result.covariance_names
+                                                        for n in names) else None)
+        if cov is None:
+            flags.append(f"gas_dust_degenerate:{element}")
+            continue
+        # correlation of the summed gas and summed dust columns
+        w_g = np.r_[np.ones(len(gas)), np.zeros(len(dust))]
+        w_d = 1.0 - w_g
+        vg, vd, cgd = w_g @ cov @ w_g, w_d @ cov @ w_d, w_g @ cov @ w_d
+        rho = cgd / math.sqrt(vg * vd) if vg > 0 and vd > 0 else 1.0
+        if abs(rho) >= DEGENERACY_CORRELATION:
+            flags.append(f"gas_dust_degenerate:{element}")
+    return flags
+
+
 def fit_sightline(model, datasets, *, statistic="poisson", method="least_squares",
                   params=None, chi2_variance="data", fallback=True, xnorm_free=True,
-                  goodness=True, warn=True):
+                  goodness=True, warn=True, starts="auto", n_size_starts=N_SIZE_STARTS,
+                  multimodal_delta=MULTIMODAL_DELTA):
     """Fit ``model`` jointly to ``datasets``.
 
     Parameters
@@ -160,10 +360,21 @@ def fit_sightline(model, datasets, *, statistic="poisson", method="least_squares
         from the model (:meth:`JointLikelihood.make_params`).
     goodness : bool
         Compute the C-statistic goodness of fit (Kaastra 2017) for C fits.
+    starts : {"auto", "single"} or sequence of dict
+        ``"auto"`` (default): the user's start plus ``n_size_starts``
+        starts spread over the free grain-size parameters' bounds (see the
+        module docstring; a single start when no size parameter is free);
+        ``"single"``: only the user's start (a local fit); a sequence of
+        {name: value} dicts: the user's start plus these.
+    n_size_starts : int
+        Points of the size grid for ``starts="auto"``.
+    multimodal_delta : float
+        Distinct minima within this Delta C of the best set ``multimodal``.
 
     Returns
     -------
-    FitResult
+    FitResult  (``result.minima``: the distinct minima found, best first;
+    ``result.multimodal``: more than one within ``multimodal_delta``)
     """
     from .dataset import Dataset
 
@@ -173,13 +384,52 @@ def fit_sightline(model, datasets, *, statistic="poisson", method="least_squares
     if params is None:
         params = like.make_params(xnorm_free=xnorm_free)
     else:
+        params = params.copy()
         missing = set(like.names) - set(params)
         if missing:
             base = like.make_params(xnorm_free=xnorm_free)
             for n in like.names:
                 if n in missing:
                     params.add(base[n])
-    out, stat, flags = minimise(like, params, method=method, fallback=fallback)
+    size_names = size_parameter_names(model, params)
+    if isinstance(starts, str):
+        if starts not in ("auto", "single"):
+            raise ModelError(f"starts must be 'auto', 'single' or a list of dicts, got {starts!r}")
+        extra = size_start_values(params, size_names, n_size_starts) if starts == "auto" else []
+    else:
+        extra = [dict(s) for s in starts]
+    ends = []
+    out, stat, flags = None, math.inf, []
+    try:
+        out, stat, flags = minimise(like, params, method=method, fallback=fallback)
+        ends.append((stat, out.params, "user"))
+    except FitError:
+        if not extra:
+            raise
+    for k, values in enumerate(extra):
+        p = params.copy()
+        for n, v in values.items():
+            if n not in p:
+                raise ModelError(f"start {k + 1} names an unknown parameter {n!r}")
+            p[n].set(value=min(max(float(v), p[n].min), p[n].max))
+        try:
+            o, s_, _ = minimise(like, p, method=method, fallback=False)
+        except FitError:
+            continue
+        label = ", ".join(f"{n}={v:.4g}" for n, v in values.items())
+        ends.append((s_, o.params, label))
+    if not ends:
+        raise FitError("every start failed; the model is not finite near the starting values "
+                       "(check initial values and bounds)", partial=None)
+    best_stat, best_params, best_label = min(ends, key=lambda e: e[0])
+    if best_label != "user" or out is None:
+        # polish the best end point with the full minimiser (covariance, flags)
+        o, s_, fl = minimise(like, best_params, method=method, fallback=fallback)
+        if s_ <= best_stat + 1e-9 or out is None:
+            out, stat, flags = o, s_, fl
+        ends.append((s_, o.params, best_label))
+    minima = distinct_minima(ends, size_names) if size_names else []
+    flags = list(flags)
     free = [n for n, p in out.params.items() if p.vary and not p.expr]
     flags += _bound_flags(out.params, free)
     covar = getattr(out, "covar", None)
@@ -188,15 +438,126 @@ def fit_sightline(model, datasets, *, statistic="poisson", method="least_squares
     elif not np.all(np.isfinite(covar)) or np.any(np.diag(covar) <= 0):
         flags.append("nonfinite_covariance")
         covar = None
+    close = [m for m in minima if m.delta <= multimodal_delta]
+    if len(close) > 1:
+        flags.append("multimodal")
     var_names = list(getattr(out, "var_names", free) or free)
     result = FitResult(likelihood=like, params=out.params, statistic=stat,
                        covariance=covar, covariance_names=var_names, flags=flags,
                        method=method, nfev=int(getattr(out, "nfev", 0) or 0))
+    result.minima = minima
+    result.multimodal_delta = float(multimodal_delta)
+    result.n_starts = 1 + len(extra)
+    result.flags += degeneracy_flags(result)
     if goodness and statistic == "poisson" and math.isfinite(stat):
         from .goodness import c_statistic_goodness
 
         result.goodness = c_statistic_goodness(result)
-    if flags and warn:
-        warnings.warn(f"fit convergence is doubtful: {', '.join(flags)}", ConvergenceWarning,
+    doubtful = [f for f in result.flags if not result.is_info_flag(f)]
+    if doubtful and warn:
+        warnings.warn(f"fit convergence is doubtful: {', '.join(doubtful)}", ConvergenceWarning,
                       stacklevel=2)
     return result
+
+
+def reparametrise(result, columns="total_fraction", *, gas=None, dust=None, polish=True):
+    """The same fit expressed in the other column parametrisation.
+
+    ``columns="total_fraction"``: wrap the model in
+    :class:`~edgefit.models.columns.TotalAndFraction` (``gas``/``dust``:
+    component names; default the single gas- and dust-phase pair of the
+    model); ``"gas_dust"``: unwrap a total/fraction model.  The values are
+    mapped exactly (N_gas = N_tot (1 - f), N_dust = N_tot f and back), the
+    bounds are those of the new parameters, the other parameters keep
+    their values, bounds and fixed flags; with ``polish`` the new result is
+    re-minimised from there (it stays put when the old fit was converged;
+    this gives the covariance in the new coordinates).  The distinct
+    minima are carried over.  Returns a new :class:`FitResult`; profile
+    intervals of the new parameters are then computed on it.
+    """
+    from ..models.columns import TotalAndFraction
+
+    model = result.model
+    if columns == "total_fraction":
+        if isinstance(model, TotalAndFraction):
+            raise ModelError("the fit is already in total/fraction form")
+        if gas is None or dust is None:
+            pairs = {}
+            for comp in model.components():
+                ph = getattr(comp, "phase", None)
+                if ph in ("gas", "dust"):
+                    pairs.setdefault(comp.element, {}).setdefault(ph, []).append(comp.name)
+            ok = [(el, d) for el, d in pairs.items() if len(d.get("gas", [])) == 1
+                  and len(d.get("dust", [])) == 1]
+            if len(ok) != 1:
+                raise ModelError("name the gas and dust components (gas=..., dust=...): the "
+                                 "model has no single gas/dust pair of one element")
+            gas = gas or ok[0][1]["gas"][0]
+            dust = dust or ok[0][1]["dust"][0]
+        new_model = TotalAndFraction(model, gas, dust)
+
+        def convert(values):
+            v = dict(values)
+            g, d = v.pop(new_model.gas_param), v.pop(new_model.dust_param)
+            v[new_model.total_param], v[new_model.fraction_param] = \
+                TotalAndFraction.from_columns(g, d)
+            return v
+        pair_old = (new_model.gas_param, new_model.dust_param)
+        pair_new = (new_model.total_param, new_model.fraction_param)
+    elif columns == "gas_dust":
+        if not isinstance(model, TotalAndFraction):
+            raise ModelError("the fit is already in gas/dust form")
+        new_model = model.model
+
+        def convert(values):
+            v = model.model_values(values)
+            v.pop(model.total_param)
+            v.pop(model.fraction_param)
+            return v
+        pair_old = (model.total_param, model.fraction_param)
+        pair_new = (model.gas_param, model.dust_param)
+    else:
+        raise ModelError(f"columns must be 'total_fraction' or 'gas_dust', got {columns!r}")
+    like = JointLikelihood(new_model, result.datasets, statistic=result.statistic_name,
+                           chi2_variance=result.likelihood.chi2_variance)
+    base = like.make_params()
+
+    def to_params(old):
+        p = base.copy()
+        vals = convert({n: float(q.value) for n, q in old.items()})
+        vary_pair = any(old[n].vary and not old[n].expr for n in pair_old)
+        for n in p:
+            if n in pair_new:
+                p[n].set(value=min(max(vals[n], p[n].min), p[n].max), vary=vary_pair)
+            elif n in old:
+                q = old[n]
+                p[n].set(value=q.value, min=q.min, max=q.max, vary=q.vary)
+        return p
+
+    params = to_params(result.params)
+    stat = like.statistic(params.valuesdict())
+    covar, var_names, flags = None, [], []
+    if polish:
+        out, s_, fl = minimise(like, params, method=result.method)
+        if s_ <= stat + 1e-9:
+            params, stat = out.params, s_
+        covar = getattr(out, "covar", None)
+        var_names = list(getattr(out, "var_names", []) or [])
+        if covar is not None and (not np.all(np.isfinite(covar)) or
+                                  np.any(np.diag(covar) <= 0)):
+            covar = None
+        flags = [f for f in fl if f != "no_success"]
+    free = [n for n, p in params.items() if p.vary and not p.expr]
+    flags += _bound_flags(params, free)
+    flags += [f for f in result.flags if f in ("multimodal",)]
+    new = FitResult(likelihood=like, params=params, statistic=stat, covariance=covar,
+                    covariance_names=var_names or free, flags=flags, method=result.method)
+    new.minima = [Minimum(m.statistic, to_params(m.params), m.start, m.delta)
+                  for m in result.minima]
+    if new.minima:
+        new.minima[0] = Minimum(stat, params, new.minima[0].start, 0.0)
+    new.multimodal_delta = result.multimodal_delta
+    new.n_starts = result.n_starts
+    new.meta = dict(result.meta)
+    new.flags += degeneracy_flags(new)
+    return new

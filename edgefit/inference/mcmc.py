@@ -13,7 +13,34 @@ estimator of Sokal 1997 with automatic windowing); a
 :class:`~edgefit.errors.ShortChainWarning` is issued when the chain is
 shorter than 50 times the largest autocorrelation time (the rule of thumb
 in emcee's documentation).  The default burn-in discards
-max(2 tau_max, nsteps/4) steps (common practice).
+max(2 tau_max, nsteps/4) steps (common practice).  Besides tau, each
+parameter's rank-normalised split-R-hat and bulk effective sample size
+are computed with arviz (Vehtari et al. 2021, Bayesian Analysis 16, 667),
+treating each walker as a chain; R-hat > :data:`RHAT_MAX` or a bulk ESS
+below :data:`ESS_MIN` triggers a :class:`~edgefit.errors.ModeMixingWarning`
+(a ShortChainWarning).
+
+Across the grain-size valley
+----------------------------
+Sampler coordinates (``coordinates="auto"``, the default): the logarithm
+of every free grain-size parameter (unit µm), and, for a gas/dust column
+pair of one element that are both free, the total column and the dust
+fraction (N_tot = N_gas + N_dust, f = N_dust / N_tot) in place of the two
+columns; the chain is stored in the fit's own parameters.  ``prior``:
+``"sampled"`` (default) is flat in the sampler coordinates (log-uniform
+in the sizes, uniform in the total column and in the dust fraction);
+``"parameters"`` is flat in the fit parameters (the Jacobian of the
+coordinate change is added).  Extra ``priors`` are densities in the fit
+parameters and multiply in.
+
+Walkers start across the distinct minima of the multi-start fit
+(``init="minima"``, the default: ``result.minima`` within the fit's
+``multimodal_delta``, walkers shared equally), each group in a Gaussian
+ball from the best fit's covariance mapped to the sampler coordinates.
+Every post-burn-in sample is assigned to the nearest known minimum in the
+log sizes; when no walker ever moves from one minimum's region to
+another's, a :class:`~edgefit.errors.ModeMixingWarning` says the chain
+has not crossed between the known modes (``McmcResult.unmixed_modes``).
 """
 from __future__ import annotations
 
@@ -22,14 +49,23 @@ import warnings
 
 import numpy as np
 
-from ..errors import ArgumentError, FitError, ShortChainWarning
+from ..errors import ArgumentError, FitError, ModeMixingWarning, ShortChainWarning
 from ..stats import ONE_SIGMA
 from .likelihood import ParameterVector
 
-__all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc"]
+__all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc",
+           "SamplerCoordinates", "SampledPosterior", "chain_diagnostics", "RHAT_MAX", "ESS_MIN"]
 
 #: Chains shorter than this many autocorrelation times trigger a warning.
 MIN_TAU_MULTIPLE = 50
+#: Largest acceptable rank-normalised split-R-hat.  Vehtari et al. (2021)
+#: recommend 1.01 for independent chains; the walkers of an ensemble
+#: sampler are not independent and a converged run of 32 walkers x 2500
+#: steps (> 50 tau) reads about 1.02, so 1.05 is used (common practice).
+RHAT_MAX = 1.05
+#: Smallest acceptable bulk effective sample size (Vehtari et al. 2021
+#: recommend > 400, i.e. 100 per chain for four chains).
+ESS_MIN = 400
 
 
 class GaussianPrior:
@@ -89,6 +125,13 @@ class McmcResult:
     """Chain, diagnostics and summaries of an emcee run."""
 
     def __init__(self, chain, log_prob, names, burn, thin, tau, acceptance, seed):
+        self.rhat = None            # split-R-hat per parameter (arviz)
+        self.ess = None             # bulk effective sample size per parameter (arviz)
+        self.mode_visits = None     # samples per known minimum (post burn-in)
+        self.mode_crossings = None  # walker moves between known minima's regions
+        self.coordinates = []       # sampler coordinates, e.g. "ln(dust_amax)"
+        self.initial = None         # walkers' starting points (nwalkers, ndim)
+        self.prior = "parameters"
         self.chain = chain          # (nsteps, nwalkers, ndim)
         self.log_prob = log_prob    # (nsteps, nwalkers)
         self.names = list(names)
@@ -105,6 +148,21 @@ class McmcResult:
     @property
     def nwalkers(self):
         return self.chain.shape[1]
+
+    @property
+    def unmixed_modes(self):
+        """True when the fit knew several minima and no walker moved
+        between their regions."""
+        return (self.mode_visits is not None and len(self.mode_visits) > 1
+                and not self.mode_crossings)
+
+    @property
+    def diagnostics_ok(self):
+        """R-hat and ESS within :data:`RHAT_MAX` / :data:`ESS_MIN` (True
+        when they were not computed)."""
+        if self.rhat is None:
+            return True
+        return bool(np.nanmax(self.rhat) <= RHAT_MAX and np.nanmin(self.ess) >= ESS_MIN)
 
     @property
     def short_chain(self):
@@ -129,6 +187,18 @@ class McmcResult:
                  f"thin {self.thin}, acceptance {np.mean(self.acceptance):.2f}, "
                  f"max tau {np.nanmax(self.tau):.1f} steps"
                  + ("  [SHORT CHAIN: < 50 tau]" if self.short_chain else "")]
+        if self.rhat is not None:
+            lines.append(f"  split-R-hat max {np.nanmax(self.rhat):.3f} (<= {RHAT_MAX}), bulk ESS "
+                         f"min {np.nanmin(self.ess):.0f} (>= {ESS_MIN})"
+                         + ("" if self.diagnostics_ok else "  [NOT CONVERGED]"))
+        if self.coordinates:
+            lines.append(f"  sampled in {', '.join(self.coordinates)}; prior flat in the "
+                         + ("sampled coordinates" if self.prior == "sampled" else
+                            "fit parameters"))
+        if self.mode_visits is not None and len(self.mode_visits) > 1:
+            lines.append(f"  samples per known minimum {list(self.mode_visits)}, "
+                         f"{self.mode_crossings} walker moves between them"
+                         + ("  [MODES NOT CROSSED]" if self.unmixed_modes else ""))
         for n in self.names:
             med, lo, hi = self.quantiles(n)
             lines.append(f"  {n:<26} median {med:.5g}  68% [{lo:.5g}, {hi:.5g}]")
@@ -139,6 +209,11 @@ class McmcResult:
                 "burn": self.burn, "thin": self.thin, "tau": self.tau.tolist(),
                 "acceptance_mean": float(np.mean(self.acceptance)), "seed": self.seed,
                 "short_chain": bool(self.short_chain),
+                "rhat": None if self.rhat is None else np.asarray(self.rhat).tolist(),
+                "ess_bulk": None if self.ess is None else np.asarray(self.ess).tolist(),
+                "mode_visits": None if self.mode_visits is None else list(self.mode_visits),
+                "mode_crossings": self.mode_crossings, "coordinates": self.coordinates,
+                "prior": self.prior,
                 "posterior": {n: dict(zip(("median", "lo68", "hi68"), self.quantiles(n)))
                               for n in self.names}}
 
@@ -167,14 +242,201 @@ def _tqdm_available():
     return True
 
 
+class SamplerCoordinates:
+    """Map between the fit's free-parameter vector theta and the sampler's
+    vector y: y = ln(theta) for the indices ``log_idx``; for a column pair
+    (i_gas, i_dust), y[i_gas] = total and y[i_dust] = dust fraction."""
+
+    def __init__(self, free, log_idx=(), pair=None):
+        self.free = list(free)
+        self.log_idx = np.asarray(list(log_idx), dtype=int)
+        self.pair = pair
+
+    @classmethod
+    def for_result(cls, result, pv, coordinates="auto"):
+        if coordinates == "natural":
+            return cls(pv.free)
+        if coordinates != "auto":
+            raise FitError(f"coordinates must be 'auto' or 'natural', got {coordinates!r}")
+        from .fit import _column_pairs, size_parameter_names
+
+        sizes = size_parameter_names(result.model, result.params)
+        log_idx = [pv.free.index(n) for n in sizes
+                   if n in pv.free and pv.lower[pv.free.index(n)] > 0]
+        pair = None
+        pairs = [(g, d) for g, d in _column_pairs(result.model, result.params).values()
+                 if len(g) == 1 and len(d) == 1]
+        if len(pairs) == 1 and pairs[0][0][0] in pv.free and pairs[0][1][0] in pv.free:
+            pair = (pv.free.index(pairs[0][0][0]), pv.free.index(pairs[0][1][0]))
+        return cls(pv.free, log_idx, pair)
+
+    def labels(self):
+        out = [f"ln({self.free[i]})" for i in self.log_idx]
+        if self.pair is not None:
+            g, d = (self.free[i] for i in self.pair)
+            out.append(f"total = {g} + {d}")
+            out.append(f"dust fraction = {d} / total")
+        return out
+
+    def to_y(self, theta):
+        y = np.array(theta, dtype=float, copy=True)
+        if self.log_idx.size:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                y[..., self.log_idx] = np.log(y[..., self.log_idx])
+        if self.pair is not None:
+            ig, idd = self.pair
+            g, d = y[..., ig].copy(), y[..., idd].copy()
+            tot = g + d
+            with np.errstate(divide="ignore", invalid="ignore"):
+                y[..., idd] = np.where(tot > 0, d / np.where(tot > 0, tot, 1.0), 0.5)
+            y[..., ig] = tot
+        return y
+
+    def to_theta(self, y):
+        th = np.array(y, dtype=float, copy=True)
+        if self.log_idx.size:
+            th[..., self.log_idx] = np.exp(th[..., self.log_idx])
+        if self.pair is not None:
+            ig, idd = self.pair
+            tot, f = th[..., ig].copy(), th[..., idd].copy()
+            th[..., ig] = tot * (1.0 - f)
+            th[..., idd] = tot * f
+        return th
+
+    def log_jacobian(self, y):
+        """ln |d theta / d y| (densities flat in theta times this are the
+        densities in y)."""
+        lj = float(np.sum(y[self.log_idx])) if self.log_idx.size else 0.0
+        if self.pair is not None:
+            tot = y[self.pair[0]]
+            lj += math.log(tot) if tot > 0 else -math.inf
+        return lj
+
+    def jacobian_y_theta(self, theta):
+        """d y / d theta at ``theta`` (matrix)."""
+        n = len(theta)
+        jac = np.eye(n)
+        for i in self.log_idx:
+            jac[i, i] = 1.0 / theta[i] if theta[i] > 0 else 0.0
+        if self.pair is not None:
+            ig, idd = self.pair
+            g, d = theta[ig], theta[idd]
+            tot = g + d
+            jac[ig, ig] = jac[ig, idd] = 1.0
+            if tot > 0:
+                jac[idd, ig] = -d / tot ** 2
+                jac[idd, idd] = g / tot ** 2
+        return jac
+
+    def in_bounds(self, y):
+        if self.pair is not None:
+            tot, f = y[self.pair[0]], y[self.pair[1]]
+            if not (tot >= 0 and 0 <= f <= 1):
+                return False
+        return True
+
+
+class SampledPosterior:
+    """ln posterior in sampler coordinates: the :class:`LogPosterior` of
+    theta(y), plus ln |d theta/d y| when the prior is flat in the fit
+    parameters (``prior="parameters"``)."""
+
+    def __init__(self, logp, coords, prior="sampled"):
+        if prior not in ("sampled", "parameters"):
+            raise FitError(f"prior must be 'sampled' or 'parameters', got {prior!r}")
+        self.logp = logp
+        self.coords = coords
+        self.prior = prior
+
+    def __call__(self, y):
+        y = np.asarray(y, dtype=float)
+        if not np.all(np.isfinite(y)) or not self.coords.in_bounds(y):
+            return -math.inf
+        lp = self.logp(self.coords.to_theta(y))
+        if self.prior == "parameters" and math.isfinite(lp):
+            lp += self.coords.log_jacobian(y)
+        return lp
+
+
+def chain_diagnostics(chain):
+    """(split-R-hat, bulk ESS) per parameter of ``chain`` (nsteps, nwalkers,
+    ndim), each walker taken as one chain; arviz's rank-normalised
+    versions (Vehtari et al. 2021).  Constant parameters give NaN."""
+    import arviz as az
+
+    x = np.asarray(chain, dtype=float)
+    rhat = np.full(x.shape[2], np.nan)
+    ess = np.full(x.shape[2], np.nan)
+    for k in range(x.shape[2]):
+        arr = x[:, :, k].T  # (chain, draw)
+        if np.ptp(arr) == 0 or arr.shape[1] < 4:
+            continue
+        with np.errstate(all="ignore"):
+            rhat[k] = float(az.rhat(arr))
+            ess[k] = float(az.ess(arr, method="bulk"))
+    return rhat, ess
+
+
+def _mode_assignment(chain_y, centres, idx):
+    """Index of the nearest centre (in the coordinates ``idx``) for every
+    sample: shape (nsteps, nwalkers)."""
+    c = np.asarray(centres)[:, idx]                     # (m, k)
+    x = chain_y[..., idx]                               # (s, w, k)
+    d = ((x[:, :, None, :] - c[None, None, :, :]) ** 2).sum(axis=-1)
+    return np.argmin(d, axis=-1)
+
+
+def _initial_walkers(result, pv, coords, logp_y, nwalkers, rng, init, init_scale):
+    """Walkers in sampler coordinates, shared among the known minima."""
+    x0 = pv.vector(result.params)
+    cov = result.covariance_of(pv.free)
+    centres = [x0]
+    if init == "minima":
+        dmax = getattr(result, "multimodal_delta", None) or 0.0
+        for m in getattr(result, "minima", [])[1:]:
+            if m.delta <= dmax:
+                centres.append(pv.vector(m.params))
+    elif init != "ball":
+        raise FitError(f"init must be 'minima' or 'ball', got {init!r}")
+    groups = np.array_split(np.arange(nwalkers), len(centres))
+    start = np.empty((nwalkers, len(pv)))
+    for centre, members in zip(centres, groups):
+        yc = coords.to_y(centre)
+        if cov is not None:
+            jac = coords.jacobian_y_theta(centre)
+            cov_y = jac @ cov @ jac.T
+            cov_y = 0.5 * (cov_y + cov_y.T)
+            try:
+                draws = rng.multivariate_normal(yc, cov_y * init_scale ** 2, size=len(members),
+                                                method="eigh")
+            except (np.linalg.LinAlgError, ValueError):
+                draws = yc + 1e-3 * np.maximum(np.abs(yc), 1e-3) * rng.standard_normal(
+                    (len(members), len(yc)))
+        else:
+            draws = yc + 1e-3 * np.where(yc != 0, np.abs(yc), 1.0) * rng.standard_normal(
+                (len(members), len(yc)))
+        for k, j in enumerate(members):
+            y = draws[k]
+            tries = 0
+            while not math.isfinite(logp_y(y)) and tries < 60:
+                y = yc + 0.5 * (y - yc)
+                tries += 1
+            if not math.isfinite(logp_y(y)):
+                y = yc.copy()
+            start[j] = y
+    return start, [coords.to_y(c) for c in centres]
+
+
 def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
-             priors=None, progress=False, processes=None, init_scale=1.0, store=True):
+             priors=None, progress=False, processes=None, init_scale=1.0, store=True,
+             coordinates="auto", prior="sampled", init="minima"):
     """Sample the posterior around a best fit with emcee.
 
     Parameters
     ----------
     result : FitResult
-        Best fit (its Parameters define free parameters, bounds and ties).
+        Best fit (its Parameters define free parameters, bounds and ties;
+        its ``minima`` the modes the walkers start in).
     nwalkers : int, optional
         Default max(32, 4 * n_free) (made even).
     nsteps : int
@@ -182,18 +444,28 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
         Steps discarded; default max(2 tau_max, nsteps/4).
     thin : int
     seed : int
-        Seeds both the initial ball and emcee's random state.
+        Seeds both the initial walkers and emcee's random state.
     priors : dict name -> callable, optional
+        Extra priors (densities in the fit parameters).
     progress : bool
         tqdm progress bar (silently off when tqdm is absent).
     processes : int, optional
         Run a multiprocessing pool of this many processes.
     init_scale : float
         Initial ball = init_scale x covariance (1e-3 x |value| without one).
+    coordinates : {"auto", "natural"}
+        Sampler coordinates (module docstring); "natural" samples the fit
+        parameters themselves.
+    prior : {"sampled", "parameters"}
+        Flat in the sampler coordinates (default) or in the fit parameters.
+    init : {"minima", "ball"}
+        Walkers shared among the known minima (default) or one ball around
+        the best fit.
 
     Returns
     -------
-    McmcResult (also stored as ``result.mcmc`` when ``store``).
+    McmcResult (also stored as ``result.mcmc`` when ``store``); its chain
+    is in the fit parameters.
     """
     import emcee
 
@@ -205,30 +477,18 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
     nwalkers = int(nwalkers or max(32, 4 * ndim))
     nwalkers += nwalkers % 2
     rng = np.random.default_rng(seed)
-    x0 = pv.vector(result.params)
-    cov = result.covariance_of(pv.free)
-    if cov is not None:
-        start = rng.multivariate_normal(x0, cov * init_scale ** 2, size=nwalkers)
-    else:
-        scale = 1e-3 * np.where(x0 != 0, np.abs(x0), 1.0)
-        start = x0 + scale * rng.standard_normal((nwalkers, ndim))
-    # keep walkers strictly inside bounds and at finite posterior
-    span = np.where(np.isfinite(pv.upper - pv.lower), pv.upper - pv.lower, np.inf)
-    margin = np.minimum(1e-9 * span, 1e-9 * np.maximum(np.abs(x0), 1.0))
-    start = np.clip(start, pv.lower + margin, pv.upper - margin)
-    for k in range(nwalkers):
-        tries = 0
-        while not math.isfinite(logp(start[k])) and tries < 100:
-            start[k] = x0 + 0.5 ** tries * (start[k] - x0)
-            tries += 1
+    coords = SamplerCoordinates.for_result(result, pv, coordinates)
+    target = SampledPosterior(logp, coords, prior)
+    start, centres = _initial_walkers(result, pv, coords, target, nwalkers, rng, init,
+                                      init_scale)
     pool = None
-    fn = logp
+    fn = target
     if processes and processes > 1:
         import multiprocessing
 
         # each worker receives the posterior once (initializer); emcee then
         # ships only the small _WorkerLogPosterior proxy with each batch
-        pool = multiprocessing.Pool(processes, initializer=_init_worker, initargs=(logp,))
+        pool = multiprocessing.Pool(processes, initializer=_init_worker, initargs=(target,))
         fn = _WorkerLogPosterior()
     try:
         sampler = emcee.EnsembleSampler(nwalkers, ndim, fn, pool=pool)
@@ -239,7 +499,8 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
         if pool is not None:
             pool.close()
             pool.join()
-    chain = sampler.get_chain()
+    chain_y = sampler.get_chain()
+    chain = coords.to_theta(chain_y)
     lp = sampler.get_log_prob()
     with np.errstate(invalid="ignore", divide="ignore"):  # constant chains give NaN tau
         tau = sampler.get_autocorr_time(tol=0)
@@ -247,10 +508,29 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
     if burn is None:
         burn = int(min(max(2 * tmax, nsteps / 4), nsteps - 1))
     res = McmcResult(chain, lp, pv.free, burn, thin, tau, sampler.acceptance_fraction, seed)
+    res.initial = coords.to_theta(start)
+    res.coordinates = coords.labels()
+    res.prior = prior if res.coordinates else "parameters"
+    post = chain_y[burn::thin]
+    res.rhat, res.ess = chain_diagnostics(post)
+    if len(centres) > 1 and coords.log_idx.size:
+        modes = _mode_assignment(post, centres, coords.log_idx)
+        res.mode_visits = [int(np.sum(modes == m)) for m in range(len(centres))]
+        res.mode_crossings = int(np.sum(modes[1:] != modes[:-1]))
     if res.short_chain:
         warnings.warn(f"MCMC chain of {nsteps} steps is shorter than {MIN_TAU_MULTIPLE} "
                       f"autocorrelation times (max tau = {tmax:.1f} steps); posterior "
                       "summaries may be unreliable", ShortChainWarning, stacklevel=2)
+    elif not res.diagnostics_ok:
+        warnings.warn(f"MCMC chain not converged: split-R-hat max {np.nanmax(res.rhat):.3f} "
+                      f"(want <= {RHAT_MAX}), bulk ESS min {np.nanmin(res.ess):.0f} "
+                      f"(want >= {ESS_MIN})", ModeMixingWarning, stacklevel=2)
+    if res.unmixed_modes:
+        warnings.warn(f"MCMC walkers never moved between the {len(centres)} minima the fit "
+                      "found (samples per minimum: "
+                      f"{res.mode_visits}); the modes' relative weight is not sampled -- run "
+                      "longer or compare the minima's statistics", ModeMixingWarning,
+                      stacklevel=2)
     if store:
         result.mcmc = res
     return res

@@ -31,7 +31,10 @@ __all__ = ["FitResult", "Interval", "level_label", "INFO_FLAGS"]
 #: Flags that inform without casting doubt on the final fit
 #: (``refit_after_profile``: a profile scan met a lower minimum and the fit
 #: was redone from there).
-INFO_FLAGS = {"refit_after_profile"}
+INFO_FLAGS = {"refit_after_profile", "multimodal"}
+#: Flag prefixes that inform (``gas_dust_degenerate:<element>``: the data
+#: do not separate the gas and dust columns of that element).
+INFO_PREFIXES = ("gas_dust_degenerate:",)
 
 
 def level_label(level: float) -> str:
@@ -47,6 +50,10 @@ class Interval:
     ``lower``/``upper`` are None when not found; ``lower_at_bound`` /
     ``upper_at_bound`` say the profile did not reach the threshold before
     the parameter's bound (then the bound is a limit, not an interval end).
+    ``pieces`` lists the (lower, upper) pieces of the set
+    {x : Delta S_prof(x) <= delta_stat} when the profile has more than one
+    dip (a union of intervals); ``lower``/``upper`` are then the outermost
+    ends.  Use :meth:`contains` to test a value against the pieces.
     """
 
     name: str
@@ -58,11 +65,22 @@ class Interval:
     lower_at_bound: bool = False
     upper_at_bound: bool = False
     notes: list = field(default_factory=list)
+    pieces: list = field(default_factory=list)
+
+    def contains(self, x) -> bool:
+        """True when ``x`` lies in the interval (in one of its pieces)."""
+        if self.pieces:
+            return any(lo <= x <= hi for lo, hi in self.pieces)
+        if self.lower is None or self.upper is None:
+            return False
+        return self.lower <= x <= self.upper
 
     def as_dict(self):
-        return {k: getattr(self, k) for k in ("name", "level", "delta_stat", "best", "lower",
-                                              "upper", "lower_at_bound", "upper_at_bound",
-                                              "notes")}
+        d = {k: getattr(self, k) for k in ("name", "level", "delta_stat", "best", "lower",
+                                           "upper", "lower_at_bound", "upper_at_bound",
+                                           "notes")}
+        d["pieces"] = [list(p) for p in self.pieces]
+        return d
 
 
 def _unit(unit_str):
@@ -102,6 +120,13 @@ class FitResult:
         self.derived = None
         self.ppc: dict | None = None
         self.meta: dict = {}
+        #: distinct minima of the multi-start fit (best first; see
+        #: :func:`~edgefit.inference.fit.fit_sightline`)
+        self.minima: list = []
+        self.multimodal_delta: float | None = None
+        self.n_starts = 1
+        #: profile curves by parameter name (:class:`~.intervals.ProfileCurve`)
+        self.profiles: dict = {}
 
     # -- basic numbers ---------------------------------------------------
     @property
@@ -132,11 +157,29 @@ class FitResult:
     def dof(self):
         return self.n_bins - self.n_free
 
+    @staticmethod
+    def is_info_flag(flag):
+        """True for informational flags (:data:`INFO_FLAGS`,
+        :data:`INFO_PREFIXES`)."""
+        return flag in INFO_FLAGS or flag.startswith(INFO_PREFIXES)
+
     @property
     def converged(self):
         """True when no convergence flag other than the informational ones
-        (:data:`INFO_FLAGS`) was raised."""
-        return not (set(self.flags) - INFO_FLAGS)
+        (:data:`INFO_FLAGS`, :data:`INFO_PREFIXES`) was raised."""
+        return all(self.is_info_flag(f) for f in self.flags)
+
+    @property
+    def multimodal(self):
+        """True when the multi-start fit met a second distinct minimum within
+        ``multimodal_delta`` of the best (see ``minima``)."""
+        return "multimodal" in self.flags
+
+    @property
+    def degenerate_elements(self):
+        """Elements whose gas and dust columns the data do not separate
+        (``gas_dust_degenerate:<element>`` flags)."""
+        return [f.split(":", 1)[1] for f in self.flags if f.startswith("gas_dust_degenerate:")]
 
     @property
     def values(self):
@@ -192,6 +235,19 @@ class FitResult:
                                                  if self.flags else "")
                                         if self.converged else
                                         "DOUBTFUL (" + ", ".join(self.flags) + ")"))
+        if len(self.minima) > 1:
+            lines.append(f"distinct minima from {self.n_starts} starts (Delta C from the best):")
+            for m in self.minima:
+                sizes = ", ".join(f"{n} = {m.params[n].value:.4g}" for n in self.free_names
+                                  if self.unit(n) == "um")
+                lines.append(f"  dC = {m.delta:8.3f}  ({sizes})")
+            if self.multimodal:
+                lines.append(f"  MULTIMODAL: a second minimum lies within dC = "
+                             f"{self.multimodal_delta:.2f} of the best")
+        for el in self.degenerate_elements:
+            lines.append(f"GAS/DUST NOT SEPARATED for {el}: the gas and dust columns are "
+                         f"degenerate (|correlation| >= 0.95); quote the total column and "
+                         "read the profile intervals, which reach the physical bounds")
         lines.append("")
         hdr = f"{'parameter':<28}{'value':>26}  {'unit':<18}{'status':<10}"
         lines.append(hdr)
@@ -207,8 +263,11 @@ class FitResult:
                 for lev, iv in sorted(by_level.items()):
                     lo = _fmt(iv.lower) + (" (bound)" if iv.lower_at_bound else "")
                     hi = _fmt(iv.upper) + (" (bound)" if iv.upper_at_bound else "")
+                    union = ("  pieces " + " U ".join(f"[{a:.5g}, {b:.5g}]"
+                                                      for a, b in iv.pieces)
+                             if len(iv.pieces) > 1 else "")
                     lines.append(f"  {n:<26} {level_label(lev):>4}%: [{lo}, {hi}]  "
-                                 f"dStat = {iv.delta_stat:.3f}"
+                                 f"dStat = {iv.delta_stat:.3f}" + union
                                  + (f"  note: {'; '.join(iv.notes)}" if iv.notes else ""))
         if self.mcmc is not None:
             lines.append("")
@@ -333,6 +392,11 @@ class FitResult:
                                "matrix": np.asarray(self.covariance).tolist()}
         if self.goodness:
             d["goodness"] = self.goodness
+        if self.minima:
+            d["minima"] = [m.as_dict(self.free_names) for m in self.minima]
+            d["multimodal"] = self.multimodal
+        if self.profiles:
+            d["profiles"] = {n: c.as_dict() for n, c in self.profiles.items()}
         if self.ppc:
             d["posterior_predictive"] = {k: v for k, v in self.ppc.items()
                                          if not isinstance(v, np.ndarray)}

@@ -10,8 +10,10 @@ from .continuum import (BlackbodyPhotons, LineGaussian, MulticolourDisk, PhotonP
                         ThermalBrems)
 from .absorption import GasEdge, IonLines, SmoothISM
 from .dust import DustEdge
+from .columns import ElementColumns, TotalAndFraction
 
 __all__ = ["ADDITIVE", "COMPONENTS", "MULTIPLICATIVE", "Component", "CompositeModel",
            "EnergyGrid", "ModelNode", "Param",
            "PhotonPowerLaw", "MulticolourDisk", "BlackbodyPhotons", "ThermalBrems",
-           "LineGaussian", "SmoothISM", "GasEdge", "IonLines", "DustEdge"]
+           "LineGaussian", "SmoothISM", "GasEdge", "IonLines", "DustEdge",
+           "ElementColumns", "TotalAndFraction"]

@@ -1,0 +1,212 @@
+"""Injection-recovery of gas and dust columns with the grain size free.
+
+The pieces of the coverage check run by ``benchmarks/validate_coverage.py
+--edges`` and by the test suite's reduced version: seeded draws of
+simulated edge sightlines (:func:`draw_tasks`), the fit and intervals of
+one sightline (:func:`run_one`, a plain function a process pool can call)
+and the coverage table (:func:`coverage_table`).  No file I/O here.
+
+Per sightline: :func:`~edgefit.inference.fit.fit_sightline` (global
+multi-start fit), profile intervals of the gas and dust columns; the same
+fit re-expressed in total/fraction form
+(:func:`~edgefit.inference.fit.reparametrise`) and profile intervals of
+the total column and the dust fraction (the depletion); optionally MCMC
+intervals of all four (sampled in total, fraction, log upper size).
+Interval hits use :meth:`~edgefit.inference.result.Interval.contains`
+(a union of pieces counts as such).
+"""
+from __future__ import annotations
+
+import math
+import time
+import warnings
+
+import numpy as np
+from scipy import stats as sps
+
+__all__ = ["draw_tasks", "run_one", "coverage_table", "QUANTITIES", "LEVELS",
+           "AMAX_VALUES"]
+
+#: Quantities whose coverage is tallied.
+QUANTITIES = ("gas", "dust", "total", "depletion")
+#: Confidence levels (the 1-sigma and the 95 % two-sided levels).
+LEVELS = (0.6827, 0.95)
+#: Upper grain sizes (µm) of the simulations.
+AMAX_VALUES = (0.1, 0.25, 0.5, 1.0)
+
+
+def draw_tasks(n, element, seed, *, nh=(0.5, 5.0), depletion=(0.6, 0.95),
+               amax=AMAX_VALUES, counts=(150.0, 600.0), arms=(1, 2), mcmc=False,
+               start=0, channel_angstrom=0.0025):
+    """``n`` seeded task dicts for :func:`run_one` (index ``start`` ...)."""
+    ss = np.random.SeedSequence([int(seed), sum(map(ord, element))])
+    rng = np.random.default_rng(ss)
+    tasks = []
+    for i in range(n):
+        tasks.append({"element": element, "index": start + i,
+                      "seed": int(rng.integers(2 ** 31 - 1)),
+                      "nh": float(rng.uniform(*nh)),
+                      "depletion": float(rng.uniform(*depletion)),
+                      "amax": float(rng.choice(amax)),
+                      "counts": float(rng.uniform(*counts)),
+                      "arms": int(rng.choice(arms)), "mcmc": bool(mcmc),
+                      "channel_angstrom": float(channel_angstrom)})
+    return tasks
+
+
+_MODELS = {}
+
+
+def _model(element):
+    from ._testing import edge_sightline_model
+
+    if element not in _MODELS:
+        _MODELS[element] = edge_sightline_model(element)
+    return _MODELS[element]
+
+
+def run_one(task):
+    """Simulate, fit and bound one sightline; returns a JSON-ready dict
+    with the truth, the intervals and the hits."""
+    from ..errors import EdgefitWarning
+    from ._testing import edge_sightline_truth, simulate_edge_sightline
+    from .fit import fit_sightline, reparametrise
+    from .intervals import profile_intervals
+
+    t0 = time.perf_counter()
+    el = task["element"]
+    model = _model(el)
+    truth, total = edge_sightline_truth(model, el, task["nh"], task["depletion"], task["amax"])
+    rng = np.random.default_rng(task["seed"])
+    datasets, truth = simulate_edge_sightline(
+        model, el, truth, rng, counts_per_channel=task["counts"], arms=task["arms"],
+        channel_angstrom=task.get("channel_angstrom", 0.0025))
+    dust_col = [n for n in truth if n.startswith("dust_") and n != "dust_amax"][0]
+    true_q = {"gas": truth["gas_col"], "dust": truth[dust_col], "total": total,
+              "depletion": task["depletion"]}
+    params = model.make_params()
+    # a user's start: typical values, the continuum level roughly known
+    # (N_H and the continuum level known to a factor ~1.5, as from a
+    # broad-band fit; columns and sizes not known)
+    srng = np.random.default_rng(task["seed"] + 1)
+    start = {"ism_nh": task["nh"] * float(srng.uniform(0.7, 1.4)), "gas_col": 0.3 * total,
+             dust_col: 0.5 * total, "dust_amax": 0.3, "pl_index": 2.0,
+             "pl_norm": float(srng.uniform(0.7, 1.4)) * truth["pl_norm"]}
+    for n, v in start.items():
+        params[n].set(value=v)
+    out = {"task": task, "truth": true_q, "intervals": {}, "hits": {}}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", EdgefitWarning)
+        res = fit_sightline(model, datasets, params=params, goodness=False, warn=False)
+        gd = profile_intervals(res, ["gas_col", dust_col], LEVELS, store=True)
+        tf = reparametrise(res, "total_fraction", gas="gas", dust="dust")
+        tname, fname = tf.model.total_param, tf.model.fraction_param
+        tfi = profile_intervals(tf, [tname, fname], LEVELS, store=True)
+    ivs = {"gas": gd["gas_col"], "dust": gd[dust_col], "total": tfi[tname],
+           "depletion": tfi[fname]}
+    for q, by_level in ivs.items():
+        for lev, iv in by_level.items():
+            key = f"{q}_{lev}"
+            out["intervals"][key] = {"lower": iv.lower, "upper": iv.upper,
+                                     "pieces": [list(p) for p in iv.pieces],
+                                     "lower_at_bound": iv.lower_at_bound,
+                                     "upper_at_bound": iv.upper_at_bound}
+            out["hits"][f"profile_{key}"] = bool(iv.contains(true_q[q]))
+    out["best"] = {"gas": res.values["gas_col"], "dust": res.values[dust_col],
+                   "total": tf.values[tname], "depletion": tf.values[fname],
+                   "amax": res.values["dust_amax"], "statistic": res.statistic}
+    out["flags"] = list(res.flags)
+    out["n_minima"] = len(res.minima)
+    if task.get("mcmc"):
+        out.update(_mcmc_hits(tf, true_q, tname, fname))
+    out["seconds"] = time.perf_counter() - t0
+    return out
+
+
+def _mcmc_hits(tf, true_q, tname, fname, nsteps=1500, nwalkers=32):
+    from ..errors import EdgefitWarning
+    from .mcmc import run_mcmc
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", EdgefitWarning)
+        mc = run_mcmc(tf, nwalkers=nwalkers, nsteps=nsteps, seed=1, store=False)
+    s = mc.flat_samples([tname, fname])
+    draws = {"total": s[:, 0], "depletion": s[:, 1], "gas": s[:, 0] * (1 - s[:, 1]),
+             "dust": s[:, 0] * s[:, 1]}
+    hits = {}
+    for q, x in draws.items():
+        for lev in LEVELS:
+            lo, hi = np.quantile(x, [0.5 - lev / 2, 0.5 + lev / 2])
+            hits[f"mcmc_{q}_{lev}"] = bool(lo <= true_q[q] <= hi)
+    return {"mcmc_hits": hits, "mcmc_rhat_max": float(np.nanmax(mc.rhat))
+            if getattr(mc, "rhat", None) is not None else None,
+            "mcmc_mixing_warning": bool(getattr(mc, "unmixed_modes", False))}
+
+
+def _band(n, p):
+    lo, hi = sps.binom.interval(0.99, n, p)
+    return lo / n, hi / n
+
+
+def coverage_table(records, methods=("profile", "mcmc")):
+    """Text table: per element, per upper size and overall, the coverage
+    of each quantity at each level for each interval method, with the 99 %
+    binomial band around the nominal level and a verdict (95 % >= 93 %;
+    68 % not below the band)."""
+    lines = []
+    by_el = {}
+    for r in records:
+        by_el.setdefault(r["task"]["element"], []).append(r)
+    for el, recs in sorted(by_el.items()):
+        groups = [(f"amax={a:g}", [r for r in recs if r["task"]["amax"] == a])
+                  for a in sorted({r["task"]["amax"] for r in recs})]
+        groups.append(("all", recs))
+        for method in methods:
+            key = "hits" if method == "profile" else "mcmc_hits"
+            if not any(key in r for r in recs):
+                continue
+            lines.append(f"{el} K/L edge, {method} intervals ({len(recs)} sightlines)")
+            hdr = f"  {'group':<12}{'n':>5}" + "".join(
+                f"{q[:5] + ' ' + str(round(100 * lev)):>11}" for q in QUANTITIES for lev in LEVELS)
+            lines.append(hdr)
+            for label, grp in groups:
+                grp = [r for r in grp if key in r]
+                if not grp:
+                    continue
+                row = f"  {label:<12}{len(grp):>5}"
+                for q in QUANTITIES:
+                    for lev in LEVELS:
+                        k = f"{method}_{q}_{lev}"
+                        h = sum(r[key][k] for r in grp)
+                        row += f"{100 * h / len(grp):>10.1f}%"
+                lines.append(row)
+            n = len([r for r in recs if key in r])
+            lo68, hi68 = _band(n, 0.6827)
+            verdicts = []
+            for q in QUANTITIES:
+                c68 = sum(r[key][f"{method}_{q}_0.6827"] for r in recs if key in r) / n
+                c95 = sum(r[key][f"{method}_{q}_0.95"] for r in recs if key in r) / n
+                ok = c95 >= 0.93 and c68 >= lo68
+                verdicts.append(f"{q}: {'ok' if ok else 'FAIL'}")
+            lines.append(f"  99 % binomial band for 68.27 % with n={n}: "
+                         f"[{100 * lo68:.1f}, {100 * hi68:.1f}] %; " + ", ".join(verdicts))
+            lines.append("")
+    return "\n".join(lines)
+
+
+def check_targets(records, method="profile"):
+    """{(element, quantity): (c68, c95, ok)} against the targets."""
+    out = {}
+    key = "hits" if method == "profile" else "mcmc_hits"
+    by_el = {}
+    for r in records:
+        if key in r:
+            by_el.setdefault(r["task"]["element"], []).append(r)
+    for el, recs in by_el.items():
+        n = len(recs)
+        lo68, _ = _band(n, 0.6827)
+        for q in QUANTITIES:
+            c68 = sum(r[key][f"{method}_{q}_0.6827"] for r in recs) / n
+            c95 = sum(r[key][f"{method}_{q}_0.95"] for r in recs) / n
+            out[(el, q)] = (c68, c95, bool(c95 >= 0.93 and c68 >= lo68))
+    return out
