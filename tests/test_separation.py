@@ -258,5 +258,11 @@ def test_mcmc_starts_in_every_minimum_and_warns_when_modes_not_crossed(global_fi
             assert np.any(np.abs(np.log(amax0 / m.params["dust_amax"].value)) < 0.1)
     assert mc.coordinates[0] == "ln(dust_amax)"
     assert mc.rhat is not None and mc.ess is not None
-    if mc.unmixed_modes:
-        assert any(issubclass(w.category, ModeMixingWarning) for w in caught)
+    n_modes = len([m for m in res.minima if m.delta <= res.multimodal_delta])
+    assert mc.mode_visits is not None and len(mc.mode_visits) == n_modes
+    assert sum(mc.mode_visits) == (mc.nsteps - mc.burn) * mc.nwalkers
+    # the warning is given exactly when no walker moved between minima
+    warned = any(issubclass(w.category, ModeMixingWarning) and "never moved" in str(w.message)
+                 for w in caught)
+    assert warned == (mc.mode_crossings == 0)
+

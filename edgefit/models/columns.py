@@ -52,6 +52,8 @@ class ElementColumns(Component):
 
     kind = MULTIPLICATIVE
     default_name = "element"
+    #: holds parameters only (figures skip it)
+    parameter_holder = True
     params = (
         Param(TOTAL, 20.0, 0.0, 1e7, "1e16 cm-2",
               "total column of the element, gas plus dust (N_gas + N_dust)"),

@@ -8,6 +8,9 @@
 * :func:`plot_transmission` -- transmission of each multiplicative
   component and of their product.
 * :func:`plot_corner` -- corner plot of the MCMC posterior.
+* :func:`plot_profiles` -- the profile-likelihood curves (Delta statistic
+  against each profiled parameter) with the levels, the intervals (all
+  pieces) and the parameter's value at the fit's other minima.
 
 Sizes suit print: one-column figures 3.5 in wide or two-column 7 in, fonts
 9--10 pt, labels with units.
@@ -20,7 +23,8 @@ from .._units import HC_KEV_ANGSTROM
 from ..stats import deviance_residuals, profiled_background_level
 from ..errors import ArgumentError, MissingDependencyError
 
-__all__ = ["plot_spectra", "plot_transmission", "plot_corner", "save_all", "save_configured"]
+__all__ = ["plot_spectra", "plot_transmission", "plot_corner", "plot_profiles", "save_all",
+           "save_configured"]
 
 _RC = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8, "xtick.labelsize": 8,
        "ytick.labelsize": 8, "lines.linewidth": 1.0}
@@ -168,13 +172,16 @@ def plot_transmission(result, energy_range=None, n=2000, unit="keV", figsize=(6.
         lo, hi = energy_range
     grid = EnergyGrid.linear(lo, hi, n)
     values = result.values
+    to_model = getattr(result.model, "model_values", None)
+    if to_model is not None:  # total/fraction form: the components' own columns
+        values = to_model(values)
     wave = unit.lower().startswith("a")
     x = HC_KEV_ANGSTROM / grid.mid if wave else grid.mid
     with plt.rc_context(_RC):
         fig, ax = plt.subplots(figsize=figsize, constrained_layout=True)
         prod = np.ones(len(grid))
         for comp in result.model.components():
-            if comp.kind == ADDITIVE:
+            if comp.kind == ADDITIVE or getattr(comp, "parameter_holder", False):
                 continue
             t = comp.evaluate(grid, values)
             prod = prod * t
@@ -209,6 +216,55 @@ def plot_corner(result, names=None, **kwargs):
     return corner.corner(samples, **kw)
 
 
+def plot_profiles(result, names=None, figsize=None):
+    """Profile curves stored by
+    :func:`~edgefit.inference.intervals.profile_intervals` (``result.profiles``):
+    Delta statistic against the parameter, one panel per parameter, with a
+    dashed line per confidence level, the interval pieces shaded at their
+    level, the best fit, the parameter at the fit's other distinct minima
+    (dotted) and any parameter bound the interval reaches."""
+    import matplotlib.pyplot as plt
+
+    from ..inference.result import level_label
+
+    names = names or list(result.profiles)
+    if not names:
+        raise ArgumentError("no profile curves: run profile_intervals first")
+    n = len(names)
+    with plt.rc_context(_RC):
+        fig, axes = plt.subplots(1, n, figsize=figsize or (3.4 * n, 2.8), squeeze=False,
+                                 constrained_layout=True)
+        for ax, name in zip(axes[0], names):
+            c = result.profiles[name]
+            top = max(c.thresholds.values()) * 1.6 if c.thresholds else 5.0
+            ax.plot(c.x, c.delta, "o-", ms=2.5, color="k", lw=1.0, label="profile")
+            colours = ["C0", "C1", "C2", "C3"]
+            for k, (lev, thr) in enumerate(sorted(c.thresholds.items())):
+                col = colours[k % len(colours)]
+                ax.axhline(thr, ls="--", color=col, lw=0.8,
+                           label=f"{level_label(lev)} % (Δ = {thr:.2f})")
+                iv = result.intervals.get(name, {}).get(lev)
+                if iv is not None:
+                    for a, b in (iv.pieces or [(iv.lower, iv.upper)]):
+                        if a is not None and b is not None:
+                            ax.axvspan(a, b, ymax=(thr + 0.05 * top) / (1.05 * top), color=col,
+                                       alpha=0.15, lw=0)
+            ax.axvline(c.best, color="k", lw=0.6)
+            for xm in c.minima_x:
+                ax.axvline(xm, color="0.4", ls=":", lw=0.8)
+            ax.set_ylim(-0.05 * top, top)
+            inside = c.x[c.delta <= top]
+            if inside.size:
+                span = inside.max() - inside.min()
+                pad = 0.08 * span if span > 0 else max(abs(c.best) * 0.1, 1e-3)
+                ax.set_xlim(inside.min() - pad, inside.max() + pad)
+            unit = result.unit(name)
+            ax.set_xlabel(f"{name} [{unit}]" if unit else name)
+            ax.set_ylabel("Δ statistic (profile)")
+        axes[0][0].legend(frameon=False, fontsize=7, loc="upper center")
+    return fig
+
+
 def save_all(result, folder, unit="keV", window=None, display_min_counts=20, fmt="png"):
     """Write spectra, transmission and (with MCMC) corner figures; returns
     their paths."""
@@ -224,6 +280,8 @@ def save_all(result, folder, unit="keV", window=None, display_min_counts=20, fmt
             ("transmission", plot_transmission(result, unit=unit))]
     if result.mcmc is not None:
         figs.append(("corner", plot_corner(result)))
+    if getattr(result, "profiles", None):
+        figs.append(("profiles", plot_profiles(result)))
     for name, fig in figs:
         p = folder / f"{name}.{fmt}"
         fig.savefig(p, dpi=150)

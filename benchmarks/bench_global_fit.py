@@ -1,0 +1,77 @@
+"""Benchmark: the global (multi-start) fit and a two-parameter profile
+against the single-start fit, on the four-spectrum sightline of
+``bench_fit.py`` (the same model, data, free parameters and start).
+
+Prints times measured side by side in one run (this thread's CPU time,
+steadier than the wall clock on a shared machine; --wall for the wall
+clock) and their ratios to the single-start fit (target: each <= 10x).
+No assertions.
+
+Data: invented, SIMULATED values (no real source).  Run:
+    python benchmarks/bench_global_fit.py [--repeat 1]
+"""
+from __future__ import annotations
+
+import argparse
+import time
+import warnings
+
+from bench_fit import TRUTH, build_model, make_datasets, make_grid_probe
+
+from edgefit.errors import EdgefitWarning
+from edgefit.inference import JointLikelihood, fit_sightline, profile_intervals
+
+
+def _params(model, datasets):
+    like = JointLikelihood(model, datasets)
+    params = like.make_params()
+    for name in ("gas_si_shift", "dust_index", "dust_shift"):
+        params[name].vary = True
+    start = {"ism_nh": 1.5, "gas_si_col": 10.0, "dust_col": 20.0, "dust_amax": 0.2,
+             "dust_index": 3.3, "continuum_index": 2.0, "continuum_norm": 1.0}
+    for k, v in start.items():
+        params[k].value = v
+    return params
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--repeat", type=int, default=1)
+    ap.add_argument("--wall", action="store_true", help="wall clock instead of CPU time")
+    args = ap.parse_args(argv)
+    clock = time.perf_counter if args.wall else time.thread_time
+    model = build_model()
+    model.evaluate(make_grid_probe(), TRUTH)  # build/load dust tables once
+    datasets = make_datasets(model)
+    params = _params(model, datasets)
+    times = {"single": [], "global": [], "profile": []}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", EdgefitWarning)
+        for _ in range(args.repeat):
+            t0 = clock()
+            single = fit_sightline(model, datasets, params=params, starts="single",
+                                   goodness=False)
+            times["single"].append(clock() - t0)
+            t0 = clock()
+            best = fit_sightline(model, datasets, params=params, goodness=False)
+            times["global"].append(clock() - t0)
+            t0 = clock()
+            profile_intervals(best, ["gas_si_col", "dust_col"], [0.6827])
+            times["profile"].append(clock() - t0)
+    t1 = min(times["single"])
+    print(f"single-start fit: {t1:.2f} s, C = {single.statistic:.3f}, "
+          f"dust_amax = {single.values['dust_amax']:.3g}")
+    tg = min(times["global"])
+    print(f"global fit ({best.n_starts} starts): {tg:.2f} s = {tg / t1:.1f}x the single fit "
+          f"(target <= 10x), C = {best.statistic:.3f}, {len(best.minima)} distinct minima, "
+          f"flags: {', '.join(best.flags) or 'none'}")
+    tp = min(times["profile"])
+    print(f"two-parameter profile (gas_si_col, dust_col at 68 %): {tp:.2f} s = "
+          f"{tp / t1:.1f}x the single fit (target <= 10x)")
+    for n in ("gas_si_col", "dust_col"):
+        iv = best.intervals[n][0.6827]
+        print(f"   {n:<11} 68 % [{iv.lower}, {iv.upper}]  (simulated truth {TRUTH[n]})")
+
+
+if __name__ == "__main__":
+    main()
