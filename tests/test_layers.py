@@ -71,3 +71,35 @@ def test_imports_point_down(tmp_path):
     (tmp_path / "physics").mkdir()
     (tmp_path / "physics" / "bad.py").write_text("def f():\n    from ..inference import fit\n")
     assert len(upward_imports(tmp_path)) == 1
+
+
+def _numba_imports_outside_builders(root=ROOT):
+    """numba imports anywhere but edgefit/_jit.py and the kernel builders
+    (functions decorated with ``_jit.kernels``)."""
+    out = []
+    for path in sorted(root.rglob("*.py")):
+        rel = path.relative_to(root).as_posix()
+        if rel == "_jit.py":
+            continue
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        allowed = set()
+        for fn in ast.walk(tree):
+            if isinstance(fn, ast.FunctionDef) and any(
+                    ast.unparse(d) in ("_jit.kernels", "kernels") for d in fn.decorator_list):
+                allowed.update(id(n) for n in ast.walk(fn))
+        for node in ast.walk(tree):
+            mods = ([a.name for a in node.names] if isinstance(node, ast.Import) else
+                    [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            if any(m.split(".")[0] == "numba" for m in mods) and id(node) not in allowed:
+                out.append(f"{rel}:{node.lineno}")
+    return out
+
+
+def test_numba_is_loaded_only_through_jit(tmp_path):
+    """One numba loader (edgefit/_jit.py): other modules compile their
+    kernels in a builder decorated with ``@_jit.kernels``."""
+    assert _numba_imports_outside_builders() == []
+    (tmp_path / "rogue.py").write_text("def f():\n    import numba\n    return numba\n")
+    (tmp_path / "fine.py").write_text("@_jit.kernels\ndef k():\n"
+                                      "    from numba.extending import register_jitable\n")
+    assert _numba_imports_outside_builders(tmp_path) == ["rogue.py:2"]
