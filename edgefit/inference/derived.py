@@ -24,8 +24,10 @@ each component of the model:
   ``phase = "gas"`` or ``phase = "dust"`` and an ``element`` (e.g. "Si"),
   and its ``derived`` dict has an element column
   in cm^-2 under :data:`~edgefit.models.base.COLUMN_KEY` (``col_cm2``); several components of one
-  phase add up.  No name is guessed: a component without ``phase`` never
-  enters a depletion.
+  phase add up.  A component carrying several elements (class attributes
+  ``phase`` and ``elements``) states each element's column under
+  :func:`~edgefit.models.base.element_column_key` (``col_Si_cm2`` ...).  No name is guessed: a
+  component without ``phase`` never enters a depletion.
 """
 from __future__ import annotations
 
@@ -34,7 +36,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..models.base import ADDITIVE, COLUMN_KEY
+from ..models.base import ADDITIVE, COLUMN_KEY, element_column_key
 from ..stats import ONE_SIGMA
 
 __all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "COLUMN_KEY",
@@ -158,6 +160,14 @@ def _evaluate_all(model, values, refs):
         if element and phase and COLUMN_KEY in der:
             columns.setdefault(element, {}).setdefault(phase, 0.0)
             columns[element][phase] += float(der[COLUMN_KEY][0])
+        # a component carrying several elements (one grain population across
+        # edges) states each one's column under element_column_key(element)
+        multi = (getattr(comp, "elements", None) or ()) if phase else ()
+        for el in multi:
+            key = element_column_key(el)
+            if key in der:
+                columns.setdefault(el, {}).setdefault(phase, 0.0)
+                columns[el][phase] += float(der[key][0])
     for element, by_phase in columns.items():
         if "gas" in by_phase and "dust" in by_phase:
             tot = by_phase["gas"] + by_phase["dust"]

@@ -97,6 +97,13 @@ class JointLikelihood:
             raise ParameterClashError(f"model parameter(s) {sorted(clash)} clash with the "
                                       "cross-normalisation constants; rename the component")
         self.n_bins = int(sum(d.n_groups for d in self.datasets))
+        # components that must see the whole model and every spectrum's
+        # energy range (e.g. a dust population tied across edges) check them
+        grids = [d.grid for d in self.datasets]
+        for comp in model.components():
+            check = getattr(comp, "validate", None)
+            if callable(check):
+                check(model, grids)
         self._plan_evaluations()
         self.n_bad_evaluations = 0
         self.n_evaluations = 0

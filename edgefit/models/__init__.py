@@ -11,9 +11,10 @@ from .continuum import (BlackbodyPhotons, LineGaussian, MulticolourDisk, PhotonP
 from .absorption import GasEdge, IonLines, SmoothISM
 from .dust import DustEdge
 from .columns import ElementColumns, TotalAndFraction
+from .multi_edge import MultiEdgeDust, tied_edge_model
 
 __all__ = ["ADDITIVE", "COMPONENTS", "MULTIPLICATIVE", "Component", "CompositeModel",
            "EnergyGrid", "ModelNode", "Param",
            "PhotonPowerLaw", "MulticolourDisk", "BlackbodyPhotons", "ThermalBrems",
            "LineGaussian", "SmoothISM", "GasEdge", "IonLines", "DustEdge",
-           "ElementColumns", "TotalAndFraction"]
+           "ElementColumns", "TotalAndFraction", "MultiEdgeDust", "tied_edge_model"]

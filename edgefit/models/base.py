@@ -37,7 +37,7 @@ from ..params import Param
 
 __all__ = ["EnergyGrid", "Param", "ModelNode", "Component", "CompositeModel",
            "CompiledModel", "COMPONENTS", "register_component", "MULTIPLICATIVE",
-           "ADDITIVE", "COLUMN_KEY"]
+           "ADDITIVE", "COLUMN_KEY", "element_column_key"]
 
 MULTIPLICATIVE = "multiplicative"
 ADDITIVE = "additive"
@@ -46,6 +46,15 @@ ADDITIVE = "additive"
 #: density of its ``element`` in cm^-2 (gas, dust or any other phase);
 #: depletions are formed from it.
 COLUMN_KEY = "col_cm2"
+
+
+def element_column_key(element) -> str:
+    """Key of the ``derived()`` entry holding the column (cm^-2) of
+    ``element`` in a component that carries several elements (class
+    attributes ``phase`` and ``elements``, e.g.
+    :class:`~edgefit.models.multi_edge.MultiEdgeDust`): ``col_Si_cm2``."""
+    return f"col_{element}_cm2"
+
 
 #: Registry of component classes by their ``registry_name``; used by the
 #: generic tests and by the safe configuration-file parser.
