@@ -19,7 +19,9 @@ from ..physics.atomic import EDGE_OFFSET_KEV
 
 __all__ = ["toy_response", "ToyEdgeAbsorber", "toy_model", "TOY_TRUTH", "simulate_counts",
            "EDGE_FIT_RANGES", "edge_sightline_model", "edge_sightline_truth",
-           "simulate_edge_sightline"]
+           "simulate_edge_sightline",
+           "FOUR_EDGE_ARMS", "FOUR_EDGE_BANDS", "four_edge_truth", "four_edge_model",
+           "four_edge_responses", "four_edge_spectra"]
 
 
 def toy_response(emin=1.6, emax=2.2, n_channels=900, n_energy=None, fwhm_kev=None,
@@ -165,3 +167,79 @@ def simulate_edge_sightline(model, element, values, rng, *, counts_per_channel=3
                                  meta={"object": f"SIM-{element}-EDGE (simulated)"})
         out.append(Dataset(spec, ranges=(lo, hi), label=f"arm {k + 1}"))
     return out, values
+
+
+# ---------------------------------------------------------------------------
+# a simulated four-edge sightline (O K, Fe L, Mg K, Si K) for the tied-edge
+# dust component: invented values throughout
+# ---------------------------------------------------------------------------
+#: Simulated arms: (label, wavelength range Angstrom, FWHM Angstrom, channel
+#: width Angstrom, effective area cm^2) -- invented, grating-like.
+FOUR_EDGE_ARMS = (
+    ("short_a", (5.6, 10.6), 0.012, 0.01, 20.0),
+    ("short_b", (5.6, 10.6), 0.023, 0.01, 35.0),
+    ("long", (15.0, 25.0), 0.025, 0.02, 40.0),
+)
+#: Fit band (Angstrom) around each edge for single-edge fits.
+FOUR_EDGE_BANDS = {"Si": (6.3, 7.3), "Mg": (8.9, 10.3), "Fe": (16.3, 18.8), "O": (21.0, 24.8)}
+
+
+def four_edge_truth(nh=0.5, dust_si=6.5, amax=0.25, norm=20.0, index=1.8,
+                    abundances="wilms00"):
+    """Invented truth of a four-edge olivine sightline: N_H (1e22 cm^-2),
+    the olivine dust column (Si in grains, 1e16 cm^-2; Mg, Fe, Si, O in
+    grains stand 1:1:1:4) and each element's gas column chosen so that
+    gas + dust equals the abundance table's value times N_H (so single-edge
+    models with the smooth component counting the other elements are
+    exact).  Returns (full parameter values of :func:`four_edge_model`,
+    {element: (gas, dust) in 1e16 cm^-2})."""
+    from ..physics import abundances as _ab
+
+    table = _ab.abundances(abundances)
+    stoich = {"Mg": 1.0, "Fe": 1.0, "Si": 1.0, "O": 4.0}
+    cols = {}
+    for el, c in stoich.items():
+        total = table[el] * nh * 1e22 / 1e16
+        dust = c * dust_si
+        if not dust < total:
+            raise ValueError(f"dust {el} {dust} exceeds the total {total}")
+        cols[el] = (total - dust, dust)
+    values = {"ism_nh": nh, "grains_col": dust_si, "grains_amax": amax,
+              "pl_norm": norm, "pl_index": index}
+    for el, (gas, _) in cols.items():
+        values[f"gas_{el.lower()}_col"] = gas
+    return values, cols
+
+
+def four_edge_model(**dust_kw):
+    """SmoothISM(exclude O, Mg, Si, Fe) x one GasEdge per element x olivine
+    MultiEdgeDust ("grains", upper size free) x PhotonPowerLaw("pl")."""
+    from ..models.continuum import PhotonPowerLaw
+    from ..models.multi_edge import tied_edge_model
+
+    return tied_edge_model(PhotonPowerLaw("pl"), materials="olivine",
+                           elements=("O", "Fe", "Mg", "Si"), **dust_kw)
+
+
+def four_edge_responses(arms=FOUR_EDGE_ARMS):
+    """Gaussian grating-like responses of :data:`FOUR_EDGE_ARMS`: channels
+    of equal width in wavelength, model bins of the same width over a range
+    0.1 Angstrom wider at each end."""
+    from .._units import HC_KEV_ANGSTROM
+    from ..data import gaussian_response
+
+    out = []
+    for _, (lo, hi), fwhm, dlam, area in arms:
+        chan = np.arange(lo, hi + 0.5 * dlam, dlam)
+        lam = np.arange(lo - 0.1, hi + 0.1 + 0.5 * dlam, dlam)
+        out.append(gaussian_response(HC_KEV_ANGSTROM / lam[::-1], HC_KEV_ANGSTROM / chan[::-1],
+                                     fwhm, area, fwhm_unit="angstrom"))
+    return out
+
+
+def four_edge_spectra(model, values, responses, exposure, rng):
+    """One Poisson spectrum per response of ``model`` at ``values``."""
+    from ..data import simulate_spectrum
+
+    return [simulate_spectrum(model.evaluate(r.grid, values), r, exposure, rng)
+            for r in responses]
