@@ -111,9 +111,9 @@ def one_sightline(i, seed):
         m = (SmoothISM(exclude=[el]) * GasEdge(element=el, edge=region_for(el)[0]) *
              DustEdge(material="olivine", element=el) * PhotonPowerLaw("pl"))
         start = {k: v for k, v in truth.items() if k in ("ism_nh", gas, "pl_norm", "pl_index")}
-        start.update({"dust_ndust": cols[el][1], "dust_amax": truth["grains_amax"]})
+        start.update({"dust_col": cols[el][1], "dust_amax": truth["grains_amax"]})
         r = _fit(m, dsz, start)
-        names = [gas, "dust_ndust", "dust_amax"]
+        names = [gas, "dust_col", "dust_amax"]
         ivs = profile_intervals(r, names, [LEVEL])
         alone = {"flags": list(r.flags)}
         for n in names:
@@ -162,7 +162,7 @@ def report(results):
             alone, tied = [], []
             for r in results:
                 truth = r["columns"][el][0 if phase == "gas" else 1]
-                a = r["alone"][el][gas if phase == "gas" else "dust_ndust"]
+                a = r["alone"][el][gas if phase == "gas" else "dust_col"]
                 t = r["tied"][gas] if phase == "gas" else [c * x for x in r["tied"]["grains_col"][:2]]
                 alone.append((a[0], a[1], truth))
                 tied.append((t[0], t[1], truth))

@@ -20,7 +20,7 @@ import pytest
 import xraydb
 
 from edgefit.dust import SizeGrid
-from edgefit.errors import ModelError
+from edgefit.errors import ConfigError, ModelError
 from edgefit.models import (COMPONENTS, DustEdge, EnergyGrid, GasEdge, MultiEdgeDust,
                             PhotonPowerLaw, SmoothISM)
 
@@ -53,7 +53,7 @@ def test_olivine_columns_stand_1_1_1_4(col, amax):
         comp = MultiEdgeDust(materials="olivine", column_element=ref, size_grid=SIZES,
                              col=col, amax=amax)
         d = comp.derived()
-        n = {el: d[f"column_{el}"][0] for el in ("Mg", "Fe", "Si", "O")}
+        n = {el: d[f"col_{el}_cm2"][0] for el in ("Mg", "Fe", "Si", "O")}
         base = col * 1e16 / (4.0 if ref == "O" else 1.0)
         for el, c in {"Mg": 1, "Fe": 1, "Si": 1, "O": 4}.items():
             assert n[el] == pytest.approx(c * base, rel=1e-12, abs=0)
@@ -83,7 +83,7 @@ def test_mixture_columns_equal_hand_sums():
               "Fe": n["olivine"] + n["iron"], "O": 4 * n["olivine"] + 3 * n["pyroxene"]}
     d = comp.derived()
     for el, val in expect.items():
-        assert d[f"column_{el}"][0] == pytest.approx(val, rel=1e-4, abs=0), el
+        assert d[f"col_{el}_cm2"][0] == pytest.approx(val, rel=1e-4, abs=0), el
     for k in f:
         assert d[f"fraction_{k}"][0] == pytest.approx(f[k], rel=1e-12, abs=0)
     assert d["dust_mass_column"][0] == pytest.approx(dmass / N_A, rel=1e-4, abs=0)
@@ -110,7 +110,7 @@ def test_one_edge_reduces_to_dust_edge(element, lo, hi):
     grid = EnergyGrid.linear(lo, hi, 400)
     for amax, fin in ((0.05, 0.0), (0.4, 0.0), (1.5, 0.3)):
         single = DustEdge(material="olivine", element=element, size_grid=SIZES, amax=amax,
-                          fin=fin, **{"ndust": 20.0})
+                          fin=fin, col=20.0)
         tied = MultiEdgeDust(materials="olivine", elements=[element], column_element=element,
                              size_grid=SIZES, col=20.0, amax=amax, fin=fin)
         a, b = single(grid), tied(grid)
@@ -151,6 +151,9 @@ def test_edge_outside_every_spectrum_and_double_counting_refused(small_response)
     twice = SmoothISM(exclude=[]) * GasEdge(element="Si") * dust_si * PhotonPowerLaw("pl")
     with pytest.raises(ModelError, match="elements: the smooth component 'ism' still counts Si"):
         JointLikelihood(twice, [ds])
+    no_gas = SmoothISM(exclude=["Si"]) * dust_si * PhotonPowerLaw("pl")
+    with pytest.raises(ModelError, match="elements: Si has no gas component"):
+        JointLikelihood(no_gas, [ds])
 
 
 @pytest.mark.slow
@@ -194,7 +197,68 @@ def test_four_edge_sightline_recovered_within_95_percent():
     der = derived_quantities(res, max_draws=50)
     for el in ("O", "Fe", "Mg", "Si"):
         gas = der[f"gas_{el.lower()}_col_cm2"].best
-        dust = der[f"grains_column_{el}"].best
-        assert der[f"total_{el}"].best == pytest.approx(gas + dust, rel=1e-12, abs=0)
+        dust = der[f"grains_col_{el}_cm2"].best
+        assert der[f"total_column_{el}"].best == pytest.approx(gas + dust, rel=1e-12, abs=0)
         assert der[f"depletion_{el}"].best == pytest.approx(dust / (gas + dust), rel=1e-12,
                                                             abs=0)
+
+
+def test_configuration_builds_the_tied_model_and_names_bad_keys():
+    # the [model] table of a sightline configuration (structured, no
+    # expressions): a mixture with fractions as a list, tied elements, the
+    # smooth component leaving them out
+    from edgefit.analysis.config import build_model
+
+    def table(**grain_options):
+        opts = {"materials": ["olivine", "iron"], "elements": ["Fe", "Si"],
+                "fractions": [0.8, 0.2], "size_grid": None}
+        opts.update(grain_options)
+        opts = {k: v for k, v in opts.items() if v is not None}
+        return {"absorbers": ["ism", "gas_fe", "gas_si", "grains"], "emission": ["pl"],
+                "components": {
+                    "ism": {"type": "smooth_ism", "options": {"exclude": ["Fe", "Si"]}},
+                    "gas_fe": {"type": "gas_edge", "options": {"element": "Fe", "edge": "L3"}},
+                    "gas_si": {"type": "gas_edge", "options": {"element": "Si"}},
+                    "grains": {"type": "multi_edge_dust", "options": opts,
+                               "params": {"col": 5.0, "amax": {"value": 0.3, "min": 0.01}}},
+                    "pl": {"type": "photon_power_law"}}}
+
+    model, comps, settings = build_model(table(), "x.toml")
+    grains = comps["grains"]
+    assert isinstance(grains, MultiEdgeDust)
+    assert grains.elements == ("Fe", "Si")
+    assert grains.values["frac_iron"] == 0.2 and grains.values["col"] == 5.0
+    assert "grains_amax" in settings and "grains_frac_iron" in model.parameters()
+    for options, msg in (({"elements": ["Fe", "Ca"]}, "elements: Ca is in none"),
+                         ({"fractions": [0.8, 0.3]}, "fractions: one per material must sum"),
+                         ({"fractions": [1.0]}, "fractions: a list needs one fraction per"),
+                         ({"materials": ["olivine", "unobtainium"]}, "materials:")):
+        with pytest.raises(ConfigError) as err:
+            build_model(table(**options), "x.toml")
+        text = str(err.value)
+        assert text.startswith("x.toml: model.components.grains: ") and msg in text, text
+
+
+def test_readme_tied_edge_example_builds_the_documented_model():
+    # the README's tied-edge block, up to the fit (which needs spectra)
+    import re
+    from pathlib import Path
+
+    from edgefit.models import tied_edge_model
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    block = next(b for b in re.findall(r"```python\n(.*?)```", text, re.S)
+                 if "MultiEdgeDust" in b)
+    setup = block.split("result = ")[0]
+    ns = {}
+    exec(compile(setup, "README.md", "exec"), ns)
+    model = ns["model"]
+    names = set(model.parameters())
+    for n in ("grains_col", "grains_frac_iron", "grains_amax", "gas_o_col", "gas_fe_col",
+              "gas_mg_col", "gas_si_col", "ism_nh"):
+        assert n in names
+    assert model.component("grains").values["frac_iron"] == pytest.approx(0.1, rel=1e-12)
+    # tied_edge_model builds the same product (same parameter names)
+    other = tied_edge_model(PhotonPowerLaw("pl"), materials=["olivine", "iron"],
+                            elements=["O", "Fe", "Mg", "Si"])
+    assert set(other.parameters()) == names

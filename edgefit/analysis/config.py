@@ -56,7 +56,7 @@ __all__ = ["SightlineConfig", "load_config", "config_from_dict", "model_terms",
 
 #: Modules whose import registers component types (absent ones are skipped).
 COMPONENT_MODULES = ("edgefit.models.continuum", "edgefit.models.absorption",
-                     "edgefit.models.dust")
+                     "edgefit.models.dust", "edgefit.models.multi_edge")
 
 _TOP_KEYS = {"sightline", "spectrum", "model", "fit", "errors", "mcmc", "derived",
              "goodness", "plots"}

@@ -202,7 +202,9 @@ def four_edge_truth(nh=0.5, dust_si=6.5, amax=0.25, norm=20.0, index=1.8,
         total = table[el] * nh * 1e22 / 1e16
         dust = c * dust_si
         if not dust < total:
-            raise ValueError(f"dust {el} {dust} exceeds the total {total}")
+            from ..errors import ArgumentError
+
+            raise ArgumentError(f"dust {el} {dust} exceeds the total {total}")
         cols[el] = (total - dust, dust)
     values = {"ism_nh": nh, "grains_col": dust_si, "grains_amax": amax,
               "pl_norm": norm, "pl_index": index}

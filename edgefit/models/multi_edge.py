@@ -45,8 +45,9 @@ tied element this component is exactly ``DustEdge(material, element=Z)``;
 with every element of the material tied nothing is subtracted.
 :meth:`MultiEdgeDust.validate` (called by
 :class:`~edgefit.inference.likelihood.JointLikelihood`) refuses a model
-whose smooth component still counts a tied element, and a tied element
-whose edge lies outside every spectrum's energy range.
+whose smooth component still counts a tied element, a tied element
+without a gas component, and a tied element whose edge lies outside every
+spectrum's energy range.
 
 Parameters of the component (full names ``<name>_<param>``)
 -----------------------------------------------------------
@@ -128,10 +129,12 @@ class MultiEdgeDust(Component):
     column_element : str, optional
         Element whose dust column is the parameter ``col`` (default Si if
         the mixture holds Si, else the first of ``elements``).
-    fractions : dict, optional
-        Initial mass fractions {material name: fraction}: either one per
+    fractions : dict or sequence, optional
+        Initial mass fractions: {material name: fraction}, either one per
         material (then they must sum to one) or for the materials after
-        the first (their sum at most one).
+        the first (their sum at most one); or a list with one fraction per
+        material, in order, summing to one (the form a configuration file
+        uses).
     sizes : str or SizeDistribution
         Size-distribution family name (its parameters become fit
         parameters) or a fixed :class:`~edgefit.dust.sizes.TabulatedSizes`.
@@ -190,7 +193,7 @@ class MultiEdgeDust(Component):
         for el in elements:
             try:
                 sym = atomic.element_symbol(el)
-            except Exception as exc:  # unknown symbol
+            except PhysicsDataError as exc:  # unknown symbol
                 raise ModelError(f"elements: {exc}") from exc
             if sym not in present:
                 raise ModelError(f"elements: {sym} is in none of the materials "
@@ -250,6 +253,12 @@ class MultiEdgeDust(Component):
 
     def _initial_fractions(self, fractions):
         by_name = {m.name: m for m in self.materials}
+        if not isinstance(fractions, dict):
+            vals = list(fractions)
+            if len(vals) != len(self.materials):
+                raise ModelError(f"fractions: a list needs one fraction per material "
+                                 f"{list(by_name)}, got {len(vals)}")
+            fractions = dict(zip(by_name, vals))
         unknown = set(fractions) - set(by_name)
         if unknown:
             raise ModelError(f"fractions: {sorted(unknown)} are not among the materials "
@@ -472,8 +481,9 @@ class MultiEdgeDust(Component):
     # -- checks against the data and the rest of the model ----------------------
     def validate(self, model, grids):
         """Refuse a tied element whose edge lies outside every energy grid
-        in ``grids`` (one per spectrum), and a smooth component that still
-        counts a tied element (when ``count_once``)."""
+        in ``grids`` (one per spectrum) or that has no gas component in
+        ``model``, and a smooth component that still counts a tied element
+        (when ``count_once``)."""
         spans = [(float(g.lo[0]), float(g.hi[-1])) for g in grids]
         for el, e0 in self.edge_energies().items():
             if not any(lo <= e0 <= hi for lo, hi in spans):
@@ -481,6 +491,13 @@ class MultiEdgeDust(Component):
                 raise ModelError(f"{self.name}: elements: the {el} edge at {e0:.4g} keV lies "
                                  f"outside every spectrum's range ({rng} keV); drop {el} from "
                                  "the tied elements or add a spectrum that covers it")
+        gas = {getattr(c, "element", None) for c in model.components()
+               if getattr(c, "phase", None) == "gas"}
+        lacking = [el for el in self.elements if el not in gas]
+        if lacking:
+            raise ModelError(f"{self.name}: elements: {', '.join(lacking)} has no gas component; "
+                             f"add GasEdge(element=...) for it (its column may be fixed at 0) "
+                             "or drop it from the tied elements")
         if self.count_once:
             from .absorption import SmoothISM
 
