@@ -84,6 +84,7 @@ class SimulationSetup:
     group_min_counts: int | None = None
     sections: dict = field(default_factory=dict)
     path: Path | None = None
+    param_settings: dict = field(default_factory=dict)
 
 
 def _number(value, path, key, positive=True):
@@ -184,7 +185,8 @@ def simulation_from_dict(data, path=None, seed=None):
                            exposure=exposure, background_rate=bkg_rate,
                            background_area=bkg_area, seed=int(seed_val),
                            fit_range=fit_range, stem=stem, group_min_counts=gmc,
-                           sections=sections, path=Path(path) if path else None)
+                           sections=sections, path=Path(path) if path else None,
+                           param_settings=settings)
 
 
 def load_simulation(path, seed=None):
