@@ -299,16 +299,18 @@ def exposure_table(forecast, exposures):
 
     unit = u.Unit(forecast.targets.unit) if forecast.targets.unit else u.dimensionless_unscaled
     rows = {k: [] for k in ("sigma_gas", "sigma_dust", "sigma_total", "correlation",
-                            "sigma_gas_size_known", "sigma_dust_size_known")}
+                            "sigma_gas_size_known", "sigma_dust_size_known",
+                            "sigma_total_size_known")}
     for t in exposures:
         sg, sd, st, rho = forecast.columns(t)
         rows["sigma_gas"].append(sg)
         rows["sigma_dust"].append(sd)
         rows["sigma_total"].append(st)
         rows["correlation"].append(rho)
-        sgk, sdk, _, _ = forecast.columns(t, known=forecast.targets.size_params)
+        sgk, sdk, stk, _ = forecast.columns(t, known=forecast.targets.size_params)
         rows["sigma_gas_size_known"].append(sgk)
         rows["sigma_dust_size_known"].append(sdk)
+        rows["sigma_total_size_known"].append(stk)
     tab = Table()
     tab["exposure"] = np.asarray(exposures, float) * u.s
     for k, v in rows.items():
