@@ -102,7 +102,7 @@ def _settings_params(setup, n_data):
 
 def _apply_settings(setup, params):
     """Bounds, fixed flags and ties of the configuration; values at the truth."""
-    from ..config import apply_parameter_settings
+    from .config import apply_parameter_settings
 
     if setup.param_settings:
         params = apply_parameter_settings(params, setup.param_settings, setup.model, setup.path)
