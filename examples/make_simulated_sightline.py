@@ -1,17 +1,17 @@
-"""Make the SIMULATED example sightline "SIM-J1746" (an invented source).
+"""Make the SIMULATED example sightline "Amber Loom" (an invented source).
 
 Everything here is made up for demonstration: the source name, its
 columns (N_H 2.2e22 cm^-2; Si 12e16 cm^-2 in gas and 28e16 cm^-2 in
 olivine grains, depletion 0.70), grain sizes, ion columns, continuum,
 instrument and exposure.  The scenario, its truth and the writer live in
 :mod:`edgefit.demo` (the same files ``edgefit demo`` fits); this script
-writes them into ``examples/sim_j1746/``:
+writes them into ``examples/amber_loom/``:
 
-* ``sim_j1746_<hig|med>_<m1|p1>.pha`` -- four spectra: two invented
+* ``amber_loom_<hig|med>_<m1|p1>.pha`` -- four spectra: two invented
   gratings (FWHM 0.012 and 0.023 Angstrom) x the -1 and +1 orders, 150 ks,
   each with its ``.rmf``, ``.arf`` and ``_bkg.pha`` background;
-* ``sim_j1746.toml`` -- the configuration that fits them
-  (``edgefit fit examples/sim_j1746/sim_j1746.toml``);
+* ``amber_loom.toml`` -- the configuration that fits them
+  (``edgefit fit examples/amber_loom/amber_loom.toml``);
 * ``truth.json`` -- the invented parameter values used.
 
 Run:  python examples/make_simulated_sightline.py
@@ -22,7 +22,7 @@ from pathlib import Path
 
 from edgefit.demo import write_sightline
 
-HERE = Path(__file__).resolve().parent / "sim_j1746"
+HERE = Path(__file__).resolve().parent / "amber_loom"
 
 
 def main():

@@ -1,8 +1,8 @@
 """``edgefit fit`` gives the same numbers after the pipeline moved from the
 command line into :mod:`edgefit.analysis.pipeline`.
 
-Reference (outside the new code): ``tests/data/sim_j1746_fit_reference.json``,
-the output of ``edgefit fit examples/sim_j1746/sim_j1746.toml --no-mcmc
+Reference (outside the new code): ``tests/data/amber_loom_fit_reference.json``,
+the output of ``edgefit fit examples/amber_loom/amber_loom.toml --no-mcmc
 --no-plots`` written by the code before the move (commit ebf8760).  Fitted
 values and profile bounds agree to rel 1e-4 and the statistic to 1e-3 (the
 minimiser's own tolerance, common practice: a changed setting or default
@@ -19,7 +19,7 @@ import pytest
 from edgefit.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
-REF = json.loads((ROOT / "tests" / "data" / "sim_j1746_fit_reference.json").read_text())
+REF = json.loads((ROOT / "tests" / "data" / "amber_loom_fit_reference.json").read_text())
 #: Parameters and quantities renamed since the reference was written.
 RENAMED = {}
 #: Derived quantities added since the reference was written.
@@ -34,10 +34,10 @@ def _lookup(table, name):
 
 @pytest.mark.slow
 def test_fit_numbers_unchanged_by_the_move(tmp_path):
-    src = ROOT / "examples" / "sim_j1746"
+    src = ROOT / "examples" / "amber_loom"
     work = tmp_path / "sim"
     shutil.copytree(src, work)
-    rc = main(["fit", str(work / "sim_j1746.toml"), "--no-mcmc", "--no-plots", "-q",
+    rc = main(["fit", str(work / "amber_loom.toml"), "--no-mcmc", "--no-plots", "-q",
                "-o", str(tmp_path / "out")])
     assert rc == 0
     got = json.loads((tmp_path / "out" / "fit.json").read_text())

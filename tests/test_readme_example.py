@@ -23,7 +23,7 @@ def _python_blocks():
 
 def test_readme_python_example_runs(tmp_path, monkeypatch):
     code = _python_blocks()[0]   # the one-sightline example (batch: test_batch; tied edges: test_multi_edge)
-    write_sightline(tmp_path / "edgefit-demo")
+    write_sightline(tmp_path / "examples" / "amber_loom")
     assert "nsteps=3000" in code
     code = code.replace("nsteps=3000", "nsteps=150").replace("progress=True", "progress=False")
     monkeypatch.chdir(tmp_path)

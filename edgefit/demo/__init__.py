@@ -1,9 +1,11 @@
-"""The built-in demo (layer 6, beside the command line): a SIMULATED
-sightline of an invented source, written to disk and fitted.
+"""The built-in demo (layer 6, beside the command line), all SIMULATED:
 
-The scenario -- invented truth, instrument, files and the comparison with
-the truth -- is in :mod:`edgefit.demo.scenario`; its names are re-exported
-here.
+* ``edgefit demo``: eight invented sightlines through an invented region
+  (:mod:`.region`), simulated, fitted in batch, related to N_H and reported
+  on one HTML page (:mod:`.sample`, :mod:`.report`);
+* the one-sightline example "Amber Loom" (:mod:`.scenario`: invented truth,
+  instrument, files and the comparison with the truth; its names are
+  re-exported here), which ``examples/make_simulated_sightline.py`` writes.
 """
 from .scenario import *  # noqa: F401,F403
 from .scenario import (BACKGROUND_RATE, BACKSCAL_BKG, CHANNELS_ANGSTROM,  # noqa: F401

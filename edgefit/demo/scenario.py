@@ -1,6 +1,6 @@
 """The built-in demo: a SIMULATED sightline, written to disk and fitted.
 
-Everything here is invented for demonstration -- the source "SIM-J1746",
+Everything here is invented for demonstration -- the source "Amber Loom",
 its columns, depletion, grains, continuum, instrument and exposure.  The
 scenario is chosen so that the demo shows the science: a bright source
 observed for 150 ks with two gratings (a high- and a medium-resolution
@@ -20,7 +20,7 @@ configuration and the truth; :func:`run_demo` then runs exactly the
 pipeline of ``edgefit fit`` (:func:`edgefit.analysis.pipeline.run_sightline`) and
 adds a comparison with the simulated truth.  ``examples/
 make_simulated_sightline.py`` writes the same files into
-``examples/sim_j1746/``.
+``examples/amber_loom/``.
 """
 from __future__ import annotations
 
@@ -36,7 +36,7 @@ __all__ = ["SOURCE", "TRUTH", "INSTRUMENT", "EXPOSURE_S", "SEED", "build_model",
            "instrument_responses", "simulate_observation", "write_sightline", "truth_comparison", "run_demo"]
 
 #: Name of the invented source (always shown with "simulated").
-SOURCE = "SIM-J1746 (simulated)"
+SOURCE = "Amber Loom (simulated)"
 
 #: Invented truth of the simulated sightline, full parameter names in the
 #: parameters' own units (demo values only).  Si: 12 + 28 = 40e16 cm^-2,
@@ -80,7 +80,7 @@ ENERGY_KEV = (1.50, 2.30, 1600)
 CHANNELS_ANGSTROM = (5.5, 7.75)
 
 _CONFIG = """\
-# SIMULATED sightline "SIM-J1746": an invented source with made-up values
+# SIMULATED sightline "Amber Loom": an invented source with made-up values
 # (written by edgefit.demo; see truth.json).  Run:
 #     edgefit fit {config_name}
 # File names are relative to this file.
@@ -205,7 +205,7 @@ def simulate_observation(model, response, rng, tag, values=None):
                              meta={"order": -1 if tag.endswith("m1") else 1, "object": SOURCE})
 
 
-def write_sightline(folder, *, stem="sim_j1746", seed=SEED, walkers=32, steps=1200,
+def write_sightline(folder, *, stem="amber_loom", seed=SEED, walkers=32, steps=1200,
                     ppc_draws=200, levels=(0.6827, 0.90), output="results"):
     """Simulate the sightline and write it into ``folder``.
 
@@ -310,13 +310,13 @@ def format_comparison(rows):
 
 
 def run_demo(output="edgefit-demo", *, quick=False, quiet=False):
-    """Simulate SIM-J1746 into ``output``, fit it exactly as ``edgefit fit``
+    """Simulate Amber Loom into ``output``, fit it exactly as ``edgefit fit``
     would, and compare with the truth.
 
     ``quick`` shortens the MCMC (24 walkers x 60 steps, a smoke test, not
     a converged posterior: edgefit says so) and the predictive check.
     Writes into ``output``: the simulated files and their configuration
-    ``sim_j1746.toml``, ``truth.json``, and under ``results/`` the fit
+    ``amber_loom.toml``, ``truth.json``, and under ``results/`` the fit
     tables (``fit.ecsv``, ``fit.fits``, ``fit_parameters.ecsv``), JSON,
     summary, ``truth_comparison.txt`` and figures.  Returns
     (FitResult, comparison rows, results folder).

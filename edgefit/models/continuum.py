@@ -25,6 +25,7 @@ from astropy import units as u
 from scipy import integrate, special
 from scipy.interpolate import CubicSpline
 
+from ..errors import ModelError
 from .base import ADDITIVE, Component, Param
 
 __all__ = [
@@ -232,26 +233,44 @@ def gaussian_line_integral(lo, hi, center, sigma, norm=1.0):
 
 # --- components --------------------------------------------------------
 class PhotonPowerLaw(Component):
-    """Photon power law N(E) = norm E^-index (E in keV), integrated
-    analytically over each bin (:func:`photon_power_law_integral`)."""
+    """Photon power law N(E) = norm (E / pivot)^-index (E in keV),
+    integrated analytically over each bin (:func:`photon_power_law_integral`).
+
+    ``pivot`` (keV, an option, default 1) is where ``norm`` is the photon
+    flux density.  Placing it inside the fitted band (e.g. at the edge)
+    makes norm and index nearly uncorrelated, which shortens MCMC
+    autocorrelation times; the model is the same function either way.
+    """
 
     kind = ADDITIVE
     registry_name = "photon_power_law"
     default_name = "pl"
     params = (
         Param("index", 2.0, -3.0, 10.0, "", "photon index (N ~ E^-index)"),
-        Param("norm", 1.0, 0.0, 1e10, "ph cm-2 s-1 keV-1", "photon flux density at 1 keV"),
+        Param("norm", 1.0, 0.0, 1e10, "ph cm-2 s-1 keV-1",
+              "photon flux density at the pivot energy (default 1 keV)"),
     )
 
+    def __init__(self, name=None, *, pivot=1.0, fixed=(), **values):
+        from .._units import as_kev
+
+        self.pivot = float(as_kev(pivot, "pivot"))
+        if not (np.isfinite(self.pivot) and self.pivot > 0):
+            raise ModelError(f"pivot must be a positive energy, got {pivot!r}")
+        super().__init__(name, fixed=fixed, **values)
+
     def precompute(self, grid):
-        return np.log(grid.hi / grid.lo), np.log(grid.lo)
+        return np.log(grid.hi / grid.lo), np.log(grid.lo), math.log(self.pivot)
 
     def _evaluate(self, grid, pre, index, norm):
         # photon_power_law_integral with log(hi/lo) and log(lo) computed once
-        # per grid: lo^(1-G) as exp((1-G) ln lo) (equal to rounding)
-        lg, log_lo = pre
+        # per grid: lo^(1-G) as exp((1-G) ln lo) (equal to rounding); the
+        # pivot multiplies by pivot^G
+        lg, log_lo, log_p = pre
         g1 = 1.0 - index
         out = log_lo * g1
+        if log_p:
+            out += index * log_p
         np.exp(out, out=out)
         out *= norm
         out *= lg
