@@ -182,9 +182,50 @@ def demo_report(output, products, quick=False):
                           f"MRN sizes up to {AMAX_FIT_UM} um except for Cinder Ford, whose "
                           "grains reach 1.5 um in the simulation.")
     rep.text("Not yet in the demo: the per-sightline comparison of candidate size "
-             "distributions (edgefit sizes) and the population fit that pools the "
-             "sightlines (edgefit population) are still being built; their tables will "
-             "appear here.", note=True)
+             "distributions (examples/compare_sizes.py does it for one sightline).",
+             note=True)
+
+    # -- population ---------------------------------------------------
+    rep.heading("Population result", "population")
+    pop = products.get("population")
+    if pop is None:
+        rep.text("The population fit reweights each sightline's posterior samples, which "
+                 "only the full run (with MCMC) keeps; run `edgefit demo` without --quick "
+                 "to see it here.", note=True)
+    else:
+        names = {"c0": "mean ln N_dust at the reference N_H", "c1": "slope d ln N_dust / "
+                 "d log10 N_H", "s": "intrinsic scatter of ln N_dust"}
+        hrows = [[names.get(k, k), format_interval(v.get("median"), v.get("lo"), v.get("hi"))]
+                 for k, v in pop.hyper.items() if isinstance(v, dict)]
+        rep.table(["hyper-parameter", "median [68 %]"], hrows, text_columns=(0,),
+                  table_id="population-hyper",
+                  caption="ln N_dust = c0 + c1 (log10 N_H - reference) with intrinsic "
+                          "scatter s, from importance reweighting of each sightline's "
+                          "posterior samples (Hogg, Myers & Bovy 2010).  Sightlines left "
+                          "out: " + (", ".join(f"{n} ({why})" for n, why in pop.skipped)
+                                     or "none") + ".")
+        srows = []
+        for e in pop.sightlines:
+            cols = e["columns"]
+            cells = [e["name"], format_value(e["n_eff"], 3)]
+            for c in ("gas_si_col", "dust_col"):
+                if c in cols:
+                    one, popc = cols[c]["single"], cols[c]["population"]
+                    cells += [format_interval(one["median"], one["lo"], one["hi"]),
+                              format_interval(popc["median"], popc["lo"], popc["hi"]),
+                              format_value(cols[c]["shrink"], 3)]
+                else:
+                    cells += ["--", "--", "--"]
+            srows.append(cells)
+        rep.table(["sightline", "effective samples", "gas Si alone", "gas Si, population",
+                   "gas interval shrink", "dust Si alone", "dust Si, population",
+                   "dust interval shrink"], srows,
+                  units=["", "", "1e16 cm-2", "1e16 cm-2", "", "1e16 cm-2", "1e16 cm-2", ""],
+                  text_columns=(0,), table_id="population-sightlines",
+                  caption="Each sightline's columns alone and under the population prior "
+                          "(median [68 %]); shrink = population width / single width.")
+        for w in pop.warnings:
+            rep.text(f"population: {w}", note=True)
 
     # -- truth ---------------------------------------------------
     rep.heading("Comparison with the simulated truth", "truth")

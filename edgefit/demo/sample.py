@@ -13,7 +13,9 @@ them in batch, relate them to hydrogen, and write the report.
   ``regression_dust.json`` and figures), grain columns
   (``sample_grains.ecsv``), the shielded tau-N_H relation
   (``shielded_relation.json``), the self-shielding table and curve, the
-  truth comparison (``truth_comparison.ecsv``);
+  truth comparison (``truth_comparison.ecsv``) and, in the full run, the
+  population fit of the dust columns (``population.json``,
+  ``population_sightlines.ecsv``);
 * ``report.html``: everything on one page (:mod:`edgefit.report.html`).
 
 ``quick`` fits without MCMC (profile-likelihood intervals for the gas and
@@ -34,7 +36,8 @@ import numpy as np
 from .region import (AMAX_FIT_UM, FIT_RANGE_KEV, REGION, SIGHTLINES, fit_model,
                      si_abundance, simulation_dict, tracer_columns, truth_of)
 
-__all__ = ["SEED", "write_sample", "run_sample_demo", "truth_table", "MCMC_FULL"]
+__all__ = ["SEED", "write_sample", "run_sample_demo", "analyse_sample", "truth_table",
+           "MCMC_FULL"]
 
 SEED = 20261202
 #: MCMC of the full demo: walkers, steps.  With the continuum norm given
@@ -147,10 +150,7 @@ def truth_table(batch_dir, table, truths):
 def run_sample_demo(output="edgefit-demo", *, quick=False, quiet=False, workers=None):
     """Simulate, fit in batch, analyse and report (module docstring).
     Returns a dict of the products (tables, results, paths)."""
-    import warnings
-
-    from ..analysis import grain_columns, regress, run_batch
-    from ..analysis.grains import fit_shielded_relation
+    from ..analysis import run_batch
     from ..plotting.fit_plots import save_configured
 
     output = Path(output)
@@ -166,9 +166,34 @@ def run_sample_demo(output="edgefit-demo", *, quick=False, quiet=False, workers=
                       figures=save_configured, progress=not quiet, fresh=True)
     say(f"  {sum(str(s) != 'failed' for s in table['status'])} of {len(table)} fitted "
         f"({time.time() - t0:.0f} s so far)")
+    products = analyse_sample(output, table, truths, quick=quick, say=say)
+    say(f"report: {products['report']}   ({time.time() - t0:.0f} s)")
+    return products
+
+
+def analyse_sample(output, table=None, truths=None, *, quick=False, say=print):
+    """Everything after the batch fits: regressions, grain columns, the
+    shielded relation, the truth comparison, the self-shielding curve, the
+    population fit (unless ``quick``) and the report.  ``table`` and
+    ``truths`` default to what an earlier run wrote into ``output``, so the
+    analysis can be redone without refitting.  Returns the products dict."""
+    import warnings
+
+    from ..analysis import grain_columns, read_sample_table, regress
+    from ..analysis.grains import fit_shielded_relation
+
+    output = Path(output)
+    batch_dir = output / "batch"
+    if table is None:
+        table = read_sample_table(batch_dir)
+    if truths is None:
+        truths = {}
+        for f in sorted((output / "spectra").glob("*/truth.json")):
+            d = json.loads(f.read_text())
+            truths[d["name"].replace(" (simulated)", "")] = d["truth"]
     ana = output / "analysis"
     ana.mkdir(exist_ok=True)
-    products = {"table": table, "truths": truths, "manifest": manifest,
+    products = {"table": table, "truths": truths, "manifest": output / "sample.toml",
                 "batch": batch_dir, "analysis": ana}
     # regressions: total Si column (slope = Si abundance) and dust optical
     # depth against the tracer hydrogen column
@@ -211,14 +236,39 @@ def run_sample_demo(output="edgefit-demo", *, quick=False, quiet=False, workers=
 
     plt.close(fig)
     products["shielding"] = sh
+    if not quick:
+        products["population"] = _population(batch_dir, ana, say)
     from .report import demo_report
 
     report = demo_report(output, products, quick=quick)
     products["report"] = report
     n_cov = int(np.sum(truth["covered95"]))
     say(f"truth inside the 95 % intervals: {n_cov} of {len(truth)} gas and dust columns")
-    say(f"report: {report}   ({time.time() - t0:.0f} s)")
     return products
+
+
+def _population(batch_dir, ana, say):
+    """The dust column's population across the sample, ln N_dust linear in
+    log10 N_H with intrinsic scatter, by importance reweighting of the
+    saved posterior samples (edgefit.analysis.population); None (with a
+    message) when it cannot run."""
+    import warnings
+
+    from ..analysis.population import population_from_batch
+    from ..errors import EdgefitError
+
+    say("population fit of the dust column (reweighted posterior samples) ...")
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            res = population_from_batch(batch_dir, "dust_col", covariate="nh_hi_2h2",
+                                        log=True, output=ana, seed=3)
+        res.warnings = list(res.warnings) + [str(w.message) for w in caught
+                                             if "contour" not in str(w.message)]
+        return res
+    except EdgefitError as exc:
+        say(f"  population fit not possible: {exc}")
+        return None
 
 
 def _clean(x):
