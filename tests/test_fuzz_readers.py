@@ -377,8 +377,8 @@ def test_fuzz_lab_absorption_table(data):
 # -- TOML configuration -------------------------------------------------------
 # the example sightline, its spectra named by absolute path so that the
 # mutated copy (in a temporary folder) still finds them
-CONFIG = (REPO / "examples" / "sim_j1746" / "sim_j1746.toml").read_text().replace(
-    'pha = "', f'pha = "{(REPO / "examples" / "sim_j1746").as_posix()}/')
+CONFIG = (REPO / "examples" / "amber_loom" / "amber_loom.toml").read_text().replace(
+    'pha = "', f'pha = "{(REPO / "examples" / "amber_loom").as_posix()}/')
 TOML_TOKENS = st.sampled_from(['nan', 'inf', '-inf', '-1', '0', '1e999', '"text"', '[]', '{}',
                                'true', '[1, "a"]', '{ value = "x" }', '"../nowhere.pha"',
                                '1979-05-27', '"olivine"', '"Si"', '"nosuchtype"', '[[1]]',
