@@ -14,7 +14,7 @@ from astropy import units as u
 HC_KEV_ANGSTROM = 12.398419843320026
 
 __all__ = ["HC_KEV_ANGSTROM", "to_value", "as_kev", "as_angstrom", "kev_to_angstrom",
-           "angstrom_to_kev"]
+           "angstrom_to_kev", "unit_or_none"]
 
 
 def to_value(value, unit, name="value", equivalencies=None):
@@ -52,3 +52,15 @@ def kev_to_angstrom(energy_kev):
 def angstrom_to_kev(wavelength_angstrom):
     """Convert Angstrom to keV (works on arrays)."""
     return HC_KEV_ANGSTROM / np.asarray(wavelength_angstrom, dtype=float)
+
+
+def unit_or_none(unit_str):
+    """An astropy unit from a unit string: dimensionless for an empty string,
+    None for a string astropy cannot parse (the caller then writes the
+    column without a unit rather than failing a finished fit)."""
+    if not unit_str:
+        return u.dimensionless_unscaled
+    try:
+        return u.Unit(unit_str)
+    except ValueError:
+        return None

@@ -39,6 +39,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._units import unit_or_none
 from ..stats import ONE_SIGMA
 from .manifest import HYDROGEN_KEYS
 
@@ -225,7 +226,7 @@ def sample_table(records, hydrogen=None, meta=None):
             for q in r["quantities"]:
                 if q[0] == qname:
                     cols[i] = [_nan(q[1]), _nan(q[2]), _nan(q[3])]
-        unit = _unit(units[qname])
+        unit = unit_or_none(units[qname])
         for j, suffix in enumerate(("", "_lo", "_hi")):
             t[qname + suffix] = cols[:, j] if unit is None else cols[:, j] * unit
             if unit is None and units[qname]:
@@ -239,17 +240,6 @@ def sample_table(records, hydrogen=None, meta=None):
     t.meta["interval_source"] = interval_source
     t.meta.update(meta or {})
     return t
-
-
-def _unit(unit_str):
-    from astropy import units as u
-
-    if not unit_str:
-        return u.dimensionless_unscaled
-    try:
-        return u.Unit(unit_str)
-    except ValueError:
-        return None
 
 
 def _atomic_write(path, writer):

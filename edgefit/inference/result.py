@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from astropy import units as u
 
+from .._units import unit_or_none
 from ..stats import ONE_SIGMA
 
 __all__ = ["FitResult", "Interval", "level_label", "INFO_FLAGS"]
@@ -82,14 +83,6 @@ class Interval:
         d["pieces"] = [list(p) for p in self.pieces]
         return d
 
-
-def _unit(unit_str):
-    if not unit_str:
-        return u.dimensionless_unscaled
-    try:
-        return u.Unit(unit_str)
-    except ValueError:
-        return None
 
 
 def _fmt(x, err=None):
@@ -344,7 +337,7 @@ class FitResult:
         put("stat", self.statistic, None)
         put("dof", self.dof, None)
         for n, p in self.params.items():
-            un = _unit(self.unit(n))
+            un = unit_or_none(self.unit(n))
             put(n, p.value, un)
             put(n + "_err", self.error(n), un)
             for lev, iv in sorted(self.intervals.get(n, {}).items()):
@@ -358,7 +351,7 @@ class FitResult:
                 put(n + "_phi68", hi, un)
         if self.derived is not None:
             for q in self.derived.quantities:
-                un = _unit(q.unit)
+                un = unit_or_none(q.unit)
                 put(q.name, q.median, un)
                 put(q.name + "_lo68", q.lower(ONE_SIGMA), un)
                 put(q.name + "_hi68", q.upper(ONE_SIGMA), un)
