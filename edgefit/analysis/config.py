@@ -319,8 +319,8 @@ def apply_parameter_settings(params, settings, model=None, path=None):
             raise ConfigError(path, f"{key}: min is larger than max")
         if not (p.min <= p.value <= p.max):
             raise ConfigError(path, f"{key}: value {p.value} lies outside [{p.min}, {p.max}]")
-        if s.get("fixed"):
-            p.vary = False
+        if "fixed" in s:      # fixed = false frees a parameter fixed by default
+            p.vary = not s["fixed"]
         if "tie" in s:
             other = s["tie"]
             if not isinstance(other, str) or other not in params or other == full:

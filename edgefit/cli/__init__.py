@@ -16,7 +16,7 @@ from ..errors import EdgefitError
 
 #: Modules of edgefit.cli that define sub-commands, in help order.
 COMMAND_MODULES = ["inspect", "fit", "demo", "dust_tables", "batch", "simulate", "plan",
-                   "regress", "grains", "population"]
+                   "regress", "grains", "population", "sizes"]
 
 
 def build_parser() -> argparse.ArgumentParser:
