@@ -90,7 +90,7 @@ def _families():
 
 
 def _size_param_names():
-    return {p[0] for cls in _families().values() for p in cls.PARAMS}
+    return {p.name for cls in _families().values() for p in cls.PARAMS}
 
 
 @dataclass(frozen=True)
@@ -109,7 +109,7 @@ class SizeSpec:
     def label(self):
         """A folder-safe label, e.g. ``power_law_amax-free``."""
         parts = [self.family]
-        defaults = {p[0]: p[1] for p in _families()[self.family].PARAMS}
+        defaults = {p.name: p.default for p in _families()[self.family].PARAMS}
         for name in sorted(self.values):
             if name in self.free:
                 parts.append(f"{name}-free")
@@ -123,7 +123,7 @@ class SizeSpec:
 
     def describe(self):
         """Canonical text, e.g. ``power_law:amax=free`` (defaults omitted)."""
-        defaults = {p[0]: p[1] for p in _families()[self.family].PARAMS}
+        defaults = {p.name: p.default for p in _families()[self.family].PARAMS}
         items = [f"{n}=free" if n in self.free else f"{n}={self.values[n]:g}"
                  for n in sorted(self.values)
                  if n in self.free or n in self.given or self.values[n] != defaults[n]]
@@ -144,8 +144,8 @@ def parse_spec(text, argument="--try"):
     if fam not in families:
         raise ArgumentError(f"{where}: unknown family {head.strip()!r}; have "
                             f"{', '.join(sorted(set(families) | set(ALIASES)))}")
-    params = {p[0]: p for p in families[fam].PARAMS}
-    values = {n: float(p[1]) for n, p in params.items()}
+    params = {p.name: p for p in families[fam].PARAMS}
+    values = {n: float(p.default) for n, p in params.items()}
     free = set()
     if sep and not rest.strip():
         raise ArgumentError(f"{where}: nothing after ':' (give NAME=VALUE pairs)")
@@ -161,7 +161,7 @@ def parse_spec(text, argument="--try"):
         if name in seen:
             raise ArgumentError(f"{where}: {name} given twice")
         seen.add(name)
-        lo, hi = float(params[name][2]), float(params[name][3])
+        lo, hi = float(params[name].min), float(params[name].max)
         if val == "free":
             free.add(name)
             continue
@@ -169,7 +169,7 @@ def parse_spec(text, argument="--try"):
             raise ArgumentError(f"{where}: {name}={val!r} must be a number or 'free'")
         x = float(val)
         if not (math.isfinite(x) and lo <= x <= hi):
-            unit = " um" if params[name][4] == "um" else ""
+            unit = " um" if params[name].unit == "um" else ""
             raise ArgumentError(f"{where}: {name}={x:g} lies outside [{lo:g}, {hi:g}]{unit}")
         values[name] = x
     if fam != "single":
@@ -233,9 +233,9 @@ def is_nested(small, large):
 
 def _on_bound(small, large):
     """Parameters fixed in ``small`` at a bound of ``large``'s free range."""
-    params = {p[0]: p for p in _families()[large.family].PARAMS}
+    params = {p.name: p for p in _families()[large.family].PARAMS}
     return [n for n in large.free - small.free
-            if small.values[n] in (float(params[n][2]), float(params[n][3]))]
+            if small.values[n] in (float(params[n].min), float(params[n].max))]
 
 
 def _aic_words(d_aic):
