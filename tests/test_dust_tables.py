@@ -21,7 +21,7 @@ from edgefit._units import HC_KEV_ANGSTROM
 from edgefit.dust import (MRN, SingleSize, SizeGrid, compute_table, edge_energy_grid,
                           fraction_in_region, get_material, list_cached_tables, load_or_build,
                           rg_gaussian_width_arcmin, shielding_table)
-from edgefit.dust import tables as tables_mod
+from edgefit.dust import cache as tables_mod
 from edgefit.dust.efficiencies import efficiencies
 
 R_E = 2.8179403262e-13  # cm, CODATA 2018

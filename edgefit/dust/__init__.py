@@ -1,8 +1,9 @@
 """edgefit.dust: X-ray optical constants, Mie/ADT efficiencies, size
 distributions, per-size cross-section tables, self-shielding and halos.
 
-Pure computation only (the table cache in :mod:`edgefit.dust.tables` is the
-one place that reads and writes files).  Units: energy keV, radius µm,
+Pure computation only (the table cache in :mod:`edgefit.dust.cache` is the
+one place that reads and writes files; :mod:`edgefit.dust.tables` re-exports
+it together with :mod:`edgefit.dust.cross_sections`).  Units: energy keV, radius µm,
 density g cm^-3, cross sections cm², columns cm^-2.
 """
 from .adt import adt_efficiencies
@@ -18,8 +19,8 @@ from .shielding import shielding_table
 from .sizes import (FAMILIES, MRN, CutoffPowerLaw, LogNormal, PowerLaw, SingleSize,
                     SizeDistribution, SizeGrid, TabulatedSizes, dust_mass_column,
                     grain_column, make_distribution, mean_atoms_per_grain, read_size_table)
-from .tables import (EDGE_REGIONS, DustTable, compute_table, default_table, edge_energy_grid,
-                     list_cached_tables, load_or_build)
+from .cache import default_table, list_cached_tables, load_or_build
+from .cross_sections import EDGE_REGIONS, DustTable, compute_table, edge_energy_grid
 
 __all__ = [
     "mie_efficiencies", "adt_efficiencies", "efficiencies",

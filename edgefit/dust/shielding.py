@@ -30,7 +30,7 @@ from .._units import HC_KEV_ANGSTROM
 from ..physics import atomic
 from .materials import get_material
 from .sizes import SizeGrid
-from .tables import grain_cross_sections
+from .cross_sections import grain_cross_sections
 
 __all__ = ["shielding_table"]
 

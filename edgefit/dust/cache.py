@@ -1,0 +1,185 @@
+"""Disk cache of dust cross-section tables (:mod:`edgefit.dust.cross_sections`).
+
+Tables are stored as ``.npz`` files with a JSON header in
+:func:`edgefit._paths.cache_dir`, under a name that hashes every input
+(material formula, density and optical-constant source, energy grid, size
+grid, method and tolerance, table format version, package version); a
+table whose inputs changed is simply rebuilt.  Files are written to a
+temporary name and renamed into place, so a crash or a parallel writer
+never leaves a half-written table.
+
+:func:`load_or_build` is the one function here that computes; :func:`load`
+only reads (None when the table is absent or stale) and :func:`save` only
+writes.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+
+import numpy as np
+
+from .. import __version__
+from .._paths import cache_dir
+from .._units import as_kev
+from ..physics import atomic
+from .cross_sections import (DEFAULT_MATERIALS, EDGE_REGIONS, TABLE_FORMAT_VERSION, DustTable,
+                             _as_size_grid, compute_table, edge_energy_grid, region_for)
+from .materials import get_material
+from .sizes import SizeGrid
+
+__all__ = ["table_key", "table_path", "save", "load", "load_cached", "load_or_build",
+           "default_table", "list_cached_tables", "build_default_tables"]
+
+def _digest_array(arr) -> str:
+    return hashlib.blake2b(np.ascontiguousarray(arr, dtype=float).tobytes(),
+                           digest_size=10).hexdigest()
+
+
+def table_key(material, energy_kev, sizes, method="auto", rtol=None) -> dict:
+    """Every input a table depends on, as a JSON-able dict."""
+    material = get_material(material)
+    a = sizes.a if isinstance(sizes, SizeGrid) else np.asarray(sizes, dtype=float)
+    e = np.asarray(energy_kev, dtype=float)
+    return {"format": TABLE_FORMAT_VERSION, "edgefit": __version__,
+            "material": material.key(), "energy": [float(e[0]), float(e[-1]), int(e.size),
+                                                    _digest_array(e)],
+            "sizes": [float(a[0]), float(a[-1]), int(a.size), _digest_array(a)],
+            "method": method, "rtol": rtol}
+
+
+def table_path(material, energy_kev, sizes, method="auto", rtol=None, directory=None):
+    """Cache file for a table with these inputs."""
+    material = get_material(material)
+    key = table_key(material, energy_kev, sizes, method, rtol)
+    h = hashlib.blake2b(json.dumps(key, sort_keys=True).encode(), digest_size=12).hexdigest()
+    safe = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in material.name)
+    base = cache_dir() if directory is None else directory
+    return os.path.join(os.fspath(base), f"dust_{safe}_{h}.npz"), key
+
+
+def save(table: DustTable, path, key):
+    """Write ``table`` to ``path`` atomically (temporary file, then rename)."""
+    header = dict(table.meta, key=key, material_name=table.material.name,
+                  material_note=table.material.note,
+                  units={"energy": "keV", "size": "um", "sigma": "cm2 per grain", "g": ""})
+    tmp = f"{path}.{os.getpid()}.tmp.npz"
+    np.savez_compressed(tmp, header=np.array(json.dumps(header)), energy_kev=table.energy_kev,
+                        size_um=table.sizes.a, sigma_abs=table.sigma_abs,
+                        sigma_sca=table.sigma_sca, g=table.g)
+    os.replace(tmp, path)
+
+
+def load(path, material, key):
+    """The table stored at ``path`` if its header carries ``key``, else None."""
+    with np.load(path, allow_pickle=False) as data:
+        header = json.loads(str(data["header"]))
+        if header.get("key") != key:
+            return None
+        return DustTable(material, data["energy_kev"], SizeGrid(data["size_um"]),
+                         data["sigma_abs"], data["sigma_sca"], data["g"],
+                         {k: v for k, v in header.items() if k != "key"} | {"path": path})
+
+
+def load_cached(material, energy_kev, sizes=None, *, method="auto", rtol=None):
+    """The cached table for these inputs, or None if the cache lacks it (or
+    holds an unreadable or stale file).  Reads only; never computes."""
+    material = get_material(material)
+    energy = np.asarray(as_kev(energy_kev, "energy"), dtype=float)
+    sizes = _as_size_grid(sizes)
+    path, key = table_path(material, energy, sizes, method, rtol)
+    if not os.path.exists(path):
+        return None
+    try:
+        return load(path, material, key)
+    except (OSError, ValueError, KeyError):
+        return None
+
+
+def load_or_build(material, energy_kev, sizes=None, *, method="auto", rtol=None,
+                  cache: bool = True, rebuild: bool = False, workers=None,
+                  progress=None) -> DustTable:
+    """The table for these inputs from the cache, computing and storing it
+    if absent (or if ``rebuild``).  ``cache=False`` computes without
+    touching the disk.  See :func:`compute_table` for the arguments."""
+    material = get_material(material)
+    energy = np.asarray(as_kev(energy_kev, "energy"), dtype=float)
+    sizes = _as_size_grid(sizes)
+    if not cache:
+        return compute_table(material, energy, sizes, method=method, rtol=rtol,
+                             workers=workers, progress=progress)
+    path, key = table_path(material, energy, sizes, method, rtol)
+    if not rebuild and os.path.exists(path):
+        try:
+            table = load(path, material, key)
+        except (OSError, ValueError, KeyError):
+            table = None  # unreadable or stale: rebuild below
+        if table is not None:
+            return table
+    table = compute_table(material, energy, sizes, method=method, rtol=rtol,
+                          workers=workers, progress=progress)
+    table.meta["key"] = key
+    try:
+        save(table, path, key)
+        table.meta["path"] = path
+    except OSError as exc:  # a read-only cache is not fatal
+        table.meta["cache_error"] = str(exc)
+    return table
+
+
+def default_table(material="olivine", element="Si", *, energy_range=None, sizes=None,
+                  method="auto", rtol=None, cache=True, rebuild=False, workers=None,
+                  progress=None) -> DustTable:
+    """The table of ``material`` across ``element``'s edge region
+    (:data:`EDGE_REGIONS`, or ``energy_range`` = (lo, hi) keV), default
+    size grid, from the cache or built once."""
+    material = get_material(material)
+    if energy_range is None:
+        _, lo, hi = region_for(element)
+    else:
+        lo, hi = (float(as_kev(v)) for v in energy_range)
+    energy = edge_energy_grid(material, lo, hi)
+    return load_or_build(material, energy, sizes, method=method, rtol=rtol, cache=cache,
+                         rebuild=rebuild, workers=workers, progress=progress)
+
+
+def list_cached_tables(directory=None) -> list[dict]:
+    """Headers of the tables in the cache folder (with their paths)."""
+    base = cache_dir() if directory is None else directory
+    out = []
+    for name in sorted(os.listdir(base)):
+        if not (name.startswith("dust_") and name.endswith(".npz")):
+            continue
+        path = os.path.join(base, name)
+        try:
+            with np.load(path, allow_pickle=False) as data:
+                header = json.loads(str(data["header"]))
+                header["n_energy"] = int(data["energy_kev"].size)
+                header["energy_range"] = [float(data["energy_kev"][0]),
+                                          float(data["energy_kev"][-1])]
+                header["n_size"] = int(data["size_um"].size)
+        except (OSError, ValueError, KeyError):
+            continue
+        header["path"] = path
+        header["bytes"] = os.path.getsize(path)
+        out.append(header)
+    return out
+
+
+def build_default_tables(materials=DEFAULT_MATERIALS, elements=tuple(EDGE_REGIONS), *,
+                         rebuild=False, method="auto", rtol=None, workers=None,
+                         progress=None) -> list[DustTable]:
+    """Build (or load) the default table of every material across the edge
+    region of every element it contains (:data:`EDGE_REGIONS`), into the
+    cache.  Returns the tables."""
+    out = []
+    for name in materials:
+        material = get_material(name)
+        for element in elements:
+            if atomic.element_symbol(element) not in material.composition:
+                continue
+            out.append(default_table(material, element, method=method, rtol=rtol,
+                                     rebuild=rebuild, workers=workers, progress=progress))
+            out[-1].meta["element"] = atomic.element_symbol(element)
+    return out
