@@ -222,13 +222,45 @@ def test_families_pickle_and_halo(table, grid):
                                                   dust_amax=0.25), rtol=1e-6)
 
 
+def test_precompute_never_builds_or_writes_a_table(tmp_path, monkeypatch):
+    # tables are made at construction / prepare(); precompute only reads the
+    # prepared table (the cache writer and the computation are made to fail)
+    from edgefit.dust import cache
+
+    sizes = SizeGrid.log(0.002, 3.0, 16)
+    grid = EnergyGrid.linear(1.55, 2.4, 30)
+    dust = DustEdge(size_grid=sizes).prepare(grid)
+    before = sorted(tmp_path.iterdir())
+
+    def forbidden(*args, **kw):
+        raise AssertionError("a dust table was built or written during precompute")
+
+    monkeypatch.setattr(cache, "save", forbidden)
+    monkeypatch.setattr(cache, "compute_table", forbidden)
+    pre = dust.precompute(grid)
+    assert pre["table"].covers(grid.mid[0], grid.mid[-1])
+    assert np.all(np.isfinite(dust(grid)))
+    assert sorted(tmp_path.iterdir()) == before
+    # a grid outside every prepared (and cached) table is refused by
+    # precompute with a pointer to prepare(), not built behind the scenes
+    wider = EnergyGrid.linear(1.2, 2.4, 30)
+    with pytest.raises(ModelError, match=r"prepare\(grid\).*dust-tables build"):
+        dust.precompute(wider)
+    assert sorted(tmp_path.iterdir()) == before
+
+
 def test_table_is_extended_to_the_grid(tmp_path):
     # a grid reaching beyond the default Si region gets a wider table, built
-    # once and cached
+    # once (when the grid is prepared, next to the default region's table
+    # prepared at construction) and cached
     sizes = SizeGrid.log(0.002, 3.0, 24)
     dust = DustEdge(size_grid=sizes)
+    assert len(list(tmp_path.glob("dust_olivine_*.npz"))) == 1
     t = dust(EnergyGrid.linear(1.55, 2.4, 40))
     assert np.all(np.isfinite(t))
-    (table, _), = dust._tables.values()
+    assert len(dust._tables) == 2
+    table = max((item[0] for item in dust._tables.values()), key=lambda t: t.energy_kev.size)
     assert table.energy_kev[0] <= 1.50 and table.energy_kev[-1] >= 2.45
-    assert len(list(tmp_path.glob("dust_olivine_*.npz"))) == 1
+    assert len(list(tmp_path.glob("dust_olivine_*.npz"))) == 2
+    dust(EnergyGrid.linear(1.56, 2.39, 30))          # covered: nothing new
+    assert len(list(tmp_path.glob("dust_olivine_*.npz"))) == 2

@@ -206,8 +206,18 @@ class Component(ModelNode):
         return f"{self.name} [{self.registry_name or type(self).__name__}]"
 
     # subclasses -------------------------------------------------------
+    def prepare(self, grid: EnergyGrid | None = None):
+        """Load or compute whatever the component needs before it can be
+        evaluated on ``grid`` (e.g. dust cross-section tables, which may be
+        read from or written to the disk cache).  Called by :meth:`prepared`
+        before :meth:`precompute` for each new grid, and callable directly;
+        must be cheap when nothing is missing.  Returns self."""
+        return self
+
     def precompute(self, grid: EnergyGrid) -> Any:
-        """Anything that depends on the grid only; cached per grid."""
+        """Anything that depends on the grid only; cached per grid.  Pure:
+        no file I/O (anything read or built from disk belongs in
+        :meth:`prepare`)."""
         return None
 
     def _evaluate(self, grid: EnergyGrid, pre: Any, **values) -> np.ndarray:
@@ -249,6 +259,7 @@ class Component(ModelNode):
         try:
             return self._cache[grid.key]
         except KeyError:
+            self.prepare(grid)
             pre = self.precompute(grid)
             if len(self._cache) >= self.cache_size:
                 self._cache.pop(next(iter(self._cache)))

@@ -73,8 +73,12 @@ from .base import COLUMN_KEY, MULTIPLICATIVE, Component, EnergyGrid, Param
 __all__ = ["DustEdge"]
 
 def _tables():
-    from ..dust import tables
-    return tables
+    from ..dust import cache
+    return cache
+
+
+_NOT_PREPARED = ("call {name}.prepare(grid) (or prepare(energy_range=(lo, hi))) before "
+                 "evaluating, or build the default tables with `edgefit dust-tables build`")
 
 
 def _remember(cache, key, value, size):
@@ -192,6 +196,7 @@ class DustEdge(Component):
             self.params = tuple(
                 Param(p.name, p.default, max(p.min, a[0]), min(p.max, a[-1]), p.unit,
                       p.description, p.vary) if p.unit == "um" else p for p in self.params)
+        self.prepare()  # the default region's table, before any fit
 
     # -- pickling: drop in-memory tables (they reload from the disk cache) --
     def __getstate__(self):
@@ -206,8 +211,37 @@ class DustEdge(Component):
         _, lo, hi = _tables().region_for(self.element)
         return lo, hi
 
-    def _table_for(self, lo, hi):
-        """(table, table-level precomputation) covering lo..hi keV."""
+    def prepare(self, grid: EnergyGrid | None = None, *, energy_range=None):
+        """Load (from the disk cache) or compute and store the cross-section
+        table covering ``grid``'s bin centres, ``energy_range`` = (lo, hi)
+        keV, or by default the table's energy range (the element's edge
+        region).  Construction prepares the default range; the model's
+        evaluation prepares each new grid before :meth:`precompute`, which
+        never computes or writes a table.  Returns self."""
+        if grid is not None:
+            lo, hi = float(grid.mid[0]), float(grid.mid[-1])
+        elif energy_range is not None:
+            lo, hi = (float(as_kev(v)) for v in energy_range)
+        elif self.table is not None:
+            return self
+        else:
+            lo, hi = self._region()
+        self._table_for(lo, hi)
+        return self
+
+    def _table_range(self, lo, hi):
+        """Energy range (keV) of the table used for lo..hi keV: the region,
+        extended with room for the shift parameter, rounded outward to
+        0.05 keV."""
+        rlo, rhi = self._region()
+        tlo = min(rlo, math.floor((lo - 0.025) / 0.05) * 0.05) if lo < rlo else rlo
+        thi = max(rhi, math.ceil((hi + 0.025) / 0.05) * 0.05) if hi > rhi else rhi
+        return tlo, thi
+
+    def _table_for(self, lo, hi, build=True):
+        """(table, table-level precomputation) covering lo..hi keV; with
+        ``build=False`` only a prepared table or one already in the disk
+        cache is used (ModelError otherwise)."""
         if self.table is not None:
             if not self.table.covers(lo, hi):
                 raise ModelError(
@@ -218,14 +252,19 @@ class DustEdge(Component):
         for (tlo, thi), item in self._tables.items():
             if tlo <= lo and thi >= hi:
                 return item
-        rlo, rhi = self._region()
-        # extend with room for the shift parameter, rounded outward to 0.05 keV
-        tlo = min(rlo, math.floor((lo - 0.025) / 0.05) * 0.05) if lo < rlo else rlo
-        thi = max(rhi, math.ceil((hi + 0.025) / 0.05) * 0.05) if hi > rhi else rhi
+        tlo, thi = self._table_range(lo, hi)
         tab = _tables()
         energy = tab.edge_energy_grid(self.material, max(tlo, 0.05), thi)
-        table = tab.load_or_build(self.material, energy, self.size_grid, method=self.method,
-                                  rtol=self.rtol, cache=self.cache)
+        if build:
+            table = tab.load_or_build(self.material, energy, self.size_grid,
+                                      method=self.method, rtol=self.rtol, cache=self.cache)
+        else:
+            table = (tab.load_cached(self.material, energy, self.size_grid, method=self.method,
+                                     rtol=self.rtol) if self.cache else None)
+            if table is None:
+                raise ModelError(
+                    f"{self.name}: no prepared dust table of {self.material.name} covers "
+                    f"{lo:.4g}-{hi:.4g} keV; " + _NOT_PREPARED.format(name=self.name))
         item = (table, self._table_pre(table))
         self._tables[(tlo, thi)] = item
         return item
@@ -330,9 +369,10 @@ class DustEdge(Component):
 
     # -- Component interface ---------------------------------------------
     def precompute(self, grid: EnergyGrid):
-        # The table must cover the bin centres; a shifted evaluation that
-        # reaches past a table end takes the end value (np.interp).
-        table, pre = self._table_for(grid.mid[0], grid.mid[-1])
+        # The table must cover the bin centres (prepared by prepare(), never
+        # built here); a shifted evaluation that reaches past a table end
+        # takes the end value (np.interp).
+        table, pre = self._table_for(grid.mid[0], grid.mid[-1], build=False)
         # the table rows any shift within the parameter's bounds can reach
         e = pre["energy"]
         sp = self.param("shift")
