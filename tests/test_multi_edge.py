@@ -43,6 +43,33 @@ def test_registered_and_picklable():
     assert np.all(comp(grid, grains_col=0.0) == 1.0)
 
 
+def test_precompute_never_builds_or_writes_a_table(tmp_path, monkeypatch):
+    # tables are made at construction / prepare(); precompute only reads
+    # them (the cache writer and the computation are made to fail)
+    from edgefit.dust import cache
+
+    monkeypatch.setenv("EDGEFIT_CACHE_DIR", str(tmp_path))
+    comp = MultiEdgeDust(materials="olivine", elements=("Si", "Mg"), size_grid=SIZES)
+    grid = EnergyGrid.linear(1.2, 2.2, 40)            # inside the tied regions
+    before = sorted(tmp_path.iterdir())
+    assert before                                     # construction stored them
+
+    def forbidden(*args, **kw):
+        raise AssertionError("a dust table was built or written during precompute")
+
+    monkeypatch.setattr(cache, "save", forbidden)
+    monkeypatch.setattr(cache, "compute_table", forbidden)
+    assert np.all(np.isfinite(comp.precompute(grid)["materials"][0]["abs"]))
+    # a grid past the prepared span is refused with a pointer to prepare()
+    with pytest.raises(ModelError, match=r"prepare\(grid\).*dust-tables build"):
+        comp.precompute(EnergyGrid.linear(1.2, 2.6, 40))
+    assert sorted(tmp_path.iterdir()) == before
+    monkeypatch.undo()
+    monkeypatch.setenv("EDGEFIT_CACHE_DIR", str(tmp_path))
+    comp.prepare(EnergyGrid.linear(1.2, 2.6, 40))      # now it is available
+    assert np.all(np.isfinite(comp.precompute(EnergyGrid.linear(1.2, 2.6, 40))["a3"]))
+
+
 @pytest.mark.parametrize("col", [0.3, 6.5, 250.0])
 @pytest.mark.parametrize("amax", [0.01, 0.25, 2.5])
 def test_olivine_columns_stand_1_1_1_4(col, amax):

@@ -101,8 +101,8 @@ _FRAC_TOL = 1e-9
 
 
 def _tables():
-    from ..dust import tables
-    return tables
+    from ..dust import cache
+    return cache
 
 
 def _frac_name(material, index):
@@ -250,6 +250,7 @@ class MultiEdgeDust(Component):
                                 for m in self.materials])
         self._fu_mass = np.array([m.formula_mass / atomic.AVOGADRO for m in self.materials])
         self._tables: dict = {}
+        self.prepare()  # tables of the tied edge regions, before any fit
 
     def _initial_fractions(self, fractions):
         by_name = {m.name: m for m in self.materials}
@@ -367,12 +368,36 @@ class MultiEdgeDust(Component):
             pieces.append((regs[-1][1], math.ceil((hi + 0.025) / 0.05) * 0.05))
         return [(a, b) for a, b in pieces if b >= lo and a <= hi]
 
-    def _material_table(self, k, lo, hi):
+    def prepare(self, grid: EnergyGrid | None = None, *, energy_range=None):
+        """Load (from the disk cache) or compute and store every material's
+        tables covering ``grid``'s bin centres, ``energy_range`` = (lo, hi)
+        keV, or by default the span of the tied edge regions.  Construction
+        prepares the default span; the model's evaluation prepares each new
+        grid before :meth:`precompute`, which never computes or writes a
+        table.  Returns self."""
+        if grid is not None:
+            lo, hi = float(grid.mid[0]), float(grid.mid[-1])
+        elif energy_range is not None:
+            lo, hi = (float(as_kev(v)) for v in energy_range)
+        else:
+            regs = self._regions()
+            lo, hi = regs[0][0], regs[-1][1]
+        for k in range(len(self.materials)):
+            self._material_table(k, lo, hi)
+        return self
+
+    def _material_table(self, k, lo, hi, build=True):
         """(energies, σ_abs, σ_sca) of material k joined over the segments
-        covering lo..hi keV (strictly increasing energies)."""
+        covering lo..hi keV (strictly increasing energies).  With
+        ``build=False`` only prepared tables or tables already in the disk
+        cache are used (ModelError otherwise)."""
         key = (k, lo, hi)
         if key in self._tables:
             return self._tables[key]
+        if not build:
+            for (kk, tlo, thi), item in self._tables.items():
+                if kk == k and tlo <= lo and thi >= hi:
+                    return item
         tab = _tables()
         mat = self.materials[k]
         es, sa, ss = [], [], []
@@ -380,8 +405,18 @@ class MultiEdgeDust(Component):
         sizes = None
         for a, b in self.segments(lo, hi):
             energy = tab.edge_energy_grid(mat, a, b)
-            t = tab.load_or_build(mat, energy, self.size_grid, method=self.method,
-                                  rtol=self.rtol, cache=self.cache)
+            if build:
+                t = tab.load_or_build(mat, energy, self.size_grid, method=self.method,
+                                      rtol=self.rtol, cache=self.cache)
+            else:
+                t = (tab.load_cached(mat, energy, self.size_grid, method=self.method,
+                                     rtol=self.rtol) if self.cache else None)
+                if t is None:
+                    raise ModelError(
+                        f"{self.name}: no prepared dust table of {mat.name} covers "
+                        f"{lo:.4g}-{hi:.4g} keV; call {self.name}.prepare(grid) (or "
+                        f"prepare(energy_range=(lo, hi))) before evaluating, or build the "
+                        f"default tables with `edgefit dust-tables build`")
             keep = t.energy_kev > last
             es.append(t.energy_kev[keep])
             sa.append(t.sigma_abs[keep])
@@ -393,7 +428,7 @@ class MultiEdgeDust(Component):
         return item
 
     # -- Component interface -----------------------------------------------------
-    def _prepare(self, lo, hi):
+    def _prepare(self, lo, hi, build=True):
         """Per-material arrays on the joined table energies that bracket
         lo..hi keV (one table point beyond each end)."""
         untied = [el for el in self._all_elements() if el not in self.elements]
@@ -401,7 +436,7 @@ class MultiEdgeDust(Component):
         energy = None
         sizes = None
         for k, mat in enumerate(self.materials):
-            e, sa, ss, sizes = self._material_table(k, lo, hi)
+            e, sa, ss, sizes = self._material_table(k, lo, hi, build)
             i0 = max(int(np.searchsorted(e, lo, side="right")) - 1, 0)
             i1 = min(int(np.searchsorted(e, hi, side="left")) + 1, e.size)
             e, sa, ss = e[i0:i1], sa[i0:i1], ss[i0:i1]
@@ -417,7 +452,8 @@ class MultiEdgeDust(Component):
         return {"materials": per, "a3": sizes.a ** 3, "sizes": sizes}
 
     def precompute(self, grid: EnergyGrid):
-        pre = self._prepare(float(grid.mid[0]), float(grid.mid[-1]))
+        # only tables made by prepare() (or already cached); never builds
+        pre = self._prepare(float(grid.mid[0]), float(grid.mid[-1]), build=False)
         pre["x"] = grid.mid
         return pre
 
