@@ -70,7 +70,7 @@ def test_fisher_matches_scatter_of_simulated_fits_with_size_fixed():
     assert fc.columns(4 * fc.exposure)[0] == pytest.approx(sg / 2, rel=1e-10)
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_simulated_widths_with_size_free_are_reproducible():
     setup = simulation_from_dict(setup_dict(size_free=True))
     a = simulate_fits(setup, n_sims=100, seed=11, workers=2)
