@@ -397,7 +397,7 @@ class SpectrumSettings(_Section):
     manifest), the row/order/arm of a multi-spectrum file, the fitted range
     and the grouping."""
 
-    pha: str = None
+    pha: str = ""   # required: from_table refuses a table without it
     label: str | None = None
     rmf: str | None = None
     arf: str | None = None

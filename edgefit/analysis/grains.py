@@ -330,7 +330,7 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
                           else (float(chi2[j]), float(a[j]), j))
     best_chi2, best_a, _ = min(minima)
     level = best_chi2 + 1.0
-    ranges = []
+    ranges: list[list[float]] = []
     for c_min, a_min, j in sorted(minima, key=lambda m: m[1]):
         if c_min > level:
             continue
@@ -368,6 +368,7 @@ def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, materia
                      options={"xatol": 1e-10, "fatol": 1e-10, "maxiter": 20000})
         if best is None or r.fun < best.fun:
             best = r
+    assert best is not None  # three starts were minimised
     alpha, beta = float(best.x[0]), float(best.x[1] * scale)
     e_b, _, n_b = _per_size(material, element, e, np.array([best_a]), count_once, kind)
     shielded = {"radius_um": best_a, "radius_68": ranges, "chi2": best_chi2,

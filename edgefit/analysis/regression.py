@@ -74,9 +74,13 @@ import math
 import os
 import warnings
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from astropy import units as u
+
+if TYPE_CHECKING:
+    from astropy.table import Table
 
 from ..errors import (ArgumentError, FitError, InputFileError, MissingColumnError,
                       ShortChainWarning)
@@ -261,7 +265,7 @@ def _line_origin(x, beta):
 
 #: ODRPACK settings: central differences and tight stopping tolerances, so the
 #: answer is converged to ~1e-9 relative and does not depend on the start.
-ODR_SETTINGS = {"diff_scheme": "central", "sstol": 1e-15, "partol": 1e-15, "maxit": 200}
+ODR_SETTINGS: dict[str, Any] = {"diff_scheme": "central", "sstol": 1e-15, "partol": 1e-15, "maxit": 200}
 
 
 def odr_line(x, y, sx, sy, through_origin=False) -> dict:
@@ -471,7 +475,7 @@ def bayes_line(x, y, sx, sy, x_upper=None, y_upper=None, *, through_origin=False
                      options={"maxiter": 20000, "xatol": 1e-7, "fatol": 1e-9})
         if best is None or r.fun < best.fun:
             best = r
-    if not np.isfinite(best.fun) or best.fun >= 1e299:
+    if best is None or not np.isfinite(best.fun) or best.fun >= 1e299:
         raise FitError("the Bayesian line found no finite posterior value")
     ndim = len(best.x)
     p0 = best.x + 1e-3 * rng.standard_normal((n_walkers, ndim))

@@ -79,7 +79,7 @@ class SimulationSetup:
     background_rate: float = 0.0
     background_area: float = 5.0
     seed: int = 1
-    fit_range: tuple = None
+    fit_range: tuple | None = None
     stem: str = "sightline"
     group_min_counts: int | None = None
     sections: dict = field(default_factory=dict)

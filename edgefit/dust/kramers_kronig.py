@@ -59,7 +59,7 @@ def _xlogx(c, d):
 
 
 def kk_principal_value(energy_kev, f2, energy_out_kev, *, tails: bool = True,
-                       chunk: int = 512) -> np.ndarray:
+                       chunk: int = 512) -> float | np.ndarray:
     """PV ∫ ε f2(ε) / (ε² − E²) dε for piecewise-linear f2.
 
     Parameters

@@ -107,6 +107,8 @@ class Material:
     density: float
     note: str = ""
     corrections: tuple = field(default=())
+    # atoms per formula unit, filled from ``formula`` by __post_init__
+    _comp: dict[str, float] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
         object.__setattr__(self, "density", optical.as_density(self.density))

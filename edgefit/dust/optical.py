@@ -135,7 +135,8 @@ def formula_mass(composition) -> float:
 def as_density(density) -> float:
     """Mass density in g cm^-3 from a number (g cm^-3) or a Quantity."""
     rho = to_value(density, u.g / u.cm ** 3, "density")
-    if not np.isscalar(rho) or not np.isfinite(rho) or rho <= 0:
+    if (not isinstance(rho, (int, float, np.integer, np.floating))
+            or not np.isfinite(rho) or rho <= 0):
         raise PhysicsDataError(f"density must be one positive number, not {density!r}")
     return float(rho)
 

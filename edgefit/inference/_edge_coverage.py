@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 import time
 import warnings
+from typing import Any
 
 import numpy as np
 from scipy import stats as sps
@@ -55,7 +56,7 @@ def draw_tasks(n, element, seed, *, nh=(0.5, 5.0), depletion=(0.6, 0.95),
     return tasks
 
 
-_MODELS = {}
+_MODELS: dict[str, Any] = {}
 
 
 def _model(element):

@@ -406,7 +406,8 @@ def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spe
     t = _open_pha(path)
     if not _is_type2(t):
         return [_check_scaling(_read_type1(t, path, row, order, arm, attach))]
-    out, cache = [], {}
+    out: list[Spectrum] = []
+    cache: dict = {}
     for i in _select_rows(t, path, row, order, arm):
         s = _spectrum_from_row(t, path, i, True)
         out.append(_check_scaling(_attach_companions(s, path, i, s.meta["order"],

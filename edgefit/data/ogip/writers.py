@@ -328,6 +328,7 @@ def write_dataset(directory, stem, spectra, response: Response, *, overwrite=Fal
             raise ArgumentError("either every spectrum has a background or none has")
         paths["bkg"] = os.path.join(directory, f"{stem}_bkg.pha")
         for b, s in zip(bkgs, specs):
+            assert b is not None  # every background is present (checked just above)
             b.meta.setdefault("order", s.meta.get("order"))
             b.meta.setdefault("arm", s.meta.get("arm"))
         write_pha(paths["bkg"], bkgs, overwrite=overwrite, type2=len(bkgs) > 1,
