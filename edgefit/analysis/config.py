@@ -40,6 +40,7 @@ import math
 import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
+from typing import ClassVar
 
 from astropy import units as u
 
@@ -353,6 +354,7 @@ def _name_or_names(v):
     return v == "all" or (isinstance(v, list) and all(isinstance(x, str) for x in v))
 
 
+@dataclass
 class _Section:
     """Shared reading of one configuration table into a dataclass.
 
@@ -360,8 +362,8 @@ class _Section:
     (predicate, what the user must give); values are checked before the
     object is made, and ``_check`` adds checks across fields."""
 
-    KEY = ""
-    CHECKS: dict = {}
+    KEY: ClassVar[str] = ""
+    CHECKS: ClassVar[dict] = {}
 
     @classmethod
     def keys(cls):
@@ -611,8 +613,9 @@ class PlotSettings(_Section):
 
 
 #: Configuration sections with a settings class: name -> class.
-SECTIONS = {"fit": FitSettings, "errors": ErrorSettings, "mcmc": McmcSettings,
-            "derived": DerivedSettings, "goodness": GoodnessSettings, "plots": PlotSettings}
+SECTIONS: dict[str, type[_Section]] = {
+    "fit": FitSettings, "errors": ErrorSettings, "mcmc": McmcSettings,
+    "derived": DerivedSettings, "goodness": GoodnessSettings, "plots": PlotSettings}
 
 
 @dataclass

@@ -212,7 +212,7 @@ def _unknown(table, allowed, path, key):
 
 
 def _hydrogen(sl, path, key):
-    out = {}
+    out: dict[str, float | None] = {}
     for t in TRACERS:
         for k in (t, f"{t}_err"):
             v = sl.get(k)
@@ -257,7 +257,9 @@ def load_manifest(path):
     sightlines = data.get("sightline")
     if not isinstance(sightlines, list) or not sightlines:
         raise ConfigError(path, "sightline: give at least one [[sightline]] table")
-    entries, seen, folders = [], {}, {}
+    entries: list = []
+    seen: dict = {}
+    folders: dict = {}
     for i, sl in enumerate(sightlines):
         key = f"sightline[{i}]"
         _table(sl, path, key)

@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -66,7 +67,7 @@ class ColumnTargets:
 def column_targets(model, element=None):
     """Find the gas-phase and dust column parameters (components declaring
     ``phase = "gas"``/``"dust"``, an ``element`` and a ``col`` parameter)."""
-    found = {}
+    found: dict[str, Any] = {}
     for comp in model.components():
         phase = getattr(comp, "phase", None)
         el = getattr(comp, "element", None)
@@ -298,7 +299,7 @@ def exposure_table(forecast, exposures):
     from astropy.table import Table
 
     unit = u.Unit(forecast.targets.unit) if forecast.targets.unit else u.dimensionless_unscaled
-    rows = {k: [] for k in ("sigma_gas", "sigma_dust", "sigma_total", "correlation",
+    rows: dict[str, list[float]] = {k: [] for k in ("sigma_gas", "sigma_dust", "sigma_total", "correlation",
                             "sigma_gas_size_known", "sigma_dust_size_known",
                             "sigma_total_size_known")}
     for t in exposures:

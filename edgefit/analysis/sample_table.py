@@ -36,6 +36,7 @@ import os
 import tempfile
 import warnings
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -95,7 +96,7 @@ def _totals(result):
     der = result.derived
     if der is None:
         return {}
-    by_el = {}
+    by_el: dict[str, Any] = {}
     for comp in result.model.components():
         phase = getattr(comp, "phase", None)
         element = getattr(comp, "element", None)
@@ -193,7 +194,9 @@ def sample_table(records, hydrogen=None, meta=None):
     from astropy.table import Column, Table
 
     hydrogen = hydrogen or {}
-    order, units, sources = [], {}, {}
+    order: list = []
+    units: dict = {}
+    sources: dict = {}
     for r in records:
         for qname, _b, _lo, _hi, unit, src in r["quantities"]:
             if qname not in units:

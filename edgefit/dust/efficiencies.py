@@ -133,5 +133,5 @@ def efficiencies(m, x, method="auto", rtol=DEFAULT_RTOL, *, m_minus_1=None,
         for o, v in zip(out, r):
             o[exact] = v
     if scalar:
-        out = [float(o) for o in out]
+        return MieEfficiencies(*(float(o) for o in out))
     return MieEfficiencies(*out)

@@ -157,7 +157,7 @@ def coverage_table(records, methods=("profile", "mcmc")):
     binomial band around the nominal level and a verdict (95 % >= 93 %;
     68 % not below the band)."""
     lines = []
-    by_el = {}
+    by_el: dict[str, list] = {}
     for r in records:
         by_el.setdefault(r["task"]["element"], []).append(r)
     for el, recs in sorted(by_el.items()):
@@ -199,7 +199,7 @@ def check_targets(records, method="profile"):
     """{(element, quantity): (c68, c95, ok)} against the targets."""
     out = {}
     key = "hits" if method == "profile" else "mcmc_hits"
-    by_el = {}
+    by_el: dict[str, list] = {}
     for r in records:
         if key in r:
             by_el.setdefault(r["task"]["element"], []).append(r)

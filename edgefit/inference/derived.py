@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -136,7 +137,7 @@ def _reference_energy(comp, reference_energy):
 def _evaluate_all(model, values, refs):
     """name -> (value, unit, description) for one set of full values."""
     out = {}
-    columns = {}
+    columns: dict[str, Any] = {}
     to_model = getattr(model, "model_values", None)
     if to_model is not None:  # e.g. TotalAndFraction: gas and dust columns from its pair
         values = to_model(values)

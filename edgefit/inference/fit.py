@@ -47,6 +47,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from typing import Any
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -84,7 +85,7 @@ class Minimum:
     """One distinct minimum met by the multi-start fit."""
 
     statistic: float
-    params: object = field(repr=False)  # lmfit Parameters at the minimum
+    params: Any = field(repr=False)  # lmfit Parameters at the minimum
     start: str = ""
     delta: float = 0.0
 
@@ -287,7 +288,7 @@ def _column_pairs(model, params):
     """{element: (gas column names, dust column names)} of the free column
     parameters of components declaring ``phase`` gas/dust (their first
     parameter, in 1e16 cm^-2)."""
-    out = {}
+    out: dict[str, Any] = {}
     for comp in model.components():
         phase = getattr(comp, "phase", None)
         element = getattr(comp, "element", None)
@@ -482,7 +483,7 @@ def reparametrise(result, columns="total_fraction", *, gas=None, dust=None, poli
         if isinstance(model, TotalAndFraction):
             raise ModelError("the fit is already in total/fraction form")
         if gas is None or dust is None:
-            pairs = {}
+            pairs: dict[str, Any] = {}
             for comp in model.components():
                 ph = getattr(comp, "phase", None)
                 if ph in ("gas", "dust"):

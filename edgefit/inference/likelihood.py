@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import ast
 import math
+from typing import Any
 
 import numpy as np
 
@@ -114,7 +115,7 @@ class JointLikelihood:
         on the union of their slices."""
         from ..models.base import EnergyGrid
 
-        groups = {}
+        groups: dict[Any, list[int]] = {}
         for i, ds in enumerate(self.datasets):
             groups.setdefault(ds.response.grid.key, []).append(i)
         self._plan = []  # (union grid, [(dataset index, offset, length)])
@@ -246,11 +247,13 @@ def _linear_tie(expr):
         return None
 
     def num(node):
-        if isinstance(node, ast.Constant) and type(node.value) in (int, float):
+        if (isinstance(node, ast.Constant) and isinstance(node.value, (int, float))
+                and not isinstance(node.value, bool)):
             return float(node.value)
         if (isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd))
                 and isinstance(node.operand, ast.Constant)
-                and type(node.operand.value) in (int, float)):
+                and isinstance(node.operand.value, (int, float))
+                and not isinstance(node.operand.value, bool)):
             v = float(node.operand.value)
             return -v if isinstance(node.op, ast.USub) else v
         return None
@@ -353,7 +356,7 @@ class CompiledLikelihood:
             self.lower = np.array([decl[n][1].min if n in decl else 0.2 for n in self.free])
             self.upper = np.array([decl[n][1].max if n in decl else 5.0 for n in self.free])
         # ties: index maps in dependency order, or lmfit for the rest
-        self._ties = []      # (target, source, a, d, b)
+        self._ties: list[tuple] = []    # (target, source, a, d, b)
         self._expr_ties = []  # target names evaluated by lmfit
         linear = {n: _linear_tie(e) for n, e in ties.items()}
         if any(v is None or v[0] not in index for v in linear.values()):
@@ -421,6 +424,7 @@ class CompiledLikelihood:
             v[t] = a * v[src] / d + b
         if self._expr_ties:
             params = self._params
+            assert params is not None  # kept whenever there are expression ties
             for n, x in zip(self.free, v[self._free_idx]):
                 params[n].value = float(x)
             params.update_constraints()

@@ -46,6 +46,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from typing import Any, Callable
 
 import numpy as np
 
@@ -160,7 +161,7 @@ class McmcResult:
     def diagnostics_ok(self):
         """R-hat and ESS within :data:`RHAT_MAX` / :data:`ESS_MIN` (True
         when they were not computed)."""
-        if self.rhat is None:
+        if self.rhat is None or self.ess is None:
             return True
         return bool(np.nanmax(self.rhat) <= RHAT_MAX and np.nanmin(self.ess) >= ESS_MIN)
 
@@ -187,7 +188,7 @@ class McmcResult:
                  f"thin {self.thin}, acceptance {np.mean(self.acceptance):.2f}, "
                  f"max tau {np.nanmax(self.tau):.1f} steps"
                  + ("  [SHORT CHAIN: < 50 tau]" if self.short_chain else "")]
-        if self.rhat is not None:
+        if self.rhat is not None and self.ess is not None:
             lines.append(f"  split-R-hat max {np.nanmax(self.rhat):.3f} (<= {RHAT_MAX}), bulk ESS "
                          f"min {np.nanmin(self.ess):.0f} (>= {ESS_MIN})"
                          + ("" if self.diagnostics_ok else "  [NOT CONVERGED]"))
@@ -218,7 +219,8 @@ class McmcResult:
                               for n in self.names}}
 
 
-_WORKER_LOGP = None
+#: the log-posterior in a pool worker (set there by _init_worker)
+_WORKER_LOGP: Any = None
 
 
 def _init_worker(logp):
@@ -482,7 +484,7 @@ def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
     start, centres = _initial_walkers(result, pv, coords, target, nwalkers, rng, init,
                                       init_scale)
     pool = None
-    fn = target
+    fn: Callable[[np.ndarray], float] = target
     if processes and processes > 1:
         import multiprocessing
 

@@ -159,7 +159,9 @@ class Component(ModelNode):
         Initial values, as numbers in each parameter's unit or Quantities.
     """
 
-    params: ClassVar[tuple[Param, ...]] = ()
+    # a class attribute; components whose parameters depend on their options
+    # (size-distribution family, materials) set their own per instance
+    params: tuple[Param, ...] = ()
     default_name: ClassVar[str] = "comp"
     registry_name: ClassVar[str | None] = None
     #: The element whose column this component carries (e.g. ``"Si"``; set
@@ -220,7 +222,8 @@ class Component(ModelNode):
         :meth:`prepare`)."""
         return None
 
-    def _evaluate(self, grid: EnergyGrid, pre: Any, **values) -> np.ndarray:
+    def _evaluate(self, grid: EnergyGrid, pre: Any, *args: Any, **values: Any) -> np.ndarray:
+        # subclasses name their parameters: _evaluate(self, grid, pre, nh, ...)
         raise NotImplementedError
 
     def optical_depth(self, energy_kev, **values) -> np.ndarray:

@@ -18,6 +18,7 @@ Registry names: ``photon_power_law``, ``multicolour_disk``,
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 from astropy import constants as const
@@ -287,7 +288,8 @@ class _QuadratureContinuum(Component):
         return bin_nodes(grid.lo, grid.hi)
 
     @staticmethod
-    def _shape(energy, **values):
+    def _shape(energy, *args: Any, **values: Any):
+        # subclasses name their parameters: _shape(energy, kt, norm)
         raise NotImplementedError
 
     def _evaluate(self, grid, pre, **values):

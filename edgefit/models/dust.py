@@ -168,8 +168,9 @@ class DustEdge(Component):
             if sizes.PARAMS:
                 raise ModelError("pass a size-distribution family by name to fit its "
                                  "parameters, or a TabulatedSizes for a fixed table")
-            self.family, self.fixed_distribution = "table", sizes
-            dist_params = ()
+            self.family = "table"
+            self.fixed_distribution: SizeDistribution | None = sizes
+            dist_params: tuple[Param, ...] = ()
         else:
             if sizes not in FAMILIES:
                 raise ModelError(f"unknown size distribution {sizes!r}; have "

@@ -177,7 +177,7 @@ class MultiEdgeDust(Component):
         names = [m.name for m in self.materials]
         if len(set(names)) != len(names):
             raise ModelError(f"materials: {names} names a material twice")
-        present = {}
+        present: dict[str, None] = {}
         for m in self.materials:
             for el in m.composition:
                 present.setdefault(el, None)
@@ -214,8 +214,9 @@ class MultiEdgeDust(Component):
             if sizes.PARAMS:
                 raise ModelError("sizes: pass a family by name to fit its parameters, or a "
                                  "TabulatedSizes for a fixed table")
-            self.family, self.fixed_distribution = "table", sizes
-            dist_params = ()
+            self.family = "table"
+            self.fixed_distribution: SizeDistribution | None = sizes
+            dist_params: tuple[Param, ...] = ()
         else:
             if sizes not in FAMILIES:
                 raise ModelError(f"sizes: unknown size distribution {sizes!r}; have "
@@ -255,11 +256,11 @@ class MultiEdgeDust(Component):
     def _initial_fractions(self, fractions):
         by_name = {m.name: m for m in self.materials}
         if not isinstance(fractions, dict):
-            vals = list(fractions)
-            if len(vals) != len(self.materials):
+            given = list(fractions)
+            if len(given) != len(self.materials):
                 raise ModelError(f"fractions: a list needs one fraction per material "
-                                 f"{list(by_name)}, got {len(vals)}")
-            fractions = dict(zip(by_name, vals))
+                                 f"{list(by_name)}, got {len(given)}")
+            fractions = dict(zip(by_name, given))
         unknown = set(fractions) - set(by_name)
         if unknown:
             raise ModelError(f"fractions: {sorted(unknown)} are not among the materials "
@@ -341,7 +342,7 @@ class MultiEdgeDust(Component):
         elements."""
         tab = _tables()
         regs = sorted({tab.region_for(el)[1:] for el in self.elements})
-        out = []
+        out: list[tuple[float, float]] = []
         for lo, hi in regs:
             if out and lo < out[-1][1]:
                 lo = out[-1][1]
@@ -449,6 +450,7 @@ class MultiEdgeDust(Component):
             per.append({"energy": e, "abs": sa, "sca": ss, "other": other,
                         "fu_per_um3": mat.formula_units_per_cm3 * 1e-12})
             energy = e if energy is None else energy
+        assert sizes is not None  # there is at least one material
         return {"materials": per, "a3": sizes.a ** 3, "sizes": sizes}
 
     def precompute(self, grid: EnergyGrid):

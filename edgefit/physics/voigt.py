@@ -294,7 +294,7 @@ def grid_transmission(grid, c, A, s, g, tau_floor=1e-5, tol=1e-5, max_sub=4096,
     i0, j0 = ih[:nl], ih[nl:]
     j1, i1 = il[:nl], il[nl:]
     # bins needing sub-samples: union of the cores
-    ivs = []
+    ivs: list[list[int]] = []
     for a_, b_ in sorted(zip(j0.tolist(), j1.tolist())):
         if b_ <= a_:
             continue

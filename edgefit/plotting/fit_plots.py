@@ -17,6 +17,8 @@ Sizes suit print: one-column figures 3.5 in wide or two-column 7 in, fonts
 """
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
 from .._units import HC_KEV_ANGSTROM
@@ -26,7 +28,7 @@ from ..errors import ArgumentError, MissingDependencyError
 __all__ = ["plot_spectra", "plot_transmission", "plot_corner", "plot_profiles", "save_all",
            "save_configured"]
 
-_RC = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8, "xtick.labelsize": 8,
+_RC: dict[Any, Any] = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8, "xtick.labelsize": 8,
        "ytick.labelsize": 8, "lines.linewidth": 1.0}
 
 
@@ -46,7 +48,7 @@ def _edge_markers(result):
     """(label, energy keV) of the edges the model's absorbers declare
     (``edge_kev`` attribute or ``edge_energy()`` method, with ``element``),
     one per element and energy."""
-    out = {}
+    out: dict[Any, Any] = {}
     for comp in result.model.components():
         e = getattr(comp, "edge_kev", None)
         if e is None and callable(getattr(comp, "edge_energy", None)):
