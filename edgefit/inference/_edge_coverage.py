@@ -141,8 +141,9 @@ def _mcmc_hits(tf, true_q, tname, fname, nsteps=1500, nwalkers=32):
         for lev in LEVELS:
             lo, hi = np.quantile(x, [0.5 - lev / 2, 0.5 + lev / 2])
             hits[f"mcmc_{q}_{lev}"] = bool(lo <= true_q[q] <= hi)
-    return {"mcmc_hits": hits, "mcmc_rhat_max": float(np.nanmax(mc.rhat))
-            if getattr(mc, "rhat", None) is not None else None,
+    rhat = getattr(mc, "rhat", None)
+    return {"mcmc_hits": hits, "mcmc_rhat_max": float(np.nanmax(rhat))
+            if rhat is not None else None,
             "mcmc_mixing_warning": bool(getattr(mc, "unmixed_modes", False))}
 
 

@@ -23,6 +23,8 @@ by :class:`~edgefit.inference.fit.JointLikelihood`, not by the dataset.
 """
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import scipy.sparse as sp
 from astropy import units as u
@@ -34,7 +36,7 @@ from .._units import as_kev
 __all__ = ["Dataset", "parse_ranges"]
 
 
-def parse_ranges(ranges, unit="keV"):
+def parse_ranges(ranges: Any, unit: str | u.UnitBase = "keV") -> list[tuple[float, float]] | None:
     """Fit ranges as a list of (lo, hi) in keV.
 
     ``ranges`` is one pair or a list of pairs; each value a number in

@@ -33,12 +33,15 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
 from ..models.base import ADDITIVE, COLUMN_KEY, element_column_key
 from ..stats import ONE_SIGMA
+
+if TYPE_CHECKING:
+    from .result import FitResult
 
 __all__ = ["DerivedQuantity", "DerivedSummary", "derived_quantities", "COLUMN_KEY",
            "PHASES"]
@@ -180,8 +183,9 @@ def _evaluate_all(model, values, refs):
     return out
 
 
-def derived_quantities(result, reference_energy=None, levels=(ONE_SIGMA, 0.90), max_draws=2000,
-                       seed=0, store=True):
+def derived_quantities(result: FitResult, reference_energy: Any = None,
+                       levels: Sequence[float] = (ONE_SIGMA, 0.90), max_draws: int = 2000,
+                       seed: int | None = 0, store: bool = True) -> DerivedSummary:
     """Derived quantities of a fit with posterior intervals.
 
     Parameters

@@ -47,14 +47,18 @@ from __future__ import annotations
 
 import math
 import warnings
-from typing import Any
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
 from ..errors import ConvergenceWarning, FitError, ModelError
 from .likelihood import JointLikelihood
 from .result import FitResult
+
+if TYPE_CHECKING:
+    from ..models.base import ModelNode
+    from .dataset import Dataset
 
 __all__ = ["fit_sightline", "minimise", "LeastSquaresObjective", "BOUND_TOLERANCE",
            "Minimum", "size_parameter_names", "size_start_values", "MULTIMODAL_DELTA",
@@ -341,10 +345,12 @@ def degeneracy_flags(result):
     return flags
 
 
-def fit_sightline(model, datasets, *, statistic="poisson", method="least_squares",
-                  params=None, chi2_variance="data", fallback=True, xnorm_free=True,
-                  goodness=True, warn=True, starts="auto", n_size_starts=N_SIZE_STARTS,
-                  multimodal_delta=MULTIMODAL_DELTA):
+def fit_sightline(model: ModelNode, datasets: Sequence[Dataset], *, statistic: str = "poisson",
+                  method: str = "least_squares", params: Any = None,
+                  chi2_variance: str = "data", fallback: bool = True, xnorm_free: bool = True,
+                  goodness: bool = True, warn: bool = True, starts: str = "auto",
+                  n_size_starts: int = N_SIZE_STARTS,
+                  multimodal_delta: float = MULTIMODAL_DELTA) -> FitResult:
     """Fit ``model`` jointly to ``datasets``.
 
     Parameters

@@ -24,6 +24,7 @@ Two checks:
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import stats as sps
@@ -31,6 +32,9 @@ from scipy import stats as sps
 from .. import stats
 from ..stats import profiled_background_level
 from ..errors import ArgumentError
+
+if TYPE_CHECKING:
+    from .result import FitResult
 
 __all__ = ["c_statistic_goodness", "posterior_predictive"]
 
@@ -50,7 +54,7 @@ def _means(likelihood, mus):
     return out
 
 
-def c_statistic_goodness(result):
+def c_statistic_goodness(result: FitResult) -> dict[str, Any]:
     """Goodness of fit of a C-statistic fit (see module docstring).
 
     Returns a dict: ``expected``, ``variance``, ``z``, ``p_value``,
@@ -74,7 +78,8 @@ def c_statistic_goodness(result):
             "n_free_subtracted": result.n_free, "n_background_profiled": n_bkg}
 
 
-def posterior_predictive(result, samples=None, n_draws=200, seed=None):
+def posterior_predictive(result: FitResult, samples: np.ndarray | None = None,
+                         n_draws: int = 200, seed: int | None = None) -> dict[str, Any]:
     """Posterior predictive p-value of the C statistic.
 
     Parameters

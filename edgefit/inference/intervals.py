@@ -53,6 +53,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 from scipy import optimize
@@ -60,6 +61,9 @@ from scipy import stats as sps
 
 from ..errors import ArgumentError, UnknownParameterError
 from .result import Interval
+
+if TYPE_CHECKING:
+    from .result import FitResult
 
 __all__ = ["delta_statistic", "profile_interval", "profile_intervals", "ProfileScan",
            "ProfileCurve", "SCAN_MARGIN", "PROFILE_SIZE_STARTS"]
@@ -303,14 +307,18 @@ def _dips(xs, ds, best):
     return out
 
 
-def profile_interval(result, name, level=0.6827, method="least_squares", **kw):
+def profile_interval(result: FitResult, name: str, level: float = 0.6827,
+                     method: str = "least_squares", **kw: Any) -> Interval:
     """Profile-likelihood interval of one parameter at one level
     (see module docstring).  Returns an :class:`Interval`."""
     return profile_intervals(result, [name], [level], method=method, **kw)[name][level]
 
 
-def profile_intervals(result, names, levels=(0.6827, 0.90), method="least_squares",
-                      store=True, multistart=True, n_size_starts=PROFILE_SIZE_STARTS):
+def profile_intervals(result: FitResult, names: Sequence[str],
+                      levels: Sequence[float] = (0.6827, 0.90), method: str = "least_squares",
+                      store: bool = True, multistart: bool = True,
+                      n_size_starts: int = PROFILE_SIZE_STARTS
+                      ) -> dict[str, dict[float, Interval]]:
     """Intervals for each parameter in ``names`` at each confidence level.
 
     Returns {name: {level: Interval}}; also stored in ``result.intervals``

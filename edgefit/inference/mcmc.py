@@ -46,13 +46,16 @@ from __future__ import annotations
 
 import math
 import warnings
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
 from ..errors import ArgumentError, FitError, ModeMixingWarning, ShortChainWarning
 from ..stats import ONE_SIGMA
 from .likelihood import ParameterVector
+
+if TYPE_CHECKING:
+    from .result import FitResult
 
 __all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc",
            "SamplerCoordinates", "SampledPosterior", "chain_diagnostics", "RHAT_MAX", "ESS_MIN"]
@@ -429,9 +432,12 @@ def _initial_walkers(result, pv, coords, logp_y, nwalkers, rng, init, init_scale
     return start, [coords.to_y(c) for c in centres]
 
 
-def run_mcmc(result, nwalkers=None, nsteps=2000, burn=None, thin=1, seed=None,
-             priors=None, progress=False, processes=None, init_scale=1.0, store=True,
-             coordinates="auto", prior="sampled", init="minima"):
+def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
+             burn: int | None = None, thin: int = 1, seed: int | None = None,
+             priors: dict[str, Any] | None = None, progress: bool = False,
+             processes: int | None = None, init_scale: float = 1.0, store: bool = True,
+             coordinates: str = "auto", prior: str = "sampled",
+             init: str = "minima") -> McmcResult:
     """Sample the posterior around a best fit with emcee.
 
     Parameters
