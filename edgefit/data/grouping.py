@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.sparse as sp
+from numpy.typing import ArrayLike
 
 from ..errors import ArgumentError
 
@@ -18,7 +19,8 @@ __all__ = ["group_min_counts", "group_starts", "group_sum", "grouping_matrix",
            "group_bounds"]
 
 
-def group_min_counts(counts, min_counts, quality=None, mask=None) -> np.ndarray:
+def group_min_counts(counts: ArrayLike, min_counts: float, quality: ArrayLike | None = None,
+                     mask: ArrayLike | None = None) -> np.ndarray:
     """GROUPING array so that each group has at least ``min_counts`` counts.
 
     Channels are scanned in order; a group closes as soon as its total
@@ -81,13 +83,13 @@ def group_starts(grouping) -> np.ndarray:
     return starts
 
 
-def group_sum(values, grouping) -> np.ndarray:
+def group_sum(values: ArrayLike, grouping: ArrayLike) -> np.ndarray:
     """Sum ``values`` (counts, model counts) over each group."""
     v = np.asarray(values, dtype=float)
     return np.add.reduceat(v, group_starts(grouping)) if v.size else v
 
 
-def grouping_matrix(grouping) -> sp.csr_array:
+def grouping_matrix(grouping: ArrayLike) -> sp.csr_array:
     """Sparse (n_groups x n_channels) 0/1 matrix G so that G @ x sums
     channel values into groups; G @ (R @ f) groups folded model counts."""
     g = np.asarray(grouping, dtype=int)

@@ -17,6 +17,7 @@ mean r_b t_b.  Counts are drawn from a seeded :class:`numpy.random.Generator`.
 from __future__ import annotations
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from ..errors import ArgumentError, BadExposureError, ModelError
 from .response import Response
@@ -33,8 +34,9 @@ def _rng(rng):
     return np.random.default_rng(rng)
 
 
-def expected_counts(flux, response: Response, exposure, background_rate=None,
-                    backscal=1.0, background_backscal=1.0):
+def expected_counts(flux: ArrayLike, response: Response, exposure: float,
+                    background_rate: ArrayLike | None = None, backscal: float = 1.0,
+                    background_backscal: float = 1.0) -> np.ndarray:
     """Expected counts per channel in the source region (see module docstring)."""
     flux = np.asarray(flux, dtype=float)
     if flux.shape != (response.n_energies,):
@@ -49,9 +51,11 @@ def expected_counts(flux, response: Response, exposure, background_rate=None,
     return mu
 
 
-def simulate_spectrum(flux, response: Response, exposure, rng, *, background_rate=None,
-                      backscal=1.0, background_backscal=1.0, background_exposure=None,
-                      meta=None) -> Spectrum:
+def simulate_spectrum(flux: ArrayLike, response: Response, exposure: float,
+                      rng: np.random.Generator, *, background_rate: ArrayLike | None = None,
+                      backscal: float = 1.0, background_backscal: float = 1.0,
+                      background_exposure: float | None = None,
+                      meta: dict | None = None) -> Spectrum:
     """Draw a Poisson spectrum (and optionally its background spectrum).
 
     Parameters

@@ -98,7 +98,7 @@ def _check_channel_bounds(e_min, e_max, path):
 # ----------------------------------------------------------------------
 # ARF, EBOUNDS, RMF
 @file_errors
-def read_arf(path) -> ArfData:
+def read_arf(path: str | os.PathLike) -> ArfData:
     """Read an ARF (SPECRESP extension).
 
     Returns
@@ -153,7 +153,7 @@ def _read_ebounds_hdu(hdul, path) -> EboundsData:
 
 
 @file_errors
-def read_ebounds(path) -> EboundsData:
+def read_ebounds(path: str | os.PathLike) -> EboundsData:
     """Channel energy bounds (keV) from the EBOUNDS extension of an RMF."""
     return _read_ebounds_hdu(open_fits(path), path)
 
@@ -243,7 +243,7 @@ def _read_matrix_hdu(hdu, path, n_chan_hint=None, chan_offset_hint=None):
 
 
 @file_errors
-def read_rmf(path, arf=None) -> Response:
+def read_rmf(path: str | os.PathLike, arf: str | os.PathLike | None = None) -> Response:
     """Read an RMF (or a full RSP) and, optionally, multiply in an ARF.
 
     Parameters
@@ -288,7 +288,7 @@ def read_rmf(path, arf=None) -> Response:
                     specresp=specresp, rmf_path=os.fspath(path), arf_path=arf_path, meta=meta)
 
 
-def read_response(rmf, arf=None) -> Response:
+def read_response(rmf: str | os.PathLike, arf: str | os.PathLike | None = None) -> Response:
     """Response from an RMF (or RSP) file and an optional ARF file:
     the sparse folding matrix RMF x ARF.  Same as :func:`read_rmf`."""
     return read_rmf(rmf, arf=arf)

@@ -389,7 +389,8 @@ def _read_type1(t: Table, path, row, order, arm, attach):
 
 
 @file_errors
-def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spectrum]:
+def read_pha_rows(path: str | os.PathLike, attach: bool = True, row: int | None = None,
+                  order: int | None = None, arm: int | str | None = None) -> list[Spectrum]:
     """Every spectrum in a PHA file: one for type I, one per row for type II
     (optionally only the rows matching ``row``/``order``/``arm``).
 
@@ -416,7 +417,8 @@ def read_pha_rows(path, attach=True, row=None, order=None, arm=None) -> list[Spe
 
 
 @file_errors
-def read_pha(path, row=None, order=None, arm=None, attach=True) -> Spectrum:
+def read_pha(path: str | os.PathLike, row: int | None = None, order: int | None = None,
+             arm: int | str | None = None, attach: bool = True) -> Spectrum:
     """Read one spectrum from a PHA type I or type II file.
 
     Parameters
@@ -469,7 +471,9 @@ def _read_one(path, row, order, arm, attach):
 
 
 @file_errors
-def load_spectrum(pha, rmf=None, arf=None, background=None, row=None, order=None, arm=None):
+def load_spectrum(pha: str | os.PathLike, rmf: str | os.PathLike | None = None, arf: str | os.PathLike | None = None,
+                  background: str | os.PathLike | None = None, row: int | None = None,
+                  order: int | None = None, arm: int | str | None = None) -> Spectrum:
     """A spectrum with its response and background, from explicit files or
     from the names in the PHA header.
 

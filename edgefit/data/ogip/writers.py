@@ -3,8 +3,10 @@ simulated data set); see :mod:`edgefit.data.ogip` for the layouts."""
 from __future__ import annotations
 
 import os
+from typing import Any, Sequence
 
 import numpy as np
+from numpy.typing import ArrayLike
 import scipy.sparse as sp
 from astropy.io import fits
 
@@ -71,8 +73,10 @@ def _scalar_or_none(v):
     return None if np.ndim(v) else float(v)
 
 
-def write_pha(path, spectra, *, overwrite=False, respfile=None, ancrfile=None, backfile=None,
-              type2=None, background=False, object_name=None):
+def write_pha(path: str | os.PathLike, spectra: Spectrum | Sequence[Spectrum], *,
+              overwrite: bool = False, respfile: str | None = None, ancrfile: str | None = None,
+              backfile: str | None = None, type2: bool | None = None, background: bool = False,
+              object_name: str | None = None) -> None:
     """Write spectra as an OGIP PHA file (type I for one spectrum, type II
     for several, or as chosen with ``type2``).
 
@@ -191,8 +195,9 @@ def write_pha(path, spectra, *, overwrite=False, respfile=None, ancrfile=None, b
     fits.HDUList([primary, hdu]).writeto(path, overwrite=overwrite)
 
 
-def write_arf(path, energy_lo, energy_hi, specresp, *, overwrite=False, telescope=None,
-              instrument=None, simulated=False):
+def write_arf(path: str | os.PathLike, energy_lo: ArrayLike, energy_hi: ArrayLike, specresp: ArrayLike, *,
+              overwrite: bool = False, telescope: str | None = None,
+              instrument: str | None = None, simulated: bool = False) -> None:
     """Write an ARF: ENERG_LO, ENERG_HI (keV) and SPECRESP (cm^2)
     (CAL/GEN/92-002, HDUCLAS1 = 'RESPONSE', HDUCLAS2 = 'SPECRESP')."""
     lo = np.asarray(energy_lo, float)
@@ -220,8 +225,10 @@ def _groups_of_column(indices):
     return indices[starts], ends - starts
 
 
-def write_rmf(path, response: Response, *, overwrite=False, include_area=False,
-              telescope=None, instrument=None, simulated=False, lo_thresh=0.0):
+def write_rmf(path: str | os.PathLike, response: Response, *, overwrite: bool = False,
+              include_area: bool = False, telescope: str | None = None,
+              instrument: str | None = None, simulated: bool = False,
+              lo_thresh: float = 0.0) -> None:
     """Write a response's redistribution matrix with EBOUNDS.
 
     F_CHAN, N_CHAN and MATRIX are written as variable-length arrays
@@ -286,11 +293,12 @@ def write_rmf(path, response: Response, *, overwrite=False, include_area=False,
     fits.HDUList([fits.PrimaryHDU(), hdu, ehdu]).writeto(path, overwrite=overwrite)
 
 
-def write_response(response: Response, rmf_path, arf_path=None, *, overwrite=False,
-                   simulated=False, telescope=None, instrument=None):
+def write_response(response: Response, rmf_path: str | os.PathLike, arf_path: str | os.PathLike | None = None, *,
+                   overwrite: bool = False, simulated: bool = False,
+                   telescope: str | None = None, instrument: str | None = None) -> None:
     """Write a response as RMF + ARF (when ``arf_path`` is given) or as a
     single RSP with the area included (when it is not)."""
-    kw = dict(overwrite=overwrite, simulated=simulated, telescope=telescope,
+    kw: dict[str, Any] = dict(overwrite=overwrite, simulated=simulated, telescope=telescope,
               instrument=instrument)
     if arf_path is None:
         write_rmf(rmf_path, response, include_area=True, **kw)
@@ -299,8 +307,9 @@ def write_response(response: Response, rmf_path, arf_path=None, *, overwrite=Fal
         write_arf(arf_path, response.energy_lo, response.energy_hi, response.specresp, **kw)
 
 
-def write_dataset(directory, stem, spectra, response: Response, *, overwrite=False,
-                  telescope=None, instrument=None) -> dict:
+def write_dataset(directory: str | os.PathLike, stem: str, spectra: Spectrum | Sequence[Spectrum],
+                  response: Response, *, overwrite: bool = False, telescope: str | None = None,
+                  instrument: str | None = None) -> dict:
     """Write spectra with their response (and backgrounds) as a consistent
     set of OGIP files that :func:`read_pha` re-assembles.
 
@@ -322,13 +331,13 @@ def write_dataset(directory, stem, spectra, response: Response, *, overwrite=Fal
     write_response(response, paths["rmf"], paths["arf"], overwrite=overwrite,
                    simulated=simulated, telescope=telescope, instrument=instrument)
     backfile = None
-    bkgs = [s.background for s in specs]
-    if any(b is not None for b in bkgs):
-        if any(b is None for b in bkgs):
+    with_bkg = [s.background for s in specs]
+    if any(b is not None for b in with_bkg):
+        bkgs = [b for b in with_bkg if b is not None]
+        if len(bkgs) != len(with_bkg):
             raise ArgumentError("either every spectrum has a background or none has")
         paths["bkg"] = os.path.join(directory, f"{stem}_bkg.pha")
         for b, s in zip(bkgs, specs):
-            assert b is not None  # every background is present (checked just above)
             b.meta.setdefault("order", s.meta.get("order"))
             b.meta.setdefault("arm", s.meta.get("arm"))
         write_pha(paths["bkg"], bkgs, overwrite=overwrite, type2=len(bkgs) > 1,
