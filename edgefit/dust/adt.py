@@ -51,6 +51,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .mie import MieEfficiencies, _prepare_index
 
@@ -99,7 +100,8 @@ def adt_k(w):
     return out[()] if out.ndim == 0 else out
 
 
-def adt_efficiencies(m, x, *, m_minus_1=None):
+def adt_efficiencies(m: ArrayLike | None, x: ArrayLike, *,
+                     m_minus_1: ArrayLike | None = None) -> MieEfficiencies:
     r"""Anomalous-diffraction efficiencies (van de Hulst 1957) of spheres.
 
     Parameters

@@ -46,6 +46,7 @@ is exact Mie everywhere.
 from __future__ import annotations
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .adt import adt_efficiencies
 from .mie import MieEfficiencies, _prepare_index, mie_efficiencies
@@ -82,8 +83,9 @@ def adt_error_bound(m, x, *, m_minus_1=None):
     return 2.5 * r * (1.0 + 6.0 * r) + (np.log(4.0 * x) + 1.0) / (x * x)
 
 
-def efficiencies(m, x, method="auto", rtol=DEFAULT_RTOL, *, m_minus_1=None,
-                 backend="auto"):
+def efficiencies(m: ArrayLike | None, x: ArrayLike, method: str = "auto",
+                 rtol: float = DEFAULT_RTOL, *, m_minus_1: ArrayLike | None = None,
+                 backend: str = "auto") -> MieEfficiencies:
     r"""Efficiencies of homogeneous spheres by exact Mie theory, ADT or an automatic mix.
 
     Parameters

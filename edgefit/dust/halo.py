@@ -46,6 +46,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.special import erf
 
 from .._units import HC_KEV_ANGSTROM, as_kev
@@ -57,7 +58,7 @@ __all__ = ["rg_gaussian_width_arcmin", "fraction_in_region", "HaloGeometry"]
 _RAD_TO_ARCMIN = 180.0 * 60.0 / math.pi
 
 
-def rg_gaussian_width_arcmin(energy_kev, a_um):
+def rg_gaussian_width_arcmin(energy_kev: ArrayLike, a_um: ArrayLike) -> float | np.ndarray:
     """σ_θ = √(5/2) / (k a) in arcmin (Gaussian approximation to the
     Rayleigh–Gans form factor; see the module docstring)."""
     e = np.asarray(as_kev(energy_kev), dtype=float)
@@ -66,8 +67,9 @@ def rg_gaussian_width_arcmin(energy_kev, a_um):
     return math.sqrt(2.5) / (k_per_um * a) * _RAD_TO_ARCMIN
 
 
-def fraction_in_region(energy_kev, a_um, halfwidth_arcsec, position=0.5, *,
-                       geometry="strip", along_halfwidth_arcsec=None):
+def fraction_in_region(energy_kev: ArrayLike, a_um: ArrayLike, halfwidth_arcsec: float,
+                       position: float = 0.5, *, geometry: str = "strip",
+                       along_halfwidth_arcsec: float | None = None) -> np.ndarray:
     """Fraction of the light scattered by one grain size that lands in the
     extraction region (broadcast over ``energy_kev`` and ``a_um``).
 

@@ -37,6 +37,7 @@ thousand is a fraction of a second.
 from __future__ import annotations
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .._units import as_kev
 from ..errors import PhysicsDataError
@@ -58,7 +59,8 @@ def _xlogx(c, d):
     return np.where(ad > 0, c * np.log(safe), 0.0)
 
 
-def kk_principal_value(energy_kev, f2, energy_out_kev, *, tails: bool = True,
+def kk_principal_value(energy_kev: ArrayLike, f2: ArrayLike, energy_out_kev: ArrayLike, *,
+                       tails: bool = True,
                        chunk: int = 512) -> float | np.ndarray:
     """PV ∫ ε f2(ε) / (ε² − E²) dε for piecewise-linear f2.
 
@@ -123,7 +125,8 @@ def kk_principal_value(energy_kev, f2, energy_out_kev, *, tails: bool = True,
     return float(out[0]) if scalar else out.reshape(eout.shape)
 
 
-def kk_f1_from_f2(energy_kev, f2, energy_out_kev, z: float, *, tails: bool = True):
+def kk_f1_from_f2(energy_kev: ArrayLike, f2: ArrayLike, energy_out_kev: ArrayLike, z: float, *,
+                  tails: bool = True) -> float | np.ndarray:
     """f1 from f2 by the Kramers–Kronig relation (Henke et al. 1993, eq. 8).
 
     f1(E) = Z* − (2/π) PV ∫ ε f2(ε)/(ε² − E²) dε with Z* from
@@ -152,7 +155,8 @@ def kk_f1_from_f2(energy_kev, f2, energy_out_kev, z: float, *, tails: bool = Tru
     return relativistic_z_star(z) - (2.0 / np.pi) * pv
 
 
-def kk_delta_f1(energy_kev, delta_f2, energy_out_kev):
+def kk_delta_f1(energy_kev: ArrayLike, delta_f2: ArrayLike,
+                energy_out_kev: ArrayLike) -> float | np.ndarray:
     """Change of f1 implied by a change Δf2 that vanishes outside its nodes.
 
     Δf1(E) = −(2/π) PV ∫ ε Δf2(ε)/(ε² − E²) dε (Henke et al. 1993, eq. 8,

@@ -59,9 +59,11 @@ import functools
 import hashlib
 import json
 import math
+from typing import Any
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .._paths import data_file
 from ..errors import PhysicsDataError
@@ -197,7 +199,7 @@ class Material:
                            self.corrections))
 
 
-def atoms_per_grain(material: Material, element, a_um):
+def atoms_per_grain(material: Material, element: str, a_um: ArrayLike) -> float | np.ndarray:
     """Atoms of ``element`` per spherical grain of radius ``a_um`` (µm):
     N = (4π/3) a³ ρ N_A c_Z / M (a in cm)."""
     a_cm = np.asarray(a_um, dtype=float) * 1e-4
@@ -225,7 +227,8 @@ MATERIALS: dict[str, Material] = {m.name: m for m in (
 )}
 
 
-def get_material(material, density=None, name=None) -> Material:
+def get_material(material: str | Material, density: Any = None,
+                 name: str | None = None) -> Material:
     """A :class:`Material` from a built-in name, a Material, or a formula
     with a density (g cm^-3 or Quantity)."""
     if isinstance(material, Material):

@@ -109,6 +109,7 @@ from __future__ import annotations
 from collections import namedtuple
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .. import _jit
 from ..errors import ArgumentError
@@ -160,7 +161,7 @@ def _check_inputs(m, x):
     return m, x
 
 
-def _prepare_index(m, x, m_minus_1=None):
+def _prepare_index(m, x, m_minus_1=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Checked, broadcast (m, m - 1, x).  ``m_minus_1`` (= -delta + i beta),
     when given, defines m and keeps the full precision of m - 1 for indices
     very close to 1."""
@@ -170,7 +171,8 @@ def _prepare_index(m, x, m_minus_1=None):
     m, x = _check_inputs(m, x)
     if m_minus_1 is None:
         mm1 = m - 1.0
-    return np.broadcast_arrays(m, mm1, x)
+    mb, mm1b, xb = np.broadcast_arrays(m, mm1, x)
+    return mb, mm1b, xb
 
 
 # --------------------------------------------------------------------------
@@ -544,8 +546,9 @@ def _blocks(nstop, per_block=64):
     return np.unique(np.concatenate([[0], edges, [nstop.size]])).astype(np.int64)
 
 
-def mie_efficiencies(m, x, *, backend="auto", m_minus_1=None,
-                     chunk_terms=DEFAULT_CHUNK_TERMS):
+def mie_efficiencies(m: ArrayLike | None, x: ArrayLike, *, backend: str = "auto",
+                     m_minus_1: ArrayLike | None = None,
+                     chunk_terms: int = DEFAULT_CHUNK_TERMS) -> MieEfficiencies:
     r"""Exact Mie efficiencies and asymmetry parameter of homogeneous spheres.
 
     Parameters

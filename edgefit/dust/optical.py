@@ -29,8 +29,10 @@ import hashlib
 import os
 import re
 from dataclasses import dataclass
+from typing import Any, Mapping, Sequence
 
 import numpy as np
+from numpy.typing import ArrayLike
 from astropy import units as u
 
 from .._units import HC_KEV_ANGSTROM, as_kev, to_value
@@ -125,7 +127,7 @@ def _composition(obj) -> dict[str, float]:
     return comp
 
 
-def formula_mass(composition) -> float:
+def formula_mass(composition: str | Mapping[str, float]) -> float:
     """Mass of one formula unit in u (g/mol); ``composition`` is a formula
     string or a dict symbol -> count."""
     comp = _composition(composition)
@@ -147,7 +149,7 @@ def _formula_units_per_cm3(comp, density) -> float:
     return as_density(density) * atomic.AVOGADRO / formula_mass(comp)
 
 
-def number_densities(composition, density) -> dict[str, float]:
+def number_densities(composition: str | Mapping[str, float], density: Any) -> dict[str, float]:
     """Atoms per cm^3 of each element: n_j = ρ N_A c_j / M, with c_j atoms
     of j per formula unit and M the formula mass (g/mol)."""
     comp = _composition(composition)
@@ -165,7 +167,8 @@ def _formula_f1f2(comp, energy):
     return f1, f2
 
 
-def delta_beta(composition, density, energy_kev, corrections=()):
+def delta_beta(composition: str | Mapping[str, float], density: Any, energy_kev: ArrayLike,
+               corrections: Sequence[NearEdgeCorrection] = ()) -> tuple[Any, Any]:
     """δ and β of a material (Henke, Gullikson & Davis 1993, eq. 2).
 
     .. math:: (\\delta, \\beta) = \\frac{r_e \\lambda^2}{2\\pi} n_{fu}
@@ -204,7 +207,8 @@ def delta_beta(composition, density, energy_kev, corrections=()):
     return delta, beta
 
 
-def refractive_index(composition, density, energy_kev, corrections=()):
+def refractive_index(composition: str | Mapping[str, float], density: Any, energy_kev: ArrayLike,
+                     corrections: Sequence[NearEdgeCorrection] = ()) -> complex | np.ndarray:
     """Complex refractive index m = 1 − δ + iβ (imaginary part > 0 absorbs);
     see :func:`delta_beta`."""
     d, b = delta_beta(composition, density, energy_kev, corrections)
@@ -323,8 +327,10 @@ class NearEdgeCorrection:
                 np.interp(e, self.energy_kev, self.dF2, left=0.0, right=0.0))
 
 
-def nearedge_correction(composition, density, lab: LabAbsorption, edge_kev,
-                        *, below=(0.01, 0.05), above=(0.03, 0.08), taper=0.1):
+def nearedge_correction(composition: str | Mapping[str, float], density: Any, lab: LabAbsorption,
+                        edge_kev: float, *, below: tuple[float, float] = (0.01, 0.05),
+                        above: tuple[float, float] = (0.03, 0.08),
+                        taper: float = 0.1) -> NearEdgeCorrection:
     """Normalise laboratory absorption to atomic f2 and derive ΔF1 by
     Kramers–Kronig.
 
@@ -395,7 +401,7 @@ def nearedge_correction(composition, density, lab: LabAbsorption, edge_kev,
     ext_lo = np.geomspace(e[0] / 3, e[0], 60, endpoint=False)
     ext_hi = np.geomspace(e[-1], e[-1] * 3, 61)[1:]
     e_out = np.concatenate([ext_lo, e, ext_hi])
-    dF1 = kk_delta_f1(e, dF2, e_out)
+    dF1 = np.asarray(kk_delta_f1(e, dF2, e_out))  # e_out is an array, so is dF1
     dF2_out = np.concatenate([np.zeros(ext_lo.size), dF2, np.zeros(ext_hi.size)])
     return NearEdgeCorrection(e_out, dF1, dF2_out, source=lab.source,
                               digest=f"{lab.digest()}-{e0:.6f}-{below}-{above}-{taper}")
