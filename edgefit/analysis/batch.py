@@ -50,10 +50,14 @@ import tempfile
 import uuid
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 from ..errors import ArgumentError, EdgefitError, MissingDependencyError
 from .manifest import Manifest, load_manifest
 from .sample_table import failed_row, sample_table, write_sample_table
+
+if TYPE_CHECKING:
+    from astropy.table import Table
 
 __all__ = ["run_batch", "BatchInterrupted", "default_output", "fit_task", "ROW_FILE",
            "SIGHTLINES_DIR"]
@@ -327,9 +331,12 @@ def _run_dask(tasks, scheduler, on_result):
             client.close()
 
 
-def run_batch(manifest, output=None, *, workers=None, scheduler=None, fresh=False,
-              only=None, mcmc=True, plots=True, steps=None, figures=None, progress=True,
-              resume_hint=None, usage=None):
+def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike | None = None,
+              *, workers: int | None = None, scheduler: Any = None, fresh: bool = False,
+              only: Sequence[str] | None = None, mcmc: bool = True, plots: bool = True,
+              steps: int | None = None, figures: Callable[..., Any] | None = None,
+              progress: bool = True, resume_hint: str | None = None,
+              usage: dict | None = None) -> Table:
     """Fit the sightlines of a manifest and return the sample table.
 
     Parameters

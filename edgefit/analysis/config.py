@@ -37,10 +37,11 @@ from __future__ import annotations
 
 import importlib
 import math
+import os
 import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
-from typing import ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 from astropy import units as u
 
@@ -48,6 +49,9 @@ from ..stats import ONE_SIGMA
 
 from ..errors import (ConfigError, EdgefitError, InputFileError, ModelError,
                      UnknownParameterError)
+
+if TYPE_CHECKING:
+    from ..models.base import ModelNode
 
 __all__ = ["SightlineConfig", "load_config", "config_from_dict", "model_terms",
            "model_from_terms", "build_model", "apply_parameter_settings",
@@ -629,7 +633,7 @@ class SightlineConfig:
     name: str
     output: Path
     spectra: list
-    model: object
+    model: ModelNode
     components: dict
     param_settings: dict
     fit: FitSettings = field(default_factory=FitSettings)
@@ -717,7 +721,9 @@ def _prefixed(path, prefix):
     return ctx()
 
 
-def config_from_dict(data, path, *, base=None, key_prefix="", name=None, output=None):
+def config_from_dict(data: dict, path: str | os.PathLike, *, base: str | os.PathLike | None = None,
+                     key_prefix: str = "", name: str | None = None,
+                     output: str | os.PathLike | None = None) -> SightlineConfig:
     """A :class:`SightlineConfig` from a parsed table with the layout of a
     configuration file.
 
@@ -766,7 +772,7 @@ def read_toml(path, what="configuration file"):
         raise ConfigError(path, "not valid TOML: not UTF-8 text") from None
 
 
-def load_config(path):
+def load_config(path: str | os.PathLike) -> SightlineConfig:
     """Read and check a sightline TOML file.  Returns a SightlineConfig."""
     path = Path(path)
     return config_from_dict(read_toml(path), path)

@@ -38,6 +38,7 @@ import copy
 import hashlib
 import json
 import math
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -234,7 +235,7 @@ def _hydrogen(sl, path, key):
     return out
 
 
-def load_manifest(path):
+def load_manifest(path: str | os.PathLike) -> Manifest:
     """Read and check a batch manifest; returns a :class:`Manifest`.
 
     The whole manifest is checked before it is returned: TOML syntax,

@@ -14,9 +14,15 @@ imports plotting code.
 """
 from __future__ import annotations
 
+import os
 import sys
 import warnings
 from pathlib import Path
+from typing import TYPE_CHECKING, Any, Callable
+
+if TYPE_CHECKING:
+    from ..inference.result import FitResult
+    from .config import SightlineConfig
 
 __all__ = ["run_sightline", "SAMPLES_FILE", "write_samples", "read_samples"]
 
@@ -51,9 +57,12 @@ def read_samples(folder):
         return [str(n) for n in f["names"]], np.array(f["samples"])
 
 
-def run_sightline(cfg, output=None, *, mcmc=True, plots=True, steps=None, quiet=False,
-                  command="fit", keep_samples=False, warn=None, figures=None,
-                  checkpoints=True):
+def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None, *,
+                  mcmc: bool = True, plots: bool = True, steps: int | None = None,
+                  quiet: bool = False, command: str = "fit", keep_samples: bool = False,
+                  warn: Callable[[str], Any] | None = None,
+                  figures: Callable[..., Any] | None = None,
+                  checkpoints: bool = True) -> FitResult:
     """Run every step a sightline configuration asks for and write the
     results; returns the :class:`~edgefit.inference.FitResult`.
 

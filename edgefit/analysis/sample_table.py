@@ -36,13 +36,16 @@ import os
 import tempfile
 import warnings
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
 from .._units import unit_or_none
 from ..stats import ONE_SIGMA
 from .manifest import HYDROGEN_KEYS
+
+if TYPE_CHECKING:
+    from astropy.table import Table
 
 __all__ = ["sightline_row", "failed_row", "sample_table", "write_sample_table",
            "read_sample_table", "STATUSES", "POOR_FIT_P"]
@@ -185,7 +188,8 @@ def _hydrogen_columns(h):
     return out
 
 
-def sample_table(records, hydrogen=None, meta=None):
+def sample_table(records: Sequence[dict], hydrogen: dict | None = None,
+                 meta: dict | None = None) -> Table:
     """An astropy Table from sightline records (in the order given).
 
     ``hydrogen`` maps a sightline name to its manifest hydrogen columns.
@@ -284,7 +288,7 @@ def write_sample_table(table, folder):
     return ecsv, fits
 
 
-def read_sample_table(folder_or_file):
+def read_sample_table(folder_or_file: str | os.PathLike) -> Table:
     """Read ``sample.ecsv`` (a folder or the file itself) as an astropy
     Table; empty text cells (``reason`` of an ok row, ``flags``), which
     ECSV reads back as masked, become empty strings again."""
