@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+from typing import Sequence
 
 from ..errors import EdgefitError
 
@@ -39,14 +40,14 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def error_line(command, exc) -> str:
+def error_line(command: str, exc: BaseException) -> str:
     """The one stderr line that reports ``exc`` for sub-command ``command``:
     the first line of its message (or its class name when it has none)."""
     msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
     return f"edgefit {command}: error: {msg}"
 
 
-def main(argv=None) -> int:
+def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):

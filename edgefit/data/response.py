@@ -12,8 +12,11 @@ stored densely.
 """
 from __future__ import annotations
 
+from typing import Callable
+
 import numpy as np
 import scipy.sparse as sp
+from numpy.typing import ArrayLike
 from astropy import units as u
 from scipy.special import ndtr
 
@@ -147,9 +150,12 @@ def _gaussian_bin_probability(lo, hi):
     return np.where(upper, ndtr(-lo) - ndtr(-hi), ndtr(hi) - ndtr(lo))
 
 
-def gaussian_response(energy_edges_kev, channel_edges_kev, fwhm, area_cm2=1.0, *,
-                      fwhm_unit="angstrom", n_sigma=5.0, wavelength_order=False,
-                      first_channel=1, meta=None) -> Response:
+def gaussian_response(energy_edges_kev: ArrayLike, channel_edges_kev: ArrayLike,
+                      fwhm: float | u.Quantity,
+                      area_cm2: ArrayLike | Callable[[np.ndarray], ArrayLike] = 1.0, *,
+                      fwhm_unit: str = "angstrom",
+                      n_sigma: float = 5.0, wavelength_order: bool = False,
+                      first_channel: int = 1, meta: dict | None = None) -> Response:
     """A synthetic, grating-like response with a Gaussian line-spread function.
 
     A photon in energy bin i (centre E_i) lands in channel k with

@@ -285,8 +285,9 @@ class LabAbsorption:
         return h.hexdigest()
 
 
-def read_lab_absorption(path, *, kind="mu", energy_unit="eV", thickness_um=None,
-                        columns=(0, 1)) -> LabAbsorption:
+def read_lab_absorption(path: str | os.PathLike, *, kind: str = "mu", energy_unit: str = "eV",
+                        thickness_um: float | None = None,
+                        columns: tuple[int, int] = (0, 1)) -> LabAbsorption:
     """Read measured near-edge absorption from a plain-text table.
 
     The file has whitespace- or comma-separated columns; lines starting with

@@ -34,7 +34,8 @@ derivatives in amax, q, a single size ...), as a fit needs.
 from __future__ import annotations
 
 import math
-from typing import ClassVar
+import os
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 from astropy import units as u
@@ -44,6 +45,9 @@ from .. import _jit
 from .._units import to_value
 from ..errors import PhysicsDataError
 from ..params import Param
+
+if TYPE_CHECKING:
+    from .materials import Material
 
 __all__ = ["SizeDistribution", "PowerLaw", "SingleSize", "LogNormal", "CutoffPowerLaw",
            "TabulatedSizes", "MRN", "FAMILIES", "register_family", "make_distribution",
@@ -295,7 +299,7 @@ class TabulatedSizes(SizeDistribution):
         return f"TabulatedSizes({self.a.size} rows, {self.a[0]:.3g}-{self.a[-1]:.3g} um)"
 
 
-def read_size_table(path):
+def read_size_table(path: str | os.PathLike) -> TabulatedSizes:
     """Read a user size distribution: two whitespace/comma columns, radius
     (µm) and n(a) (any scale), ``#`` comments.  Errors name the file."""
     import os
@@ -314,7 +318,7 @@ def read_size_table(path):
 
 
 
-def make_distribution(family: str, **values) -> SizeDistribution:
+def make_distribution(family: str, **values: float) -> SizeDistribution:
     """A distribution of ``family`` (see ``FAMILIES``) with parameter values."""
     try:
         cls = FAMILIES[family]
@@ -327,19 +331,20 @@ def make_distribution(family: str, **values) -> SizeDistribution:
 # ---------------------------------------------------------------------------
 # normalisation by the element column
 # ---------------------------------------------------------------------------
-def mean_atoms_per_grain(dist: SizeDistribution, material, element) -> float:
+def mean_atoms_per_grain(dist: SizeDistribution, material: Material, element: str) -> float:
     """⟨N_Z(a)⟩ = (4π/3) ⟨a³⟩ ρ N_A c_Z / M (a in cm), atoms per grain."""
     return 4.0 * math.pi / 3.0 * dist.moment(3) * 1e-12 * material.atoms_per_cm3(element)
 
 
-def grain_column(n_element_dust, dist: SizeDistribution, material, element) -> float:
+def grain_column(n_element_dust: Any, dist: SizeDistribution, material: Material,
+                 element: str) -> float:
     """Grains per cm² holding a column ``n_element_dust`` (cm^-2) of
     ``element``: N_grains = N_Z,dust / ⟨N_Z(a)⟩."""
     n = to_value(n_element_dust, u.cm ** -2, "column")
     return n / mean_atoms_per_grain(dist, material, element)
 
 
-def dust_mass_column(n_element_dust, material, element) -> float:
+def dust_mass_column(n_element_dust: Any, material: Material, element: str) -> float:
     """Dust mass per cm² (g cm^-2): N_Z,dust M / (N_A c_Z)."""
     n = to_value(n_element_dust, u.cm ** -2, "column")
     return n * material.mass_per_atom(element)

@@ -86,13 +86,15 @@ interpolation of τ on the table energies).
 from __future__ import annotations
 
 import math
+from typing import Any, Sequence
 
 import numpy as np
 
 from .._units import as_kev
 from ..errors import ModelError, PhysicsDataError
 from ..physics import atomic
-from .base import MULTIPLICATIVE, Component, EnergyGrid, Param, element_column_key
+from .base import (MULTIPLICATIVE, Component, EnergyGrid, ModelNode, Param,
+                   element_column_key)
 
 __all__ = ["MultiEdgeDust", "tied_edge_model"]
 
@@ -555,8 +557,11 @@ class MultiEdgeDust(Component):
                 f"{self.family}, {vals})")
 
 
-def tied_edge_model(continuum, *, materials="olivine", elements=None, gas_columns=None,
-                    nh=None, abundances=None, name="grains", **dust_kw):
+def tied_edge_model(continuum: ModelNode, *, materials: Any = "olivine",
+                    elements: Sequence[str] | None = None,
+                    gas_columns: dict[str, float] | None = None, nh: float | None = None,
+                    abundances: Any = None, name: str = "grains",
+                    **dust_kw: Any) -> ModelNode:
     """The standard tied-edge sightline model::
 
         SmoothISM(exclude=T) * GasEdge(Z) for Z in T * MultiEdgeDust(materials, T) * continuum
