@@ -721,8 +721,9 @@ def _prefixed(path, prefix):
     return ctx()
 
 
-def config_from_dict(data: dict, path: str | os.PathLike, *, base: str | os.PathLike | None = None,
-                     key_prefix: str = "", name: str | None = None,
+def config_from_dict(data: dict, path: str | os.PathLike, *,
+                     base: str | os.PathLike | None = None, key_prefix: str = "",
+                     name: str | None = None,
                      output: str | os.PathLike | None = None) -> SightlineConfig:
     """A :class:`SightlineConfig` from a parsed table with the layout of a
     configuration file.

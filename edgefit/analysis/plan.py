@@ -299,9 +299,10 @@ def exposure_table(forecast, exposures):
     from astropy.table import Table
 
     unit = u.Unit(forecast.targets.unit) if forecast.targets.unit else u.dimensionless_unscaled
-    rows: dict[str, list[float]] = {k: [] for k in ("sigma_gas", "sigma_dust", "sigma_total", "correlation",
-                            "sigma_gas_size_known", "sigma_dust_size_known",
-                            "sigma_total_size_known")}
+    rows: dict[str, list[float]] = {
+        k: [] for k in ("sigma_gas", "sigma_dust", "sigma_total", "correlation",
+                        "sigma_gas_size_known", "sigma_dust_size_known",
+                        "sigma_total_size_known")}
     for t in exposures:
         sg, sd, st, rho = forecast.columns(t)
         rows["sigma_gas"].append(sg)

@@ -265,7 +265,8 @@ def _line_origin(x, beta):
 
 #: ODRPACK settings: central differences and tight stopping tolerances, so the
 #: answer is converged to ~1e-9 relative and does not depend on the start.
-ODR_SETTINGS: dict[str, Any] = {"diff_scheme": "central", "sstol": 1e-15, "partol": 1e-15, "maxit": 200}
+ODR_SETTINGS: dict[str, Any] = {"diff_scheme": "central", "sstol": 1e-15, "partol": 1e-15,
+                                "maxit": 200}
 
 
 def odr_line(x, y, sx, sy, through_origin=False) -> dict:

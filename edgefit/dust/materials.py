@@ -59,8 +59,8 @@ import functools
 import hashlib
 import json
 import math
-from typing import Any
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike

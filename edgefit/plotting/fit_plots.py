@@ -28,8 +28,9 @@ from ..errors import ArgumentError, MissingDependencyError
 __all__ = ["plot_spectra", "plot_transmission", "plot_corner", "plot_profiles", "save_all",
            "save_configured"]
 
-_RC: dict[Any, Any] = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8, "xtick.labelsize": 8,
-       "ytick.labelsize": 8, "lines.linewidth": 1.0}
+# keys typed loosely: matplotlib's stubs want literal rc names
+_RC: dict[Any, Any] = {"font.size": 9, "axes.labelsize": 10, "legend.fontsize": 8,
+                       "xtick.labelsize": 8, "ytick.labelsize": 8, "lines.linewidth": 1.0}
 
 
 def _display_groups(counts, min_counts):

@@ -471,7 +471,8 @@ def _read_one(path, row, order, arm, attach):
 
 
 @file_errors
-def load_spectrum(pha: str | os.PathLike, rmf: str | os.PathLike | None = None, arf: str | os.PathLike | None = None,
+def load_spectrum(pha: str | os.PathLike, rmf: str | os.PathLike | None = None,
+                  arf: str | os.PathLike | None = None,
                   background: str | os.PathLike | None = None, row: int | None = None,
                   order: int | None = None, arm: int | str | None = None) -> Spectrum:
     """A spectrum with its response and background, from explicit files or

@@ -195,7 +195,8 @@ def write_pha(path: str | os.PathLike, spectra: Spectrum | Sequence[Spectrum], *
     fits.HDUList([primary, hdu]).writeto(path, overwrite=overwrite)
 
 
-def write_arf(path: str | os.PathLike, energy_lo: ArrayLike, energy_hi: ArrayLike, specresp: ArrayLike, *,
+def write_arf(path: str | os.PathLike, energy_lo: ArrayLike, energy_hi: ArrayLike,
+              specresp: ArrayLike, *,
               overwrite: bool = False, telescope: str | None = None,
               instrument: str | None = None, simulated: bool = False) -> None:
     """Write an ARF: ENERG_LO, ENERG_HI (keV) and SPECRESP (cm^2)
@@ -293,7 +294,8 @@ def write_rmf(path: str | os.PathLike, response: Response, *, overwrite: bool = 
     fits.HDUList([fits.PrimaryHDU(), hdu, ehdu]).writeto(path, overwrite=overwrite)
 
 
-def write_response(response: Response, rmf_path: str | os.PathLike, arf_path: str | os.PathLike | None = None, *,
+def write_response(response: Response, rmf_path: str | os.PathLike,
+                   arf_path: str | os.PathLike | None = None, *,
                    overwrite: bool = False, simulated: bool = False,
                    telescope: str | None = None, instrument: str | None = None) -> None:
     """Write a response as RMF + ARF (when ``arf_path`` is given) or as a
