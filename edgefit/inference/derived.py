@@ -223,9 +223,9 @@ def derived_quantities(result: FitResult, reference_energy: Any = None,
     if result.mcmc is not None:
         samples = result.mcmc.flat_samples(pv.free)
         source = "MCMC posterior"
-    elif result.covariance is not None and len(pv):
-        samples = np.clip(rng.multivariate_normal(pv.vector(), result.covariance_of(pv.free),
-                                                  size=max_draws), pv.lower, pv.upper)
+    elif len(pv) and (cov := result.covariance_of(pv.free)) is not None:
+        samples = np.clip(rng.multivariate_normal(pv.vector(), cov, size=max_draws),
+                          pv.lower, pv.upper)
         source = "covariance Gaussian"
     else:
         samples = pv.vector()[None, :]

@@ -104,9 +104,8 @@ def posterior_predictive(result: FitResult, samples: np.ndarray | None = None,
     if samples is None:
         if result.mcmc is not None:
             samples = result.mcmc.flat_samples(pv.free)
-        elif result.covariance is not None:
-            samples = rng.multivariate_normal(pv.vector(), result.covariance_of(pv.free),
-                                              size=4 * n_draws)
+        elif (cov := result.covariance_of(pv.free)) is not None:
+            samples = rng.multivariate_normal(pv.vector(), cov, size=4 * n_draws)
             samples = np.clip(samples, pv.lower, pv.upper)
         else:
             raise ArgumentError("posterior predictive check needs MCMC samples or a covariance")

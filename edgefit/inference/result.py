@@ -18,14 +18,27 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import warnings
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 from astropy import units as u
 
 from .._units import unit_or_none
 from ..stats import ONE_SIGMA
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from astropy.table import Table
+
+    from ..models.base import ModelNode
+    from .dataset import Dataset
+    from .derived import DerivedSummary
+    from .likelihood import JointLikelihood
+    from .mcmc import McmcResult
 
 __all__ = ["FitResult", "Interval", "level_label", "INFO_FLAGS"]
 
@@ -76,7 +89,7 @@ class Interval:
             return False
         return self.lower <= x <= self.upper
 
-    def as_dict(self):
+    def as_dict(self) -> dict[str, Any]:
         d = {k: getattr(self, k) for k in ("name", "level", "delta_stat", "best", "lower",
                                            "upper", "lower_at_bound", "upper_at_bound",
                                            "notes")}
@@ -97,8 +110,9 @@ class FitResult:
     """Outcome of :func:`~edgefit.inference.fit.fit_sightline` and the
     uncertainty steps run on it."""
 
-    def __init__(self, likelihood, params, statistic, covariance, covariance_names, flags,
-                 method, nfev=0):
+    def __init__(self, likelihood: JointLikelihood, params: Any, statistic: float,
+                 covariance: np.ndarray | None, covariance_names: Sequence[str],
+                 flags: Sequence[str], method: str, nfev: int = 0) -> None:
         self.likelihood = likelihood
         self.params = params
         self.statistic = float(statistic)
@@ -109,8 +123,8 @@ class FitResult:
         self.nfev = nfev
         self.goodness: dict | None = None
         self.intervals: dict[str, dict[float, Interval]] = {}
-        self.mcmc = None
-        self.derived = None
+        self.mcmc: McmcResult | None = None
+        self.derived: DerivedSummary | None = None
         self.ppc: dict | None = None
         self.meta: dict = {}
         #: distinct minima of the multi-start fit (best first; see
@@ -123,69 +137,69 @@ class FitResult:
 
     # -- basic numbers ---------------------------------------------------
     @property
-    def model(self):
+    def model(self) -> ModelNode:
         return self.likelihood.model
 
     @property
-    def datasets(self):
+    def datasets(self) -> list[Dataset]:
         return self.likelihood.datasets
 
     @property
-    def statistic_name(self):
+    def statistic_name(self) -> str:
         return self.likelihood.statistic_name
 
     @property
-    def free_names(self):
+    def free_names(self) -> list[str]:
         return [n for n, p in self.params.items() if p.vary and not p.expr]
 
     @property
-    def n_bins(self):
+    def n_bins(self) -> int:
         return self.likelihood.n_bins
 
     @property
-    def n_free(self):
+    def n_free(self) -> int:
         return len(self.free_names)
 
     @property
-    def dof(self):
+    def dof(self) -> int:
         return self.n_bins - self.n_free
 
     @staticmethod
-    def is_info_flag(flag):
+    def is_info_flag(flag: str) -> bool:
         """True for informational flags (:data:`INFO_FLAGS`,
         :data:`INFO_PREFIXES`)."""
         return flag in INFO_FLAGS or flag.startswith(INFO_PREFIXES)
 
     @property
-    def converged(self):
+    def converged(self) -> bool:
         """True when no convergence flag other than the informational ones
         (:data:`INFO_FLAGS`, :data:`INFO_PREFIXES`) was raised."""
         return all(self.is_info_flag(f) for f in self.flags)
 
     @property
-    def multimodal(self):
+    def multimodal(self) -> bool:
         """True when the multi-start fit met a second distinct minimum within
         ``multimodal_delta`` of the best (see ``minima``)."""
         return "multimodal" in self.flags
 
     @property
-    def degenerate_elements(self):
+    def degenerate_elements(self) -> list[str]:
         """Elements whose gas and dust columns the data do not separate
         (``gas_dust_degenerate:<element>`` flags)."""
         return [f.split(":", 1)[1] for f in self.flags if f.startswith("gas_dust_degenerate:")]
 
     @property
-    def values(self):
+    def values(self) -> dict[str, float]:
         return {n: float(p.value) for n, p in self.params.items()}
 
-    def error(self, name):
+    def error(self, name: str) -> float | None:
         """Covariance (1 sigma) error of a free parameter, or None."""
         if self.covariance is None or name not in self.covariance_names:
             return None
         i = self.covariance_names.index(name)
         return float(math.sqrt(self.covariance[i, i]))
 
-    def covariance_of(self, names):
+    def covariance_of(self, names: Sequence[str]) -> np.ndarray | None:
         """Covariance submatrix of the free parameters ``names`` (in that
         order), or None without a covariance."""
         if self.covariance is None:
@@ -193,13 +207,13 @@ class FitResult:
         idx = [self.covariance_names.index(n) for n in names]
         return np.asarray(self.covariance)[np.ix_(idx, idx)]
 
-    def unit(self, name):
+    def unit(self, name: str) -> str:
         pars = self.model.parameters()
         if name in pars:
             return pars[name][1].unit
         return ""
 
-    def description(self, name):
+    def description(self, name: str) -> str:
         pars = self.model.parameters()
         if name in pars:
             return pars[name][1].description
@@ -278,7 +292,7 @@ class FitResult:
                 f"converged={self.converged})")
 
     # -- tables -------------------------------------------------------------
-    def parameter_table(self):
+    def parameter_table(self) -> Table:
         """One row per parameter: value, covariance error, profile and
         posterior intervals; ``unit`` is a string column."""
         from astropy.table import Table
@@ -321,7 +335,7 @@ class FitResult:
         meta.update({k: v for k, v in self.meta.items() if isinstance(v, (str, int, float))})
         return meta
 
-    def to_table(self):
+    def to_table(self) -> Table:
         """One-row astropy Table: a column per parameter (with its unit),
         ``<name>_err`` (covariance), ``<name>_lo<L>``/``_hi<L>`` (profile),
         ``<name>_med``/``_plo68``/``_phi68`` (posterior) and derived
@@ -359,7 +373,7 @@ class FitResult:
         t.meta.update(self._meta_dict())
         return t
 
-    def to_dict(self):
+    def to_dict(self) -> dict[str, Any]:
         """JSON-ready dictionary of everything in the result."""
         d = {"meta": self._meta_dict(), "flags": self.flags,
              "datasets": [{"label": ds.label, "n_groups": ds.n_groups,
@@ -399,11 +413,11 @@ class FitResult:
             d["derived"] = self.derived.to_dict()
         return d
 
-    def to_json(self, **kw):
+    def to_json(self, **kw: Any) -> str:
         return json.dumps(_jsonable(self.to_dict()), indent=kw.pop("indent", 2), **kw)
 
     # -- writing (explicit file I/O only here) --------------------------------
-    def write(self, folder, stem="fit"):
+    def write(self, folder: str | os.PathLike, stem: str = "fit") -> list[Path]:
         """Write ``<stem>.ecsv`` (one-row table), ``<stem>_parameters.ecsv``,
         ``<stem>.fits``, ``<stem>.json`` and ``<stem>_summary.txt`` into
         ``folder``; returns the list of paths."""
