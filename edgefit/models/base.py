@@ -94,7 +94,7 @@ class ModelNode:
         raise UnknownParameterError(f"no component named {name!r}; have "
                                     f"{[c.name for c in self.components()]}")
 
-    def make_params(self):
+    def make_params(self) -> Any:  # lmfit.Parameters
         """An :class:`lmfit.Parameters` with every parameter of the model,
         its current value, bounds and whether it varies."""
         import lmfit
@@ -201,10 +201,10 @@ class Component(ModelNode):
                 return p
         raise UnknownParameterError(f"{type(self).__name__} has no parameter {short_name!r}")
 
-    def components(self):
+    def components(self) -> list[Component]:
         return [self]
 
-    def structure(self):
+    def structure(self) -> str:
         return f"{self.name} [{self.registry_name or type(self).__name__}]"
 
     # subclasses -------------------------------------------------------
@@ -258,7 +258,7 @@ class Component(ModelNode):
         return own
 
     # ------------------------------------------------------------------
-    def prepared(self, grid: EnergyGrid):
+    def prepared(self, grid: EnergyGrid) -> Any:
         try:
             return self._cache[grid.key]
         except KeyError:
@@ -269,7 +269,7 @@ class Component(ModelNode):
             self._cache[grid.key] = pre
             return pre
 
-    def evaluate(self, grid, values=None):
+    def evaluate(self, grid: EnergyGrid, values: Mapping[str, float] | None = None) -> np.ndarray:
         if values:
             prefix = self.name + "_"
             own = {}
@@ -323,7 +323,7 @@ class CompositeModel(ModelNode):
                                               f"{full[key]!r} and {comp.name!r}")
                 full[key] = comp.name
 
-    def components(self):
+    def components(self) -> list[Component]:
         out, seen = [], set()
         for comp in self.left.components() + self.right.components():
             if id(comp) not in seen:
@@ -331,12 +331,12 @@ class CompositeModel(ModelNode):
                 out.append(comp)
         return out
 
-    def evaluate(self, grid, values=None):
+    def evaluate(self, grid: EnergyGrid, values: Mapping[str, float] | None = None) -> np.ndarray:
         a = self.left.evaluate(grid, values)
         b = self.right.evaluate(grid, values)
         return a * b if self.op == "*" else a + b
 
-    def structure(self):
+    def structure(self) -> str:
         parts = []
         for side in (self.left, self.right):
             text = side.structure()
