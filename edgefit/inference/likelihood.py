@@ -36,12 +36,16 @@ from __future__ import annotations
 
 import ast
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
 import numpy as np
 
 from .. import _foldstat, stats
 from ..errors import ModelError, ParameterClashError, UnknownParameterError
+
+if TYPE_CHECKING:
+    from ..models.base import ModelNode
+    from .dataset import Dataset
 
 __all__ = ["JointLikelihood", "CompiledLikelihood", "ParameterVector", "BAD_RESIDUAL",
            "XNORM_PREFIX"]
@@ -75,7 +79,8 @@ class JointLikelihood:
     chi2_variance : {"data", "model", "gehrels"}
     """
 
-    def __init__(self, model, datasets, statistic="poisson", chi2_variance="data"):
+    def __init__(self, model: ModelNode, datasets: Sequence[Dataset], statistic: str = "poisson",
+                 chi2_variance: str = "data") -> None:
         from ..models.base import ADDITIVE
 
         if getattr(model, "kind", None) != ADDITIVE:
@@ -129,10 +134,10 @@ class JointLikelihood:
 
     # ------------------------------------------------------------------
     @property
-    def names(self):
+    def names(self) -> list[str]:
         return self.model_names + self.xnorm_names
 
-    def make_params(self, xnorm_free=True):
+    def make_params(self, xnorm_free: bool = True) -> Any:  # lmfit.Parameters
         """lmfit Parameters: the model's, then ``xnorm_i`` (first fixed at 1;
         the others free in [0.2, 5] unless ``xnorm_free`` is False)."""
         params = self.model.make_params()
@@ -149,11 +154,11 @@ class JointLikelihood:
         xn = [float(values.get(n, 1.0)) for n in self.xnorm_names]
         return model_vals, xn
 
-    def source_counts(self, values):
+    def source_counts(self, values: Mapping[str, float]) -> list[np.ndarray]:
         """Expected source counts per group for each dataset (list of
         arrays), cross-normalisation applied.  No NaN check here."""
         model_vals, xn = self._split(values)
-        out = [None] * len(self.datasets)
+        out: list[Any] = [None] * len(self.datasets)  # every slot filled by the plan
         for union, members in self._plan:
             flux = self.model.evaluate(union, model_vals)
             for i, off, n in members:
@@ -192,7 +197,7 @@ class JointLikelihood:
             var = (1.0 + np.sqrt(ds.counts + 0.75)) ** 2
         return (n - m) / np.sqrt(var + extra)
 
-    def residuals(self, values):
+    def residuals(self, values: Mapping[str, float]) -> np.ndarray:
         """Signed residuals of all datasets, concatenated; their sum of
         squares is the statistic.  Model failures give BAD_RESIDUAL."""
         mus = self._checked(values)
@@ -200,7 +205,7 @@ class JointLikelihood:
             return np.full(self.n_bins, BAD_RESIDUAL)
         return np.concatenate([self._residual_one(ds, mu) for ds, mu in zip(self.datasets, mus)])
 
-    def statistic(self, values):
+    def statistic(self, values: Mapping[str, float]) -> float:
         """The fit statistic (C deviance or chi-square); ``inf`` when the
         model is not finite."""
         mus = self._checked(values)
@@ -214,7 +219,7 @@ class JointLikelihood:
                 total += float(np.sum(self._residual_one(ds, mu) ** 2))
         return total
 
-    def log_likelihood(self, values):
+    def log_likelihood(self, values: Mapping[str, float]) -> float:
         """-statistic/2 (up to a constant); -inf when the model fails."""
         s = self.statistic(values)
         return -0.5 * s if math.isfinite(s) else -math.inf
