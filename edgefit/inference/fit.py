@@ -501,16 +501,17 @@ def reparametrise(result, columns="total_fraction", *, gas=None, dust=None, poli
                                  "model has no single gas/dust pair of one element")
             gas = gas or ok[0][1]["gas"][0]
             dust = dust or ok[0][1]["dust"][0]
-        new_model = TotalAndFraction(model, gas, dust)
+        wrapped = TotalAndFraction(model, gas, dust)
+        new_model: ModelNode = wrapped
 
         def convert(values):
             v = dict(values)
-            g, d = v.pop(new_model.gas_param), v.pop(new_model.dust_param)
-            v[new_model.total_param], v[new_model.fraction_param] = \
+            g, d = v.pop(wrapped.gas_param), v.pop(wrapped.dust_param)
+            v[wrapped.total_param], v[wrapped.fraction_param] = \
                 TotalAndFraction.from_columns(g, d)
             return v
-        pair_old = (new_model.gas_param, new_model.dust_param)
-        pair_new = (new_model.total_param, new_model.fraction_param)
+        pair_old = (wrapped.gas_param, wrapped.dust_param)
+        pair_new = (wrapped.total_param, wrapped.fraction_param)
     elif columns == "gas_dust":
         if not isinstance(model, TotalAndFraction):
             raise ModelError("the fit is already in gas/dust form")

@@ -33,10 +33,12 @@ multiplied or added further.
 """
 from __future__ import annotations
 
+from typing import Mapping
+
 import numpy as np
 
 from ..errors import ModelError
-from .base import MULTIPLICATIVE, Component, ModelNode, Param
+from .base import MULTIPLICATIVE, Component, EnergyGrid, ModelNode, Param
 
 __all__ = ["ElementColumns", "TotalAndFraction", "TOTAL", "FRACTION"]
 
@@ -122,7 +124,8 @@ class TotalAndFraction(ModelNode):
     (total = gas + dust, fraction = dust / total; 0.5 when both are 0).
     """
 
-    def __init__(self, model, gas="gas", dust="dust", name=None):
+    def __init__(self, model: ModelNode, gas: str = "gas", dust: str = "dust",
+                 name: str | None = None) -> None:
         if isinstance(model, TotalAndFraction):
             raise ModelError("the model is already in total/fraction form")
         g = _column_component(model, gas, "gas")
@@ -155,22 +158,22 @@ class TotalAndFraction(ModelNode):
                              "model; pass another name")
 
     # -- structure --------------------------------------------------------
-    def components(self):
+    def components(self) -> list[Component]:
         return self.model.components() + [self.columns]
 
-    def parameters(self):
+    def parameters(self) -> dict[str, tuple[Component, Param]]:
         out = {k: v for k, v in self.model.parameters().items()
                if k not in (self.gas_param, self.dust_param)}
         for p in self.columns.params:
             out[f"{self.columns.name}_{p.name}"] = (self.columns, p)
         return out
 
-    def structure(self):
+    def structure(self) -> str:
         return (f"{self.model.structure()}  [{self.gas_param}, {self.dust_param} from "
                 f"{self.total_param}, {self.fraction_param}]")
 
     # -- the transform ------------------------------------------------------
-    def model_values(self, values):
+    def model_values(self, values: Mapping[str, float]) -> dict[str, float]:
         """``values`` plus the gas and dust columns computed from the
         total and fraction (stored values where ``values`` lacks them)."""
         v = dict(values)
@@ -181,12 +184,12 @@ class TotalAndFraction(ModelNode):
         return v
 
     @staticmethod
-    def from_columns(gas_column, dust_column):
+    def from_columns(gas_column: float, dust_column: float) -> tuple[float, float]:
         """(total, fraction) for a gas and a dust column."""
         total = gas_column + dust_column
         return total, (dust_column / total if total > 0 else 0.5)
 
-    def evaluate(self, grid, values=None):
+    def evaluate(self, grid: EnergyGrid, values: Mapping[str, float] | None = None) -> np.ndarray:
         return self.model.evaluate(grid, self.model_values(values or {}))
 
     def compile(self, grid, names):
