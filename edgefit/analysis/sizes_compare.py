@@ -64,6 +64,7 @@ import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -253,12 +254,13 @@ def compare_pair(a, b, stats_a, stats_b, alpha=0.05, who=""):
     plain ``sentence``."""
     who = f"{who}: " if who else ""
     out = {"a": a.describe(), "b": b.describe()}
-    small, large, s_s, s_l = None, None, None, None
+    nested = None  # (smaller, larger, its stats, its stats) when one nests in the other
     if is_nested(a, b):
-        small, large, s_s, s_l = a, b, stats_a, stats_b
+        nested = (a, b, stats_a, stats_b)
     elif is_nested(b, a):
-        small, large, s_s, s_l = b, a, stats_b, stats_a
-    if small is not None:
+        nested = (b, a, stats_b, stats_a)
+    if nested is not None:
+        small, large, s_s, s_l = nested
         dc, dk, p = likelihood_ratio_test(s_s["statistic"], s_l["statistic"],
                                           s_s["n_free"], s_l["n_free"])
         bound = _on_bound(small, large)
@@ -541,7 +543,7 @@ def compare_sizes(manifest, specs, output=None, *, workers=None, fresh=False, mc
                   "sample sums treat every sightline's size parameters as its own"],
     }
     # the table
-    size_cols = []
+    size_cols: list[tuple[str, Any]] = []
     for s, sample in zip(specs, samples):
         for c in _size_columns(sample, s):
             if c not in [x[0] for x in size_cols]:
@@ -556,9 +558,9 @@ def compare_sizes(manifest, specs, output=None, *, workers=None, fresh=False, mc
                    "delta_stat": ent["delta_stat"], "aic": ent["aic"],
                    "delta_aic": ent["delta_aic"], "bic": ent["bic"],
                    "delta_bic": ent["delta_bic"], "akaike_weight": ent["akaike_weight"]}
-            ivs = {iv["name"]: iv for iv in ent.get("size_parameters", [])}
+            by_name = {iv["name"]: iv for iv in ent.get("size_parameters", [])}
             for c, _ in size_cols:
-                iv = ivs.get(c)
+                iv = by_name.get(c)
                 for suf, key in (("", "value"), ("_lo", "lo"), ("_hi", "hi")):
                     row[c + suf] = iv[key] if iv else np.nan
             rows.append(row)
