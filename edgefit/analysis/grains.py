@@ -38,6 +38,7 @@ both χ², AIC, BIC and their differences.
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from astropy import units as u
@@ -45,6 +46,20 @@ from astropy import units as u
 from .._units import HC_KEV_ANGSTROM, as_kev
 from ..errors import ArgumentError, InputFileError, PhysicsDataError
 from .regression import SampleColumnError, read_quantity
+
+if TYPE_CHECKING:
+    from typing import TypeAlias
+
+    from astropy.table import Table
+    from numpy.typing import ArrayLike
+
+    from ..dust.materials import Material
+    from ..dust.sizes import SizeDistribution, SizeGrid
+
+    #: A size distribution, a family name, (family name, parameters) or one
+    #: radius (um or Quantity).
+    SizesLike: TypeAlias = ("SizeDistribution | str | tuple[str, dict[str, Any]] | float "
+                            "| u.Quantity")
 
 __all__ = ["grain_cross_section", "shielding_factor", "geometric_shielding",
            "grain_columns", "fit_shielded_relation", "reference_energy", "grains_sample"]
@@ -93,8 +108,10 @@ def _per_size(material, element, energy_kev, radii, count_once, kind="ext"):
     return ext, sig_abs[0], n_atoms
 
 
-def grain_cross_section(material="olivine", element="Si", sizes=0.1, energy=None, *,
-                        count_once=True, kind="ext", size_grid=None) -> dict:
+def grain_cross_section(material: str | Material = "olivine", element: str = "Si",
+                        sizes: SizesLike = 0.1, energy: float | u.Quantity | None = None, *,
+                        count_once: bool = True, kind: str = "ext",
+                        size_grid: SizeGrid | None = None) -> dict:
     """Optical depth per grain (cm²) at ``energy`` for one material and size
     distribution.
 
@@ -195,9 +212,11 @@ def shielding_factor(material="olivine", element="Si", radius=1.0, energy=None, 
     return factor, tau_d
 
 
-def grain_columns(table, tau="dust_tau_above", *, material="olivine", element="Si",
-                  sizes=0.1, energy=None, count_once=True, kind="ext", prefix="",
-                  source=None):
+def grain_columns(table: Table, tau: str = "dust_tau_above", *,
+                  material: str | Material = "olivine", element: str = "Si",
+                  sizes: SizesLike = 0.1, energy: float | u.Quantity | None = None,
+                  count_once: bool = True, kind: str = "ext", prefix: str = "",
+                  source: str | None = None) -> Table:
     """Add grain and dust-element columns (with 68 % intervals) to a sample
     table, from its dust optical depth column ``tau`` (``tau``, ``tau_lo``,
     ``tau_hi`` or ``tau_err``; ``tau_upper`` rows give upper limits).
@@ -250,9 +269,12 @@ def _censored_chi2(model, y, sig, upper):
     return chi2
 
 
-def fit_shielded_relation(table, tau="dust_tau_above", nh="nh_total", *, material="olivine",
-                          element="Si", abundance=None, dust_fraction=None, energy=None,
-                          count_once=True, kind="ext", radii=None, source=None) -> dict:
+def fit_shielded_relation(table: Table, tau: str = "dust_tau_above", nh: str = "nh_total", *,
+                          material: str | Material = "olivine", element: str = "Si",
+                          abundance: float | None = None, dust_fraction: float | None = None,
+                          energy: float | u.Quantity | None = None, count_once: bool = True,
+                          kind: str = "ext", radii: ArrayLike | None = None,
+                          source: str | None = None) -> dict:
     """Fit τ against N_H with the self-shielded relation and a straight line.
 
     Shielded relation: τ_i = N_H,i A_Z f_dust s(a), s(a) = σ_gr(E; a)/N_Z(a)

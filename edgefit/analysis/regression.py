@@ -577,8 +577,10 @@ def _row_names(table):
     return [str(i) for i in range(len(table))]
 
 
-def regress(table, y, x, *, through_origin=False, bayes=True, seed=0, n_walkers=32, n_burn=1000,
-            n_steps=3000, max_steps=30000, progress=False, source=None) -> RegressionResult:
+def regress(table: Table, y: str, x: str, *, through_origin: bool = False, bayes: bool = True,
+            seed: int | None = 0, n_walkers: int = 32, n_burn: int = 1000, n_steps: int = 3000,
+            max_steps: int = 30000, progress: bool = False,
+            source: str | None = None) -> RegressionResult:
     """Regress column ``y`` on column ``x`` of a sample table (module docstring).
 
     Parameters
@@ -638,12 +640,10 @@ def regress(table, y, x, *, through_origin=False, bayes=True, seed=0, n_walkers=
                        through_origin)
     else:
         odr = None
-    if bayes:
-        bayes = bayes_line(xm.value, ym.value, xm.sigma, ym.sigma, xm.upper, ym.upper,
-                           through_origin=through_origin, n_walkers=n_walkers, n_burn=n_burn,
-                           n_steps=n_steps, max_steps=max_steps, seed=seed, progress=progress)
-    else:
-        bayes = None
+    bayes_fit = (bayes_line(xm.value, ym.value, xm.sigma, ym.sigma, xm.upper, ym.upper,
+                            through_origin=through_origin, n_walkers=n_walkers, n_burn=n_burn,
+                            n_steps=n_steps, max_steps=max_steps, seed=seed, progress=progress)
+                 if bayes else None)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # constant input: NaN is the answer
         rho = stats.spearmanr(xm.value, ym.value)
@@ -651,7 +651,7 @@ def regress(table, y, x, *, through_origin=False, bayes=True, seed=0, n_walkers=
     ck = censored_kendall(xm.value, ym.value, xm.upper, ym.upper)
     return RegressionResult(
         source=str(source), x=xm, y=ym, names=names, through_origin=bool(through_origin),
-        odr=odr, bayes=bayes,
+        odr=odr, bayes=bayes_fit,
         spearman={"rho": float(rho.statistic), "p": float(rho.pvalue)},
         kendall={"tau": float(kt.statistic), "p": float(kt.pvalue)},
         kendall_censored=ck, excluded=excluded)

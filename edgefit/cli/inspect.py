@@ -67,7 +67,8 @@ def _wave_range(emin, emax):
             HC_KEV_ANGSTROM / lo if lo > 0 else np.inf)
 
 
-def describe_file(path, row=None, order=None, arm=None) -> list[dict]:
+def describe_file(path: str | os.PathLike[str], row: int | None = None, order: int | None = None,
+                  arm: str | None = None) -> list[dict]:
     """What an OGIP FITS file holds, as one dict per spectrum/response part.
 
     Keys: ``file``, ``kind`` ('PHA I', 'PHA II', 'ARF', 'RMF', 'RSP',

@@ -29,6 +29,7 @@ from __future__ import annotations
 import json
 import math
 import time
+from typing import Any
 from pathlib import Path
 
 import numpy as np
@@ -198,7 +199,8 @@ def analyse_sample(output, table=None, truths=None, *, quick=False, say=print):
     # regressions: total Si column (slope = Si abundance) and dust optical
     # depth against the tracer hydrogen column
     say("relations with hydrogen column, grain columns, self-shielding ...")
-    bayes_steps = dict(n_burn=300, n_steps=1000, max_steps=4000) if quick else {}
+    bayes_steps: dict[str, Any] = (dict(n_burn=300, n_steps=1000, max_steps=4000) if quick
+                                   else {})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         reg_total = regress(table, y="total_Si_cm2", x="nh_hi_2h2", seed=1, **bayes_steps)

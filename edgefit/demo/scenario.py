@@ -26,11 +26,19 @@ from __future__ import annotations
 
 import json
 import math
+import os
+from collections.abc import Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..stats import ONE_SIGMA
+
+if TYPE_CHECKING:
+    from ..data import Response, Spectrum
+    from ..inference import FitResult
+    from ..models.base import ModelNode
 
 __all__ = ["SOURCE", "TRUTH", "INSTRUMENT", "EXPOSURE_S", "SEED", "build_model",
            "instrument_responses", "simulate_observation", "write_sightline", "truth_comparison", "run_demo"]
@@ -158,7 +166,7 @@ range = [1.6, 2.2]           # keV
 """
 
 
-def build_model():
+def build_model() -> ModelNode:
     """The simulated sightline's model (components named as in the
     configuration): SmoothISM(no Si) x GasEdge(Si) x DustEdge(olivine, Si)
     x IonLines(Si XIII, Si XIV) x power law."""
@@ -175,7 +183,7 @@ def _area(area_19):
     return lambda e: area_19 * (1.0 + 0.3 * (np.asarray(e) - 1.9))
 
 
-def instrument_responses():
+def instrument_responses() -> list[Response]:
     """The invented instrument's four responses (in memory), in the order
     of :data:`INSTRUMENT`: :func:`edgefit.data.gaussian_response` with the
     FWHM constant in wavelength and channels in wavelength order."""
@@ -193,7 +201,8 @@ def instrument_responses():
     return out
 
 
-def simulate_observation(model, response, rng, tag, values=None):
+def simulate_observation(model: ModelNode, response: Response, rng: np.random.Generator,
+                         tag: str, values: Mapping[str, float] | None = None) -> Spectrum:
     """One Poisson realisation of the simulated sightline through
     ``response`` (with its background), as a Spectrum."""
     from ..data import simulate_spectrum
@@ -205,8 +214,10 @@ def simulate_observation(model, response, rng, tag, values=None):
                              meta={"order": -1 if tag.endswith("m1") else 1, "object": SOURCE})
 
 
-def write_sightline(folder, *, stem="amber_loom", seed=SEED, walkers=32, steps=1200,
-                    ppc_draws=200, levels=(0.6827, 0.90), output="results"):
+def write_sightline(folder: str | os.PathLike[str], *, stem: str = "amber_loom", seed: int = SEED,
+                    walkers: int = 32, steps: int = 1200, ppc_draws: int = 200,
+                    levels: tuple[float, ...] = (0.6827, 0.90),
+                    output: str = "results") -> Path:
     """Simulate the sightline and write it into ``folder``.
 
     Writes, per spectrum, ``<stem>_<tag>.pha`` with its ``.rmf``, ``.arf``
@@ -231,6 +242,7 @@ def write_sightline(folder, *, stem="amber_loom", seed=SEED, walkers=32, steps=1
         rmf, arf = folder / f"{stem}_{tag}.rmf", folder / f"{stem}_{tag}.arf"
         write_response(resp, rmf, arf, overwrite=True, simulated=True)
         spec = simulate_observation(model, resp, rng, tag)
+        assert spec.background is not None  # simulate_observation always adds one
         bkg = folder / f"{stem}_{tag}_bkg.pha"
         write_pha(bkg, spec.background, overwrite=True, background=True, object_name=SOURCE)
         write_pha(folder / f"{stem}_{tag}.pha", spec, overwrite=True, respfile=rmf.name,
@@ -250,7 +262,7 @@ def write_sightline(folder, *, stem="amber_loom", seed=SEED, walkers=32, steps=1
     return config
 
 
-def truth_comparison(result, truth=TRUTH):
+def truth_comparison(result: FitResult, truth: Mapping[str, float] = TRUTH) -> list[tuple]:
     """Rows (name, unit, simulated truth, estimate, lower, upper, pull)
     comparing a fit of the simulated sightline with its truth.
 
@@ -309,7 +321,8 @@ def format_comparison(rows):
     return "\n".join(lines)
 
 
-def run_demo(output="edgefit-demo", *, quick=False, quiet=False):
+def run_demo(output: str | os.PathLike[str] = "edgefit-demo", *, quick: bool = False,
+             quiet: bool = False) -> tuple[FitResult, list[tuple], Path]:
     """Simulate Amber Loom into ``output``, fit it exactly as ``edgefit fit``
     would, and compare with the truth.
 

@@ -17,6 +17,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -28,6 +29,11 @@ from .cross_sections import (DEFAULT_MATERIALS, EDGE_REGIONS, TABLE_FORMAT_VERSI
                              _as_size_grid, compute_table, edge_energy_grid, region_for)
 from .materials import get_material
 from .sizes import SizeGrid
+
+if TYPE_CHECKING:
+    from numpy.typing import ArrayLike
+
+    from .materials import Material
 
 __all__ = ["table_key", "table_path", "save", "load", "load_cached", "load_or_build",
            "default_table", "list_cached_tables", "build_default_tables"]
@@ -97,9 +103,10 @@ def load_cached(material, energy_kev, sizes=None, *, method="auto", rtol=None):
         return None
 
 
-def load_or_build(material, energy_kev, sizes=None, *, method="auto", rtol=None,
-                  cache: bool = True, rebuild: bool = False, workers=None,
-                  progress=None) -> DustTable:
+def load_or_build(material: str | Material, energy_kev: ArrayLike,
+                  sizes: SizeGrid | ArrayLike | None = None, *, method: str = "auto",
+                  rtol: float | None = None, cache: bool = True, rebuild: bool = False,
+                  workers: int | None = None, progress: bool | None = None) -> DustTable:
     """The table for these inputs from the cache, computing and storing it
     if absent (or if ``rebuild``).  ``cache=False`` computes without
     touching the disk.  See :func:`compute_table` for the arguments."""
@@ -128,9 +135,11 @@ def load_or_build(material, energy_kev, sizes=None, *, method="auto", rtol=None,
     return table
 
 
-def default_table(material="olivine", element="Si", *, energy_range=None, sizes=None,
-                  method="auto", rtol=None, cache=True, rebuild=False, workers=None,
-                  progress=None) -> DustTable:
+def default_table(material: str | Material = "olivine", element: str = "Si", *,
+                  energy_range: tuple[float, float] | None = None,
+                  sizes: SizeGrid | ArrayLike | None = None, method: str = "auto",
+                  rtol: float | None = None, cache: bool = True, rebuild: bool = False,
+                  workers: int | None = None, progress: bool | None = None) -> DustTable:
     """The table of ``material`` across ``element``'s edge region
     (:data:`EDGE_REGIONS`, or ``energy_range`` = (lo, hi) keV), default
     size grid, from the cache or built once."""
@@ -144,7 +153,7 @@ def default_table(material="olivine", element="Si", *, energy_range=None, sizes=
                          rebuild=rebuild, workers=workers, progress=progress)
 
 
-def list_cached_tables(directory=None) -> list[dict]:
+def list_cached_tables(directory: str | os.PathLike[str] | None = None) -> list[dict]:
     """Headers of the tables in the cache folder (with their paths)."""
     base = cache_dir() if directory is None else directory
     out = []

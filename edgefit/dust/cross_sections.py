@@ -27,6 +27,7 @@ from __future__ import annotations
 import concurrent.futures as cf
 import time
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -36,6 +37,9 @@ from ..errors import PhysicsDataError
 from ..physics import atomic
 from .materials import Material, get_material
 from .sizes import SizeDistribution, SizeGrid
+
+if TYPE_CHECKING:
+    from numpy.typing import ArrayLike
 
 __all__ = ["TABLE_FORMAT_VERSION", "EDGE_REGIONS", "DEFAULT_SIZE_GRID", "DEFAULT_MATERIALS",
            "DustTable", "edge_energy_grid", "region_for", "q_efficiencies",
@@ -68,7 +72,8 @@ def region_for(element) -> tuple[str, float, float]:
     return "K", 0.87 * e0, 1.25 * e0
 
 
-def edge_energy_grid(material, lo, hi, rel_step: float = 1e-3) -> np.ndarray:
+def edge_energy_grid(material: str | Material, lo: float, hi: float,
+                     rel_step: float = 1e-3) -> np.ndarray:
     """Energies (keV) from ``lo`` to ``hi``: logarithmic with relative step
     ``rel_step`` plus the atomic tables' nodes of every element of
     ``material`` inside the range (points closer than 1e-7 relative are
@@ -174,7 +179,8 @@ def _as_size_grid(sizes) -> SizeGrid:
     return sizes if isinstance(sizes, SizeGrid) else SizeGrid(sizes)
 
 
-def compute_table(material, energy_kev, sizes=None, *, method: str = "auto",
+def compute_table(material: str | Material, energy_kev: ArrayLike,
+                  sizes: SizeGrid | ArrayLike | None = None, *, method: str = "auto",
                   rtol: float | None = None, workers: int | None = 1,
                   progress: bool | None = None) -> DustTable:
     """Compute a :class:`DustTable` (pure; no file I/O).

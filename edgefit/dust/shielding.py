@@ -22,6 +22,8 @@ instead.  R → 1 for small grains
 """
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 from astropy import units as u
 from astropy.table import Table
@@ -32,11 +34,18 @@ from .materials import get_material
 from .sizes import SizeGrid
 from .cross_sections import grain_cross_sections
 
+if TYPE_CHECKING:
+    from numpy.typing import ArrayLike
+
+    from .materials import Material
+
 __all__ = ["shielding_table"]
 
 
-def shielding_table(material="olivine", element="Si", sizes=None, *, edge="K",
-                    offset_kev=0.02, method="auto", rtol=None) -> Table:
+def shielding_table(material: str | Material = "olivine", element: str = "Si",
+                    sizes: SizeGrid | ArrayLike | None = None, *, edge: str = "K",
+                    offset_kev: float = 0.02, method: str = "auto",
+                    rtol: float | None = None) -> Table:
     """Self-shielding ratios of one material's edge against grain radius.
 
     Parameters

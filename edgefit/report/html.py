@@ -15,6 +15,7 @@ import html
 import math
 import os
 from pathlib import Path
+from typing import Any
 
 from ..errors import ArgumentError
 
@@ -39,7 +40,7 @@ figcaption { font-size: 0.85em; color: #555; max-width: 640px; }
 """
 
 
-def format_value(x, digits=4):
+def format_value(x: Any, digits: int = 4) -> str:
     """A number for a table cell ('--' for None/NaN)."""
     if x is None:
         return "--"
@@ -52,7 +53,7 @@ def format_value(x, digits=4):
     return f"{xf:.{digits}g}"
 
 
-def format_interval(value, lo, hi, digits=3):
+def format_interval(value: Any, lo: Any, hi: Any, digits: int = 3) -> str:
     """'value [lo, hi]' for a table cell."""
     return f"{format_value(value, digits)} [{format_value(lo, digits)}, " \
            f"{format_value(hi, digits)}]"
