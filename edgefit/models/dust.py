@@ -62,6 +62,7 @@ used.
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -69,6 +70,9 @@ from .._units import as_kev
 from ..errors import ModelError, PhysicsDataError
 from ..physics import atomic
 from .base import COLUMN_KEY, MULTIPLICATIVE, Component, EnergyGrid, Param
+
+if TYPE_CHECKING:
+    from ..dust.sizes import SizeDistribution
 
 __all__ = ["DustEdge"]
 
@@ -87,6 +91,29 @@ def _remember(cache, key, value, size):
         cache.pop(next(iter(cache)))
     cache[key] = value
 
+
+
+def size_option(sizes: Any) -> tuple[str, SizeDistribution | None, tuple[Param, ...]]:
+    """Resolve a dust component's ``sizes`` option.
+
+    A registered family name makes the family's parameters fit parameters:
+    returns (name, None, its Params).  A parameter-free distribution (a
+    :class:`~edgefit.dust.sizes.TabulatedSizes`) is used as it is: returns
+    ("table", the distribution, ()).  Anything else is a :class:`ModelError`
+    naming the ``sizes`` option.
+    """
+    from ..dust.sizes import FAMILIES
+    from ..dust.sizes import SizeDistribution as Distribution
+
+    if isinstance(sizes, Distribution):
+        if sizes.PARAMS:
+            raise ModelError("sizes: pass a family by name to fit its parameters, or a "
+                             "TabulatedSizes for a fixed table")
+        return "table", sizes, ()
+    if sizes not in FAMILIES:
+        raise ModelError(f"sizes: unknown size distribution {sizes!r}; have "
+                         f"{', '.join(FAMILIES)} or a TabulatedSizes")
+    return sizes, None, tuple(FAMILIES[sizes].PARAMS)
 
 class DustEdge(Component):
     """Dust edge of one grain material (registry name ``"dust_edge"``).
@@ -159,24 +186,12 @@ class DustEdge(Component):
                  table=None, size_grid=None, method="auto", rtol=None, cache=True, fixed=(),
                  **values):
         from ..dust.materials import get_material
-        from ..dust.sizes import FAMILIES, SizeDistribution, SizeGrid
+        from ..dust.sizes import SizeGrid
 
         self.material = get_material(material, density)
         self.element = atomic.element_symbol(element)
         self.material.count(self.element)  # error if the material lacks it
-        if isinstance(sizes, SizeDistribution):
-            if sizes.PARAMS:
-                raise ModelError("pass a size-distribution family by name to fit its "
-                                 "parameters, or a TabulatedSizes for a fixed table")
-            self.family = "table"
-            self.fixed_distribution: SizeDistribution | None = sizes
-            dist_params: tuple[Param, ...] = ()
-        else:
-            if sizes not in FAMILIES:
-                raise ModelError(f"unknown size distribution {sizes!r}; have "
-                                 f"{', '.join(FAMILIES)} or a TabulatedSizes")
-            self.family, self.fixed_distribution = sizes, None
-            dist_params = FAMILIES[sizes].PARAMS
+        self.family, self.fixed_distribution, dist_params = size_option(sizes)
         self.params = self._BASE_PARAMS + dist_params + self._TAIL_PARAMS
         self._dist_names = tuple(p.name for p in dist_params)
         self.count_once = bool(count_once)

@@ -95,6 +95,7 @@ from ..errors import ModelError, PhysicsDataError
 from ..physics import atomic
 from .base import (MULTIPLICATIVE, Component, EnergyGrid, ModelNode, Param,
                    element_column_key)
+from .dust import size_option
 
 __all__ = ["MultiEdgeDust", "tied_edge_model"]
 
@@ -166,7 +167,7 @@ class MultiEdgeDust(Component):
                  fractions=None, sizes="power_law", count_once=True, size_grid=None,
                  method="auto", rtol=None, cache=True, fixed=(), **values):
         from ..dust.materials import get_material
-        from ..dust.sizes import FAMILIES, SizeDistribution, SizeGrid
+        from ..dust.sizes import SizeGrid
 
         if isinstance(materials, (str, bytes)) or not hasattr(materials, "__iter__"):
             materials = [materials]
@@ -212,19 +213,7 @@ class MultiEdgeDust(Component):
             raise ModelError(f"column_element: {self.column_element} is in none of the "
                              f"materials {names}")
         # size distribution -------------------------------------------------
-        if isinstance(sizes, SizeDistribution):
-            if sizes.PARAMS:
-                raise ModelError("sizes: pass a family by name to fit its parameters, or a "
-                                 "TabulatedSizes for a fixed table")
-            self.family = "table"
-            self.fixed_distribution: SizeDistribution | None = sizes
-            dist_params: tuple[Param, ...] = ()
-        else:
-            if sizes not in FAMILIES:
-                raise ModelError(f"sizes: unknown size distribution {sizes!r}; have "
-                                 f"{', '.join(FAMILIES)} or a TabulatedSizes")
-            self.family, self.fixed_distribution = sizes, None
-            dist_params = tuple(FAMILIES[sizes].PARAMS)
+        self.family, self.fixed_distribution, dist_params = size_option(sizes)
         self._dist_names = tuple(p.name for p in dist_params)
         # mixture fractions ---------------------------------------------------
         self._frac_names = tuple(_frac_name(m, i) for i, m in enumerate(self.materials))[1:]
