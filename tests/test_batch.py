@@ -173,6 +173,43 @@ def test_truncated_pha_fails_only_its_row(tmp_path):
     assert math.isnan(t3["xnorm_2"][2]) and np.isfinite(t3["xnorm_2"][0])
 
 
+def _batch_command(manifest, out, *extra):
+    """``edgefit batch`` as a real subprocess command line."""
+    return [sys.executable, "-c", "import sys; from edgefit.cli import main; "
+            "sys.exit(main(sys.argv[1:]))", "batch", str(manifest), "-o", str(out),
+            *extra]
+
+
+def test_failed_sightline_sets_exit_status_1(tmp_path):
+    from edgefit.cli.batch import EXIT_FAILED
+
+    m = write_sample(tmp_path, n=2, **FAST)
+    bad = tmp_path / "sim-b02_p1.pha"
+    data = bad.read_bytes()
+    bad.write_bytes(data[: len(data) // 2])
+    out = tmp_path / "out"
+    run = subprocess.run(_batch_command(m, out, "--workers", "0", "--no-plots", "-q"),
+                         capture_output=True, text=True, timeout=600)
+    assert EXIT_FAILED == 1 and run.returncode == EXIT_FAILED, run.stderr
+    err = run.stderr.strip().splitlines()
+    assert len(err) == 1, err                     # one line, even with -q
+    assert "1 of 2 sightlines failed (SIM-B02)" in err[0]
+    assert f"'reason' column of {out}/sample.ecsv" in err[0]
+    # the table and both folders are written all the same
+    t = read_sample_table(out)
+    assert list(t["status"]) == ["ok", "failed"] and "sim-b02_p1.pha" in t["reason"][1]
+    for folder in ("SIM-B01", "SIM-B02"):
+        row = json.loads((out / "sightlines" / folder / "row.json").read_text())
+        assert row["name"] == folder
+    assert "sim-b02_p1.pha" in row["reason"]
+    # repaired: the rerun retries it and ends with status 0
+    bad.write_bytes(data)
+    rerun = subprocess.run(_batch_command(m, out, "--workers", "0", "--no-plots"),
+                           capture_output=True, text=True, timeout=600)
+    assert rerun.returncode == 0, rerun.stderr
+    assert "2 ok, 0 doubtful, 0 failed" in rerun.stdout
+
+
 def test_readme_batch_example_runs(tmp_path, monkeypatch):
     import re
     from pathlib import Path

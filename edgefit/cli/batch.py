@@ -6,13 +6,23 @@ cluster with ``--scheduler``; each finished sightline's folder and the
 sample table (``DIR/sample.ecsv``, ``DIR/sample.fits``) are written at
 once, and a rerun skips sightlines whose inputs are unchanged.  The work is
 :func:`edgefit.analysis.batch.run_batch`.
+
+Exit status: 0 when every sightline in the table finished (``ok`` or
+``doubtful``); :data:`EXIT_FAILED` (1) when the run finished but the table
+holds ``failed`` sightlines (one line on stderr says how many and where
+their reasons are; the table and the folders are written all the same);
+2 for bad input (manifest, options), as for every command; 128 + the
+signal number after Ctrl-C (130) or SIGTERM (143).
 """
 from __future__ import annotations
 
 import shlex
 import sys
 
-__all__ = ["add_parser", "run"]
+__all__ = ["add_parser", "run", "EXIT_FAILED"]
+
+#: Exit status of a batch that finished with failed sightlines.
+EXIT_FAILED = 1
 
 
 def add_parser(subparsers):
@@ -60,9 +70,18 @@ def run(args) -> int:
     except BatchInterrupted as exc:
         print(f"edgefit batch: {exc}", file=sys.stderr)
         return 128 + exc.signum
+    status = list(table["status"]) if len(table) else []
     if not args.quiet:
-        status = list(table["status"]) if len(table) else []
         print(f"{len(table)} of {len(manifest)} sightlines in {out}/sample.ecsv: "
               f"{status.count('ok')} ok, {status.count('doubtful')} doubtful, "
               f"{status.count('failed')} failed")
+    n_failed = status.count("failed")
+    if n_failed:
+        names = [str(n) for n, s in zip(table["name"], status) if s == "failed"]
+        shown = ", ".join(names[:5]) + (", ..." if len(names) > 5 else "")
+        print(f"edgefit batch: {n_failed} of {len(table)} sightlines failed ({shown}); "
+              f"their reasons are in the 'reason' column of {out}/sample.ecsv and in "
+              f"{out}/sightlines/*/row.json; rerun the same command to retry them",
+              file=sys.stderr)
+        return EXIT_FAILED
     return 0
