@@ -210,6 +210,56 @@ def test_failed_sightline_sets_exit_status_1(tmp_path):
     assert "2 ok, 0 doubtful, 0 failed" in rerun.stdout
 
 
+def test_changed_dust_table_refits_unchanged_skips(tmp_path, monkeypatch):
+    """The input hash holds the identity of the dust cross-section tables
+    the model uses: the same table rebuilt with other numbers under the
+    same cache key (as another build of the code or other optical
+    constants would give) makes the rerun refit; an unchanged one is
+    skipped."""
+    import shutil
+
+    from edgefit.dust import cache
+
+    m = write_sample(tmp_path, n=1, **FAST)
+    # the model's table (olivine across the Si region, default sizes), in a
+    # cache of this test's own so the session's copy stays untouched
+    src = cache.default_table("olivine", "Si").meta["path"]
+    own = tmp_path / "cache"
+    own.mkdir()
+    shutil.copy(src, own)
+    monkeypatch.setenv("EDGEFIT_CACHE_DIR", str(own))
+    table = cache.default_table("olivine", "Si")
+    path = table.meta["path"]
+    assert os.path.dirname(path) == str(own)
+    identity = cache.table_identity(table)
+    dust = load_manifest(m).sightlines[0].dust_tables()
+    assert dust == [["dust", [identity]]]
+
+    out = tmp_path / "out"
+    t1 = run_batch(m, out, workers=0, progress=False)
+    row = out / "sightlines" / "SIM-B01" / "row.json"
+    first = (row.stat().st_mtime_ns, json.loads(row.read_text())["input_hash"])
+    run_batch(m, out, workers=0, progress=False)
+    assert (row.stat().st_mtime_ns, json.loads(row.read_text())["input_hash"]) == first
+
+    # same key, same header, 2 % more absorption per grain
+    with np.load(path) as f:
+        arrays = {k: f[k] for k in f.files}
+    arrays["sigma_abs"] = arrays["sigma_abs"] * 1.02
+    np.savez_compressed(path, **arrays)
+    changed = cache.table_identity(cache.default_table("olivine", "Si"))
+    assert changed["content"] != identity["content"]
+    assert {k: v for k, v in changed.items() if k != "content"} == \
+        {k: v for k, v in identity.items() if k != "content"}
+    t2 = run_batch(m, out, workers=0, progress=False)
+    second = (row.stat().st_mtime_ns, json.loads(row.read_text())["input_hash"])
+    assert second[0] != first[0] and second[1] != first[1]
+    # refitted with the new numbers: the dust column moved
+    assert t2["dust_col"][0] != pytest.approx(t1["dust_col"][0], rel=1e-6, abs=0)
+    run_batch(m, out, workers=0, progress=False)
+    assert (row.stat().st_mtime_ns, json.loads(row.read_text())["input_hash"]) == second
+
+
 def test_readme_batch_example_runs(tmp_path, monkeypatch):
     import re
     from pathlib import Path

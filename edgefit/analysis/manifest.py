@@ -106,9 +106,23 @@ class SightlineEntry:
                         files.append(p)
         return files
 
+    def dust_tables(self):
+        """[component name, identities] of every component of the model
+        that uses dust cross-section tables (its ``table_identity()``:
+        material digest, table format and version, content digest)."""
+        out = []
+        for comp in self.config.model.components():
+            ident = getattr(comp, "table_identity", None)
+            if callable(ident):
+                out.append([comp.name, ident()])
+        return out
+
     def input_hash(self, extra=None):
         """SHA-256 (hex) of the merged manifest entry, ``extra`` (run
-        options), the edgefit version and the bytes of every input file: a
+        options), the edgefit version, the identity of the dust
+        cross-section tables the model uses (:meth:`dust_tables`: a table
+        rebuilt with other numbers, e.g. by another version or from other
+        optical constants, changes it) and the bytes of every input file: a
         rerun skips the sightline while this is unchanged.  The hydrogen
         columns are left out: they do not enter the fit, and the sample
         table takes them from the manifest at every write."""
@@ -116,7 +130,7 @@ class SightlineEntry:
 
         h = hashlib.sha256()
         h.update(json.dumps({"table": self.table, "name": self.name, "extra": extra or {},
-                             "edgefit": __version__},
+                             "edgefit": __version__, "dust_tables": self.dust_tables()},
                             sort_keys=True, default=str).encode())
         for p in self.input_files():
             h.update(str(p.name).encode())

@@ -36,7 +36,11 @@ if TYPE_CHECKING:
     from .materials import Material
 
 __all__ = ["table_key", "table_path", "save", "load", "load_cached", "load_or_build",
-           "default_table", "list_cached_tables", "build_default_tables"]
+           "default_table", "list_cached_tables", "build_default_tables", "table_identity"]
+
+#: ``DustTable.meta`` key of the memoised content digest (table_identity).
+_CONTENT = "_content_digest"
+
 
 def _digest_array(arr) -> str:
     return hashlib.blake2b(np.ascontiguousarray(arr, dtype=float).tobytes(),
@@ -55,6 +59,32 @@ def table_key(material, energy_kev, sizes, method="auto", rtol=None) -> dict:
             "method": method, "rtol": rtol}
 
 
+def table_identity(table: DustTable) -> dict:
+    """What identifies the numbers of ``table``, as a JSON-able dict: the
+    material's digest (formula, density, optical-constant model and data,
+    :meth:`~edgefit.dust.materials.Material.digest`), the table format and
+    the edgefit version that built it, and a digest of its contents
+    (energies, radii, both cross sections and g).  Two tables with the same
+    identity hold the same numbers; a table rebuilt differently (another
+    version, other optical constants, edited on disk) gets another one.
+    The content digest is computed once per table object (kept in
+    ``table.meta``, never stored in the cache file: it is always computed
+    from the numbers read)."""
+    content = table.meta.get(_CONTENT)
+    if content is None:
+        h = hashlib.blake2b(digest_size=16)
+        for arr in (table.energy_kev, table.sizes.a, table.sigma_abs, table.sigma_sca,
+                    table.g):
+            a = np.ascontiguousarray(arr, dtype=float)
+            h.update(str(a.shape).encode())
+            h.update(a.tobytes())
+        content = h.hexdigest()
+        table.meta[_CONTENT] = content
+    return {"material": table.material.name, "material_digest": table.material.digest(),
+            "format": table.meta.get("format", TABLE_FORMAT_VERSION),
+            "built_by": table.meta.get("edgefit"), "content": content}
+
+
 def table_path(material, energy_kev, sizes, method="auto", rtol=None, directory=None):
     """Cache file for a table with these inputs."""
     material = get_material(material)
@@ -67,7 +97,8 @@ def table_path(material, energy_kev, sizes, method="auto", rtol=None, directory=
 
 def save(table: DustTable, path, key):
     """Write ``table`` to ``path`` atomically (temporary file, then rename)."""
-    header = dict(table.meta, key=key, material_name=table.material.name,
+    meta = {k: v for k, v in table.meta.items() if k != _CONTENT}
+    header = dict(meta, key=key, material_name=table.material.name,
                   material_note=table.material.note,
                   units={"energy": "keV", "size": "um", "sigma": "cm2 per grain", "g": ""})
     tmp = f"{path}.{os.getpid()}.tmp.npz"
@@ -85,7 +116,8 @@ def load(path, material, key):
             return None
         return DustTable(material, data["energy_kev"], SizeGrid(data["size_um"]),
                          data["sigma_abs"], data["sigma_sca"], data["g"],
-                         {k: v for k, v in header.items() if k != "key"} | {"path": path})
+                         {k: v for k, v in header.items() if k not in ("key", _CONTENT)}
+                         | {"path": path})
 
 
 def load_cached(material, energy_kev, sizes=None, *, method="auto", rtol=None):

@@ -213,6 +213,18 @@ class DustEdge(Component):
                 Param(p.name, p.default, max(p.min, a[0]), min(p.max, a[-1]), p.unit,
                       p.description, p.vary) if p.unit == "um" else p for p in self.params)
         self.prepare()  # the default region's table, before any fit
+        ident = _tables().table_identity
+        self._table_ids = ([ident(self.table)] if self.table is not None
+                           else [ident(t) for t, _ in self._tables.values()])
+
+    def table_identity(self) -> list[dict]:
+        """Identities (:func:`edgefit.dust.cache.table_identity`: material
+        digest, table format, building version, content digest) of the
+        cross-section table this component was built with -- the given
+        ``table``, or the one of its default energy range.  A table for a
+        fit grid reaching past that range comes from the same inputs
+        (material, size grid, method, tolerance, version)."""
+        return [dict(d) for d in self._table_ids]
 
     # -- pickling: drop in-memory tables (they reload from the disk cache) --
     def __getstate__(self):

@@ -242,7 +242,17 @@ class MultiEdgeDust(Component):
                                 for m in self.materials])
         self._fu_mass = np.array([m.formula_mass / atomic.AVOGADRO for m in self.materials])
         self._tables: dict = {}
+        self._table_ids: list | tuple = []   # filled while preparing the default span
         self.prepare()  # tables of the tied edge regions, before any fit
+        self._table_ids = tuple(self._table_ids)
+
+    def table_identity(self) -> list[dict]:
+        """Identities (:func:`edgefit.dust.cache.table_identity`: material
+        digest, table format, building version, content digest) of every
+        material's cross-section tables over the default span of the tied
+        edge regions, the ones this component was built with.  Tables for
+        a fit grid reaching past that span come from the same inputs."""
+        return [dict(d) for d in self._table_ids]
 
     def _initial_fractions(self, fractions):
         by_name = {m.name: m for m in self.materials}
@@ -409,6 +419,8 @@ class MultiEdgeDust(Component):
                         f"{lo:.4g}-{hi:.4g} keV; call {self.name}.prepare(grid) (or "
                         f"prepare(energy_range=(lo, hi))) before evaluating, or build the "
                         f"default tables with `edgefit dust-tables build`")
+            if isinstance(self._table_ids, list):
+                self._table_ids.append(tab.table_identity(t))
             keep = t.energy_kev > last
             es.append(t.energy_kev[keep])
             sa.append(t.sigma_abs[keep])
