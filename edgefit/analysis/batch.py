@@ -137,7 +137,7 @@ def fit_task(task):
             result = run_sightline(cfg, tmp, mcmc=task["mcmc"], plots=task["plots"],
                                    steps=task["steps"], quiet=True, command="batch",
                                    keep_samples=True, figures=task["figures"],
-                                   checkpoints=False,
+                                   checkpoints=False, total_profiles=True,
                                    warn=lambda m: seen.append(
                                        "warning: " + (str(m).splitlines() or [""])[0]))
             row = sightline_row(result, task["name"], seen)
@@ -421,7 +421,10 @@ def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike 
         raise ArgumentError(f"workers must be >= 0, got {workers}")
     (out / SIGHTLINES_DIR).mkdir(parents=True, exist_ok=True)
     shutil.rmtree(out / _WORK_DIR, ignore_errors=True)  # leftovers of a killed run
-    options = {"mcmc": bool(mcmc), "plots": bool(plots), "steps": steps}
+    # "totals" names how the table's total columns are bounded without
+    # MCMC (sample_table.total_column_profiles), so rows made otherwise refit
+    options = {"mcmc": bool(mcmc), "plots": bool(plots), "steps": steps,
+               "totals": "profile"}
     digests = {e.name: e.input_hash(options) for e in manifest}
     records = {}
     for e in manifest:

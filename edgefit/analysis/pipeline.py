@@ -62,7 +62,7 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
                   quiet: bool = False, command: str = "fit", keep_samples: bool = False,
                   warn: Callable[[str], Any] | None = None,
                   figures: Callable[..., Any] | None = None,
-                  checkpoints: bool = True) -> FitResult:
+                  checkpoints: bool = True, total_profiles: bool = False) -> FitResult:
     """Run every step a sightline configuration asks for and write the
     results; returns the :class:`~edgefit.inference.FitResult`.
 
@@ -91,6 +91,14 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
         Rewrite the output after every step (default).  False writes once
         at the end, or when a step fails -- for callers that keep the
         folder only when the run ends anyway (``edgefit batch`` workers).
+    total_profiles : bool
+        When MCMC did not run and ``[errors] profile`` asks for profiles,
+        also profile each element's total column N_gas + N_dust in the
+        total/fraction parametrisation
+        (:func:`~edgefit.analysis.sample_table.total_column_profiles`), kept
+        in ``result.meta["total_profiles"]`` for the sample table
+        (``edgefit batch``).  A failure there is a warning and the total's
+        interval comes from the draws.
 
     A failing step records ``failed_<step>`` in the result's meta, writes
     what exists and raises (an EdgefitError naming the file and the step's
@@ -118,11 +126,14 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
         if not quiet:
             print(msg, flush=True)
 
-    def report(w):
+    def report_text(text):
         if warn is not None:
-            warn(str(w.message))
+            warn(text)
         else:
-            print(f"edgefit {command}: warning: {w.message}", file=sys.stderr)
+            print(f"edgefit {command}: warning: {text}", file=sys.stderr)
+
+    def report(w):
+        report_text(str(w.message))
 
     out_dir = Path(output) if output else cfg.output
     datasets = cfg.load_datasets()
@@ -189,6 +200,22 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
                                        burn=mc.burn, thin=mc.thin, seed=mc.seed,
                                        priors=priors, progress=mc.progress and not quiet,
                                        processes=mc.processes))
+
+    if total_profiles and prof and result.mcmc is None:
+        from .sample_table import TOTAL_PROFILES_KEY, total_column_profiles
+
+        say("profiling the total columns ...")
+        try:
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", ConvergenceWarning)
+                result.meta[TOTAL_PROFILES_KEY] = total_column_profiles(result)
+            for w in caught:
+                if issubclass(w.category, ConvergenceWarning):
+                    report(w)
+        except (EdgefitError, ValueError, ArithmeticError) as exc:
+            msg = (str(exc).splitlines() or [type(exc).__name__])[0]
+            report_text(f"profile of the total column failed ({msg}); its interval comes "
+                        "from the covariance draws")
 
     ppc_draws = cfg.goodness.draws(result.mcmc is not None)
     if ppc_draws and result.statistic_name == "poisson":

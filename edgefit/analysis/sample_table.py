@@ -28,6 +28,15 @@ derived quantities and totals: quantiles of draws from the covariance
 Gaussian, which keep the correlations) or ``none``; a dict
 {sightline: source} when the sightlines differ.  The FITS file repeats
 these as COMMENT cards.
+
+The total column ``total_<El>_cm2`` is the derived ``total_column_<El>``
+(gas plus every dust component of the element, a grain population across
+edges included, summed draw by draw).  Its interval is the posterior's when
+MCMC ran; otherwise, when :func:`total_column_profiles` ran (``edgefit
+batch`` runs it whenever a sightline's ``[errors] profile`` list is not
+empty), the profile-likelihood interval of the total in the total/fraction
+parametrisation (:func:`edgefit.inference.fit.reparametrise`), else the
+covariance draws'.
 """
 from __future__ import annotations
 
@@ -36,7 +45,7 @@ import os
 import tempfile
 import warnings
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
@@ -48,13 +57,19 @@ if TYPE_CHECKING:
     from astropy.table import Table
 
 __all__ = ["sightline_row", "failed_row", "sample_table", "write_sample_table",
-           "read_sample_table", "STATUSES", "POOR_FIT_P"]
+           "read_sample_table", "total_column_profiles", "STATUSES", "POOR_FIT_P",
+           "TOTAL_PROFILES_KEY"]
 
 #: Row statuses.
 STATUSES = ("ok", "doubtful", "failed")
 #: A goodness-of-fit p-value below this marks a fit doubtful (common practice).
 POOR_FIT_P = 1e-3
 _CM2 = "cm-2"
+#: ``FitResult.meta`` key under which :func:`total_column_profiles` results
+#: are kept for :func:`sightline_row`.
+TOTAL_PROFILES_KEY = "total_profiles"
+#: The column parameters' unit, 1e16 cm^-2, in cm^-2.
+_COLUMN_UNIT_CM2 = 1e16
 
 
 def _f(x):
@@ -90,30 +105,66 @@ def _draw_source(derived):
 
 
 def _totals(result):
-    """{element: (best, samples, unit)} of N_gas + N_dust for every element
-    with components of both phases, summed draw by draw over the derived
-    quantities' joint draws."""
-    from ..inference.derived import PHASES
-    from ..models.base import COLUMN_KEY
-
+    """{element: (best, samples, unit)} of N_gas + N_dust: the derived
+    ``total_column_<El>`` of every element with gas and dust columns (every
+    dust component of the element counts, a grain population across edges
+    included), summed draw by draw."""
     der = result.derived
     if der is None:
         return {}
-    by_el: dict[str, Any] = {}
-    for comp in result.model.components():
+    prefix = "total_column_"
+    return {q.name[len(prefix):]: (q.best, q.samples, q.unit) for q in der.quantities
+            if q.name.startswith(prefix)}
+
+
+def _column_pairs(model):
+    """{element: (gas component, dust component)} for every element with
+    exactly one gas-phase and one dust-phase component carrying its column
+    (a grain population across edges carries its column element's)."""
+    by_el: dict[str, dict[str, list]] = {}
+    for comp in model.components():
         phase = getattr(comp, "phase", None)
-        element = getattr(comp, "element", None)
-        qname = f"{comp.name}_{COLUMN_KEY}"
-        if phase in PHASES and element and qname in der.names():
-            by_el.setdefault(element, {}).setdefault(phase, []).append(der[qname])
-    out = {}
-    for el, phases in by_el.items():
-        if not all(p in phases for p in PHASES):
+        el = getattr(comp, "column_element", None) or getattr(comp, "element", None)
+        if phase in ("gas", "dust") and el:
+            by_el.setdefault(el, {}).setdefault(phase, []).append(comp)
+    return {el: (d["gas"][0], d["dust"][0]) for el, d in by_el.items()
+            if len(d.get("gas", [])) == 1 and len(d.get("dust", [])) == 1}
+
+
+def total_column_profiles(result, level: float = ONE_SIGMA) -> dict[str, dict]:
+    """Profile-likelihood intervals of each element's total column.
+
+    For every element with one gas and one dust component whose columns
+    are both free, the fit is re-expressed in total/fraction form
+    (:func:`~edgefit.inference.fit.reparametrise`) and the total's profile
+    interval at ``level`` is computed (:func:`~edgefit.inference.intervals.profile_intervals`:
+    Delta stat = 1 at 68.27 %).  Returns {element: {"best", "lower",
+    "upper" (cm^-2; None where not found), "lower_at_bound",
+    "upper_at_bound", "level", "parameter"}}.  Elements with several
+    components of a phase, a fixed column, or tied to a grain population
+    through another element's column are left out (their totals keep the
+    draws).  Pure computation, no I/O."""
+    from ..inference.fit import reparametrise
+    from ..inference.intervals import profile_intervals
+    from ..models.columns import TotalAndFraction
+
+    if isinstance(result.model, TotalAndFraction):
+        return {}
+    out: dict[str, dict] = {}
+    for el, (gas, dust) in _column_pairs(result.model).items():
+        names = [f"{c.name}_{c.params[0].name}" for c in (gas, dust)]
+        if not all(n in result.free_names for n in names):
             continue
-        qs = [q for p in PHASES for q in phases[p]]
-        best = sum(q.best for q in qs)
-        samples = np.sum([q.samples for q in qs], axis=0)
-        out[el] = (best, samples, qs[0].unit)
+        tf = reparametrise(result, "total_fraction", gas=gas.name, dust=dust.name)
+        tname = tf.model.total_param
+        iv = profile_intervals(tf, [tname], [level], store=False)[tname][level]
+
+        def cm2(x):
+            return None if x is None else float(x) * _COLUMN_UNIT_CM2
+        out[el] = {"best": cm2(tf.values[tname]), "lower": cm2(iv.lower),
+                   "upper": cm2(iv.upper), "lower_at_bound": bool(iv.lower_at_bound),
+                   "upper_at_bound": bool(iv.upper_at_bound), "level": float(level),
+                   "parameter": tname}
     return out
 
 
@@ -146,7 +197,14 @@ def sightline_row(result, name, warnings_seen=()):
         for q in result.derived.quantities:
             lo, hi = q.interval(ONE_SIGMA)
             quantities.append([q.name, _f(q.best), _f(lo), _f(hi), q.unit, src])
+        profiles = result.meta.get(TOTAL_PROFILES_KEY) or {}
         for el, (best, samples, unit) in _totals(result).items():
+            prof = profiles.get(el) if result.mcmc is None else None
+            if (prof and _is_one_sigma(prof["level"]) and prof["lower"] is not None
+                    and prof["upper"] is not None):
+                quantities.append([f"total_{el}_cm2", _f(best), _f(prof["lower"]),
+                                   _f(prof["upper"]), unit, "profile"])
+                continue
             s = samples[np.isfinite(samples)]
             lo, hi = ((np.quantile(s, [0.5 - ONE_SIGMA / 2, 0.5 + ONE_SIGMA / 2]))
                       if s.size else (None, None))

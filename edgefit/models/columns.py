@@ -115,7 +115,9 @@ class TotalAndFraction(ModelNode):
         The complete model.
     gas, dust : str or Component
         The gas-phase and dust-phase components (their first parameter is
-        the column, in 1e16 cm^-2).
+        the column, in 1e16 cm^-2).  The dust component may be a
+        :class:`~edgefit.models.multi_edge.MultiEdgeDust`, whose column is
+        that of its ``column_element``: the total is then that element's.
     name : str, optional
         Prefix of the two parameters (default: the element symbol in lower
         case, e.g. ``si_total``, ``si_dustfrac``).
@@ -130,9 +132,11 @@ class TotalAndFraction(ModelNode):
             raise ModelError("the model is already in total/fraction form")
         g = _column_component(model, gas, "gas")
         d = _column_component(model, dust, "dust")
-        if g.element != d.element:
+        # a grain population across edges carries the column of its column element
+        d_element = getattr(d, "column_element", None) or d.element
+        if g.element != d_element:
             raise ModelError(f"gas component {g.name!r} is {g.element} but dust component "
-                             f"{d.name!r} is {d.element}")
+                             f"{d.name!r} is {d_element}")
         self.model = model
         self.kind = model.kind
         self.element = g.element
