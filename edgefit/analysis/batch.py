@@ -292,22 +292,33 @@ def _signals_deferred():
                 os.kill(os.getpid(), pending[0])
 
 
-def _run_pool(tasks, workers, on_result):
+def _lost_sightline(task, reason):
+    """The result of a fit task whose worker died: a ``failed`` row."""
+    return {"name": task["name"], "folder": task["folder"], "files": {},
+            "row": dict(failed_row(task["name"], reason), input_hash=task["hash"])}
+
+
+def _run_pool(tasks, workers, on_result, func=fit_task, lost=_lost_sightline):
+    """Run ``func(task)`` for every task on the local process pool and hand
+    each result to ``on_result`` in the main process as it arrives.
+
+    ``func`` must be a module-level function (it is pickled by name);
+    ``lost(task, reason)`` makes the result of a task whose worker died.
+    Other analyses (e.g. :mod:`edgefit.analysis.shared_profile`) run their
+    own task functions through this one pool."""
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
     with _single_threaded_workers(True):
         ex = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(),
                                  initializer=_worker_init)
         try:
-            futures = {ex.submit(fit_task, t): t for t in tasks}
+            futures = {ex.submit(func, t): t for t in tasks}
             for fut in as_completed(futures):
                 t = futures[fut]
                 try:
                     res = fut.result()
                 except Exception as exc:  # noqa: BLE001 -- e.g. a worker killed
-                    res = {"name": t["name"], "folder": t["folder"], "files": {},
-                           "row": dict(failed_row(t["name"], "worker lost: "
-                                                  + _one_line(exc)), input_hash=t["hash"])}
+                    res = lost(t, "worker lost: " + _one_line(exc))
                 on_result(res)
         except BaseException:
             for p in list(getattr(ex, "_processes", {}).values()):
@@ -317,9 +328,9 @@ def _run_pool(tasks, workers, on_result):
         ex.shutdown(wait=True)
 
 
-def _run_inline(tasks, on_result):
+def _run_inline(tasks, on_result, func=fit_task):
     for t in tasks:
-        on_result(fit_task(t))
+        on_result(func(t))
 
 
 def _run_dask(tasks, scheduler, on_result):

@@ -1,23 +1,38 @@
 """``edgefit population SAMPLE_DIR --quantity NAME``: a population fit of a
-batch output folder from its sightlines' saved posterior samples.
+batch output folder from its sightlines' saved posterior samples; or
+``edgefit population SAMPLE_DIR --shared NAME --grid LO,HI,N``: the summed
+profile statistic of a parameter shared exactly by every sightline.
 
 Importance reweighting (Hogg, Myers & Bovy 2010) of each sightline's
 samples of one fitted parameter: a normal population, optionally with a
 mean linear in a sample-table covariate (e.g. log10 N_H) and an intrinsic
 scatter; writes ``population.json``, ``population_sightlines.ecsv`` and
 ``population.png``.  See :mod:`edgefit.analysis.population`.
+
+With ``--shared``, every sightline of the batch's manifest is refitted with
+the parameter fixed at each grid value (in parallel, cached per sightline
+and value, resumable), and the sum of the sightlines' statistics gives the
+shared value with 68.27 % and 95 % intervals and each sightline's columns
+pooled against alone; writes ``shared.json``, ``shared_curve.ecsv``,
+``shared_sightlines.ecsv`` and ``shared.png`` into
+``SAMPLE_DIR/shared_<NAME>``.  See :mod:`edgefit.analysis.shared_profile`.
 """
 from __future__ import annotations
 
-__all__ = ["add_parser", "run"]
+import re
+
+__all__ = ["add_parser", "run", "parse_grid"]
+
+_NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser("population", help="population fit of a batch output folder "
-                                                 "from its saved posterior samples",
+                                                 "(saved posterior samples, or a shared "
+                                                 "parameter on a grid)",
                               description=__doc__.split("\n\n")[0])
     p.add_argument("sample_dir", metavar="SAMPLE_DIR", help="output folder of 'edgefit batch'")
-    p.add_argument("--quantity", required=True, metavar="NAME",
+    p.add_argument("--quantity", metavar="NAME",
                    help="sampled (free) parameter, e.g. dust_col")
     p.add_argument("--covariate", metavar="COLUMN",
                    help="sample-table column for a population mean linear in it")
@@ -26,14 +41,120 @@ def add_parser(subparsers):
     p.add_argument("--log", action="store_true", help="model the logarithm of the quantity")
     p.add_argument("--interim", choices=("flat", "log-uniform"), default="flat",
                    help="prior the sightlines were sampled under (default flat)")
-    p.add_argument("-o", "--output", metavar="DIR", help="output folder (default SAMPLE_DIR)")
+    g = p.add_argument_group("a parameter shared by every sightline")
+    g.add_argument("--shared", metavar="NAME",
+                   help="full parameter name shared exactly by all sightlines, e.g. dust_amax "
+                        "(instead of --quantity)")
+    g.add_argument("--grid", metavar="LO,HI,N",
+                   help="N grid values from LO to HI in the parameter's unit (logarithmic "
+                        "spacing unless --linear-grid)")
+    g.add_argument("--linear-grid", action="store_true", help="evenly spaced grid values")
+    g.add_argument("--manifest", metavar="TOML",
+                   help="the batch manifest (default: the one named in SAMPLE_DIR/sample.ecsv, "
+                        "looked up beside SAMPLE_DIR)")
+    g.add_argument("--columns", nargs="+", metavar="NAME",
+                   help="parameters reported per sightline (default every free *_col)")
+    g.add_argument("--workers", type=int, metavar="N",
+                   help="local worker processes (default: the number of CPUs; 0 = in this "
+                        "process)")
+    g.add_argument("--fresh", action="store_true", help="refit every grid point even when "
+                                                        "cached")
+    p.add_argument("-o", "--output", metavar="DIR", help="output folder (default SAMPLE_DIR, "
+                   "or SAMPLE_DIR/shared_<NAME> with --shared)")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--no-plots", action="store_true")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
     return p
 
 
+def parse_grid(text):
+    """(lo, hi, n) from ``LO,HI,N``; a bad text is an ArgumentError naming
+    --grid.  Nothing is evaluated."""
+    from ..errors import ArgumentError
+
+    parts = [s.strip() for s in str(text).split(",")]
+    if len(parts) != 3 or not all(_NUMBER.match(s) for s in parts[:2]) \
+            or not parts[2].isdigit():
+        raise ArgumentError(f"--grid {text!r}: give LO,HI,N (two numbers and a count), "
+                            "e.g. 0.05,2,12")
+    return float(parts[0]), float(parts[1]), int(parts[2])
+
+
+def _find_manifest(sample_dir, given):
+    from pathlib import Path
+
+    from ..errors import InputFileError
+    from ..analysis.sample_table import read_sample_table
+
+    if given:
+        return Path(given)
+    folder = Path(sample_dir)
+    table = folder / "sample.ecsv"
+    if not table.exists():
+        raise InputFileError(table, "no sample table (run 'edgefit batch' first, or give "
+                                    "--manifest)")
+    try:
+        name = read_sample_table(table).meta.get("manifest")
+    except Exception as exc:  # astropy raises many kinds for unreadable tables
+        raise InputFileError(table, f"cannot read the sample table ({exc})") from None
+    if not name:
+        raise InputFileError(table, "names no manifest; give --manifest")
+    for cand in (folder.parent / name, folder / name):
+        if cand.is_file():
+            return cand
+    raise InputFileError(table, f"its manifest {name!r} is not beside {folder}; give "
+                                "--manifest")
+
+
+def _run_shared(args) -> int:
+    from pathlib import Path
+
+    from ..analysis.shared_profile import make_grid, shared_parameter_profile
+    from ..errors import ArgumentError
+    from ..plotting.shared_profile import save_shared_figure
+
+    if args.quantity or args.covariate:
+        raise ArgumentError("--shared: give either --shared or --quantity (with "
+                            "--covariate), not both")
+    if not args.grid:
+        raise ArgumentError("--shared: give the grid, --grid LO,HI,N")
+    lo, hi, n = parse_grid(args.grid)
+    grid = make_grid(lo, hi, n, log=not args.linear_grid)
+    manifest = _find_manifest(args.sample_dir, args.manifest)
+    out = Path(args.output) if args.output else Path(args.sample_dir) / f"shared_{args.shared}"
+    res = shared_parameter_profile(manifest, args.shared, grid, output=out,
+                                   columns=args.columns, log=not args.linear_grid,
+                                   workers=args.workers, fresh=args.fresh,
+                                   figures=None if args.no_plots else save_shared_figure,
+                                   progress=not args.quiet)
+    s = res.summary
+    unit = f" {res.unit}" if res.unit else ""
+    print(f"{len(res.names)} sightlines; skipped {len(res.skipped)}")
+    print(f"  shared {res.parameter}: best {res.best:.5g}{unit} (summed C {s['statistic_at_best']:.2f})")
+    for lv, iv in res.intervals.items():
+        pieces = " or ".join(f"[{lo_:.4g}, {hi_:.4g}]" for lo_, hi_ in iv["pieces"])
+        ends = [w for w, f in (("lower", iv["lower_at_bound"]), ("upper", iv["upper_at_bound"]))
+                if f]
+        print(f"  {100 * float(lv):.4g} % (dS <= {s['thresholds'][lv]:.3f}): {pieces}"
+              + (f"  ({' and '.join(ends)} end at the grid's edge)" if ends else ""))
+    for c in s["columns"]:
+        shrink = sorted(s["sightlines"][n_]["columns"][c]["shrink"] for n_ in res.names)
+        print(f"  median 68 % width pooled / alone of {c}: {shrink[len(shrink) // 2]:.2f}")
+    for note in s["notes"]:
+        print(f"  note: {note}")
+    print(f"  wrote {res.output}")
+    return 0
+
+
 def run(args) -> int:
+    from ..errors import ArgumentError
+
+    if args.shared:
+        return _run_shared(args)
+    if not args.quantity:
+        raise ArgumentError("give --quantity NAME (a sampled parameter) or --shared NAME "
+                            "--grid LO,HI,N")
     from ..analysis.population import population_from_batch
     from ..plotting.population import save_population_figure
 
