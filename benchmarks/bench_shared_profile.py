@@ -56,7 +56,7 @@ def main():
     wall = time.perf_counter() - t0
     s = res.summary
     print(f"{len(res.names)} SIMULATED sightlines, exposure {a.exposure:g} s each, "
-          f"grid {a.grid} um (+ refined best): {wall:.1f} s wall on {a.workers} workers")
+          f"grid {a.grid} um (+ {len(s['refinement_values'])} refinement values): {wall:.1f} s wall on {a.workers} workers")
     print(f"shared dust_amax: best {res.best:.4g} um (truth {TRUE_AMAX})")
     for lv, iv in res.intervals.items():
         inside = any(p[0] <= TRUE_AMAX <= p[1] for p in iv["pieces"])

@@ -26,10 +26,14 @@ value, columns and levels): a rerun fits only what is missing or changed.
 
 From the grid:
 
-* the best shared value: the lowest grid point, refined by a parabola
-  through it and its two neighbours (in ln a on a logarithmic grid), and
-  then fitted at that refined value too, so the reported best is a real
-  evaluation (it joins the grid);
+* refinement (``refine`` rounds, default 2): the vertex of the parabola
+  through the lowest point of S and its two neighbours (in ln a on a
+  logarithmic grid), and the mid-points of grid steps across which ΔS
+  crosses a threshold while changing by more than 2, are fitted too and
+  join the grid (:func:`refinement_points`), so the best value and the
+  interval ends rest on real evaluations where a coarse grid would
+  interpolate across a steep rise;
+* the best shared value: the lowest point of S;
 * ΔS(a) = S(a) − min S and its intervals at 68.27 % and 95 %: the sets
   {a : ΔS(a) ≤ Δ} with Δ the χ² quantile of one degree of freedom
   (Wilks 1938, Ann. Math. Stat. 9, 60; ``scipy.stats.chi2.ppf``), found by
@@ -79,7 +83,8 @@ if TYPE_CHECKING:
     from astropy.table import Table
 
 __all__ = ["shared_parameter_profile", "SharedProfileResult", "grid_point_task",
-           "make_grid", "threshold_intervals", "refine_minimum", "envelope_profile",
+           "make_grid", "threshold_intervals", "refine_minimum", "refinement_points",
+           "envelope_profile",
            "wilks_threshold", "POINTS_DIR", "LEVELS"]
 
 #: Sub-folder of the output holding one cache file per sightline and grid value.
@@ -234,6 +239,35 @@ class _RootCurve:
         rr = np.where(xe > self.x[-1], self.r[-1] + self.right * (xe - self.x[-1]), rr)
         rr = np.where(xe < self.x[0], self.r[0] - self.left * (self.x[0] - xe), rr)
         return rr * rr
+
+
+def refinement_points(x: ArrayLike, s: ArrayLike, thresholds: Sequence[float], *,
+                      log: bool = False, max_points: int = 4) -> list[float]:
+    """Values worth fitting next on a grid ``x`` of a summed statistic
+    ``s``: the parabola vertex of :func:`refine_minimum`, and the mid-points
+    (in ln x when ``log``) of the grid steps across which ΔS = s − min s
+    crosses one of the ``thresholds`` while changing by more than 2 (where
+    linear interpolation of the crossing is poor); at most ``max_points``
+    mid-points, those nearest the minimum first."""
+    xs = np.asarray(x, float)
+    d = np.asarray(s, float)
+    d = d - np.nanmin(d)
+    out = []
+    v = refine_minimum(xs, s, log=log)
+    if v is not None:
+        out.append(v)
+    u = _coord(xs, log)
+    k0 = int(np.nanargmin(d))
+    mids = []
+    for k in range(xs.size - 1):
+        lo, hi = sorted((d[k], d[k + 1]))
+        if not (np.isfinite(lo) and np.isfinite(hi)) or hi - lo <= 2.0:
+            continue
+        if any(lo < t < hi for t in thresholds):
+            m = 0.5 * (u[k] + u[k + 1])
+            mids.append((abs(k + 0.5 - k0), float(np.exp(m)) if log else float(m)))
+    out.extend(m for _, m in sorted(mids)[:max_points])
+    return out
 
 
 def envelope_profile(offsets: ArrayLike, curves: Sequence[tuple[Any, Any]],
@@ -527,7 +561,7 @@ def shared_parameter_profile(manifest: Any, parameter: str, grid: ArrayLike, *,
                              output: str | os.PathLike | None = None,
                              columns: Sequence[str] | None = None, log: bool | None = None,
                              levels: Sequence[float] = LEVELS, workers: int | None = None,
-                             fresh: bool = False, refine: bool = True, substeps: int = 8,
+                             fresh: bool = False, refine: int = 2, substeps: int = 8,
                              figures: Callable[..., Any] | None = None,
                              progress: bool = True) -> SharedProfileResult:
     """The summed profile statistic of a parameter shared by every sightline
@@ -561,8 +595,10 @@ def shared_parameter_profile(manifest: Any, parameter: str, grid: ArrayLike, *,
         fits in this process).
     fresh : bool
         Refit every point even when cached.
-    refine : bool
-        Also fit every sightline at the refined best value (default).
+    refine : int
+        Rounds of refinement (default 2; 0 for the grid alone): each adds
+        the values of :func:`refinement_points` and fits every sightline
+        there.
     substeps : int
         Interpolated steps between grid values for the pooled and single
         column profiles (:func:`envelope_profile`); 0 uses the grid only.
@@ -637,20 +673,26 @@ def shared_parameter_profile(manifest: Any, parameter: str, grid: ArrayLike, *,
                             f"of {parameter} (e.g. {first[0]}: {first[1]})")
     stat = np.array([[recs[(n, _value_label(v))]["statistic"] for v in values]
                      for n in names])
-    refined = refine_minimum(values, stat.sum(axis=0), log=log) if refine else None
-    notes = []
-    if refined is not None and not np.any(np.isclose(values, refined, rtol=1e-9, atol=0)):
+    notes: list[str] = []
+    added: list[float] = []
+    for _ in range(int(refine)):
+        extra = refinement_points(values, stat.sum(axis=0), list(thresholds.values()),
+                                  log=log)
+        extra = [v for v in extra if not np.any(np.isclose(values, v, rtol=1e-9, atol=0))]
+        if not extra:
+            break
         more = _tasks_for(manifest, [e for e in entries if e.name in names], parameter,
-                          [refined], columns, levels)
+                          extra, columns, levels)
         recs.update(_run_points(out, more, fresh, workers, progress,
-                                f"{parameter}={refined:.4g}"))
-        ok_names, extra_skip = usable([refined])
-        if set(names) <= set(ok_names):
-            values = np.sort(np.append(values, refined))
-        else:
-            notes.append(f"the fits at the refined best value {refined:.6g} failed for "
-                         f"{', '.join(sorted(set(names) - set(ok_names)))}; best taken on "
-                         "the grid")
+                                f"{parameter} refinement"))
+        for v in extra:
+            ok_names, _ = usable([v])
+            if set(names) <= set(ok_names):
+                values = np.sort(np.append(values, v))
+                added.append(float(v))
+            else:
+                notes.append(f"the fits at {parameter} = {v:.6g} failed for "
+                             f"{', '.join(sorted(set(names) - set(ok_names)))}; left out")
         stat = np.array([[recs[(n, _value_label(v))]["statistic"] for v in values]
                          for n in names])
     total = stat.sum(axis=0)
@@ -694,7 +736,7 @@ def shared_parameter_profile(manifest: Any, parameter: str, grid: ArrayLike, *,
     summary = {
         "manifest": str(manifest.path), "parameter": parameter, "unit": unit_p,
         "grid": [float(v) for v in values], "log_grid": bool(log),
-        "refined_value": refined, "best": best, "statistic_at_best": float(total[kbest]),
+        "refinement_values": added, "best": best, "statistic_at_best": float(total[kbest]),
         "levels": levels, "thresholds": thresholds, "intervals": intervals,
         "n_sightlines": len(names), "sightlines": per, "skipped": skipped,
         "columns": cols, "notes": notes,

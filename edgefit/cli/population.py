@@ -57,6 +57,9 @@ def add_parser(subparsers):
     g.add_argument("--workers", type=int, metavar="N",
                    help="local worker processes (default: the number of CPUs; 0 = in this "
                         "process)")
+    g.add_argument("--refine", type=int, default=2, metavar="N",
+                   help="rounds of added grid values near the minimum and the interval ends "
+                        "(default 2; 0 = the grid alone)")
     g.add_argument("--fresh", action="store_true", help="refit every grid point even when "
                                                         "cached")
     p.add_argument("-o", "--output", metavar="DIR", help="output folder (default SAMPLE_DIR, "
@@ -126,6 +129,7 @@ def _run_shared(args) -> int:
     res = shared_parameter_profile(manifest, args.shared, grid, output=out,
                                    columns=args.columns, log=not args.linear_grid,
                                    workers=args.workers, fresh=args.fresh,
+                                   refine=args.refine,
                                    figures=None if args.no_plots else save_shared_figure,
                                    progress=not args.quiet)
     s = res.summary
