@@ -298,15 +298,19 @@ def _lost_sightline(task, reason):
             "row": dict(failed_row(task["name"], reason), input_hash=task["hash"])}
 
 
-def _run_pool(tasks, workers, on_result, func=fit_task, lost=_lost_sightline):
+def _run_pool(tasks, workers, on_result, func=None, lost=None):
     """Run ``func(task)`` for every task on the local process pool and hand
     each result to ``on_result`` in the main process as it arrives.
 
     ``func`` must be a module-level function (it is pickled by name);
     ``lost(task, reason)`` makes the result of a task whose worker died.
     Other analyses (e.g. :mod:`edgefit.analysis.shared_profile`) run their
-    own task functions through this one pool."""
+    own task functions through this one pool.  The defaults (``fit_task``,
+    a failed sightline row) are looked up when called, not when defined."""
     from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    func = fit_task if func is None else func
+    lost = _lost_sightline if lost is None else lost
 
     with _single_threaded_workers(True):
         ex = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(),
@@ -328,7 +332,8 @@ def _run_pool(tasks, workers, on_result, func=fit_task, lost=_lost_sightline):
         ex.shutdown(wait=True)
 
 
-def _run_inline(tasks, on_result, func=fit_task):
+def _run_inline(tasks, on_result, func=None):
+    func = fit_task if func is None else func   # looked up now (tests replace fit_task)
     for t in tasks:
         on_result(func(t))
 
