@@ -165,7 +165,8 @@ def demo_report(output, products, quick=False):
         rep.image((ana / "shielding.png").relative_to(output),
                   caption="Si K edge jump of olivine grains over the jump of their atoms "
                           "unshielded, against grain radius: large grains hide their "
-                          "interiors.", width=460)
+                          "interiors.  The extinction curve (dashed) falls below zero for "
+                          "micron-sized grains (see the table below).", width=460)
 
     # -- size distributions ---------------------------------------------------
     rep.heading("Size distributions", "sizes")
@@ -178,7 +179,13 @@ def demo_report(output, products, quick=False):
                     format_value(shtab["ratio_ext"][i], 3)] for i in pick],
                   units=["um", "", ""], text_columns=(), table_id="size-table",
                   caption="How the edge jump depends on grain radius (olivine, Si K): "
-                          "ratio to the jump of the same atoms unshielded.  The fits assume "
+                          "ratio to the jump of the same atoms unshielded.  The extinction "
+                          "ratio is negative for radii of about 0.4-1.4 um: across the edge "
+                          "the refractive part of the grains' extinction falls by more than "
+                          "their absorption rises (anomalous dispersion; van de Hulst 1957 "
+                          "anomalous diffraction), so such grains extinguish less just above "
+                          "the edge than just below.  The absorption ratio counts the atoms "
+                          "the edge sees.  The fits assume "
                           f"MRN sizes up to {AMAX_FIT_UM} um except for Cinder Ford, whose "
                           "grains reach 1.5 um in the simulation.")
     rep.text("Not yet in the demo: the per-sightline comparison of candidate size "

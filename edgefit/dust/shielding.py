@@ -19,6 +19,23 @@ decline of the other atoms' absorption over 2ΔE (without it R would not
 tend to 1 for small grains).  R_ext uses the extinction cross section
 instead.  R → 1 for small grains
 (no shielding) and falls as the grain becomes optically thick at the edge.
+
+R_abs stays positive at every size; R_ext does not.  Extinction also
+carries the refractive part of the grain's interaction (the phase shift
+ρ = 2x(n − 1), n = 1 − δ), and δ falls across the edge (anomalous
+dispersion: for olivine at Si K from 2.22e-4 to 2.12e-4 between E− and
+E+).  In anomalous diffraction (van de Hulst 1957, §11.22) Q_ext rises
+with |ρ| up to its maximum near |ρ| ≈ 4.1; for olivine at Si K, radii of
+about 0.4-1.4 µm have 2 ≲ |ρ| ≲ 5.5, where the fall of the refractive
+extinction across the edge outweighs the rise of the absorption: the
+grains' extinction is *lower* just above the edge than just below, and
+R_ext is negative (down to about −0.6 near 0.8 µm), then oscillates about
+zero for larger grains.  This is physics, not a sign error
+(tests/test_dust_tables.py checks it against van de Hulst's formula with
+xraydb's optical constants and against exact Mie).  Only R_abs measures
+how many atoms the edge sees; how much of the extinction a spectrum loses
+depends on the scattered light kept in the extraction region
+(:func:`edgefit.dust.halo.fraction_in_region`).
 """
 from __future__ import annotations
 

@@ -39,6 +39,11 @@ def plot_shielding(table, ax=None, *, show_extinction=True):
     if show_extinction:
         ax.semilogx(a, table["ratio_ext"], color="C1", ls="--", label="extinction")
     ax.axhline(1.0, color="0.6", lw=0.6)
+    if show_extinction:
+        # the extinction ratio dips below zero for micron-sized grains (the
+        # refractive part of the extinction falls across the edge; see
+        # edgefit.dust.shielding): mark zero so the sign reads at a glance
+        ax.axhline(0.0, color="0.6", lw=0.6, ls=":")
     ax.set_xlabel(r"grain radius $a$ [$\mu$m]")
     ax.set_ylabel("edge jump / unshielded jump")
     ax.set_title(f"{meta.get('material', '')} ({meta.get('formula', '')}), "
