@@ -126,3 +126,89 @@ def test_plan_command_writes_tables_plot_and_json(tmp_path, capsys):
     assert main(["plan", str(tmp_path / "missing.toml")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 2 and "--sims" in err[0] and "missing.toml" in err[1]
+
+
+def test_counts_per_channel_reproduce_the_requested_counts_at_the_edge():
+    # The source level given as counts per channel near the edge (channel
+    # centres within 20 eV of the Si K edge, README "Edges") instead of a
+    # flux.  Checked by folding the scaled model independently: the dense
+    # RMF times the ARF (OGIP: counts = t R A F, George et al. 1992,
+    # CAL/GEN/92-002) rather than the response's prepared matrix, averaged
+    # over those channels; the scaling is exact (the model is linear in the
+    # norm), so the tolerance is 1e-9 relative (rounding only).
+    import astropy.units as u
+
+    from edgefit.analysis.simulate import edge_counts, set_source_level, simulate_spectra
+    from edgefit.physics.atomic import edge_position
+
+    d = setup_dict(False, exposure=1e5)
+    d["simulate"]["background_rate"] = 0.0
+    setup = simulation_from_dict(d)
+    for target in (150 * u.count / u.chan, 40 * u.count, 2500.0):
+        scaled = set_source_level(setup, counts_per_channel=target)
+        _, _, resp = scaled.responses[0]
+        flux = scaled.model.evaluate(resp.grid, scaled.truth)
+        counts = scaled.exposure * (resp.rmf.toarray() @ (resp.specresp * flux))
+        near = np.abs(resp.channel_mid - edge_position("Si", "K")) <= 0.020
+        assert near.sum() >= 10
+        want = target.value if isinstance(target, u.Quantity) else target
+        assert counts[near].mean() == pytest.approx(want, rel=1e-9, abs=0)
+        assert edge_counts(scaled) == pytest.approx(want, rel=1e-9, abs=0)
+        # only the norm moved; the shape (index, columns) is the setup's
+        assert {k for k in scaled.truth if scaled.truth[k] != setup.truth[k]} == \
+            {"continuum_norm"}
+    # Poisson realisations average to the request: 150 counts per channel in
+    # n channels over 100 draws, standard error sqrt(150 / (100 n)); 4 of them
+    scaled = set_source_level(setup, counts_per_channel=150 * u.count / u.chan)
+    rng = np.random.default_rng(2)
+    _, _, resp = scaled.responses[0]
+    near = np.abs(resp.channel_mid - edge_position("Si", "K")) <= 0.020
+    means = [simulate_spectra(scaled, rng)[0].counts[near].mean() for _ in range(100)]
+    assert abs(np.mean(means) - 150) < 4 * np.sqrt(150 / (100 * near.sum()))
+    # a flux instead: the unabsorbed photon flux density at the edge, for a
+    # power law N(E) = norm E^-index (pivot 1 keV): norm = F E_edge^index
+    f = set_source_level(setup, flux=0.5 * u.Unit("ph cm-2 s-1 keV-1"))
+    e0 = edge_position("Si", "K")
+    assert f.truth["continuum_norm"] == pytest.approx(0.5 * e0 ** 1.8, rel=1e-6, abs=0)
+
+
+def test_source_level_errors_are_one_line(tmp_path, capsys):
+    import astropy.units as u
+
+    from edgefit.analysis.simulate import set_source_level, toml_text
+    from edgefit.errors import ArgumentError
+
+    setup = simulation_from_dict(setup_dict(False, exposure=1e5))
+    with pytest.raises(ArgumentError, match="not both"):
+        set_source_level(setup, flux=1.0, counts_per_channel=10)
+    with pytest.raises(ArgumentError, match="give flux"):
+        set_source_level(setup)
+    with pytest.raises(ArgumentError, match="not a photon flux density"):
+        set_source_level(setup, flux=3 * u.m)
+    with pytest.raises(ArgumentError, match="not both"):
+        plan_observation(setup, n_sims=0, flux=1.0, counts_per_channel=10)
+    # the configuration: both (norm and counts_per_channel) or neither
+    both = setup_dict(False, exposure=1e5)
+    both["simulate"]["counts_per_channel"] = 100
+    neither = setup_dict(False, exposure=1e5)
+    del neither["model"]["components"]["continuum"]["params"]["norm"]
+    for name, d, words in (("both", both, "not both"), ("neither", neither, "how bright")):
+        cfg = tmp_path / f"{name}.toml"
+        cfg.write_text(toml_text(d))
+        assert main(["plan", str(cfg), "--sims", "0", "-o", str(tmp_path / name)]) == 2
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and f"{name}.toml" in err[0] and words in err[0], err
+    # counts only: plans, and the fit configuration simulate writes starts
+    # at the scaled norm
+    del both["model"]["components"]["continuum"]["params"]["norm"]
+    cfg = tmp_path / "counts.toml"
+    cfg.write_text(toml_text(both))
+    plan = plan_observation(simulation_from_dict(both, cfg), n_sims=0)
+    assert plan.forecast.columns()[0] > 0
+    assert main(["simulate", str(cfg), "-o", str(tmp_path / "sim"), "-q"]) == 0
+    import tomllib
+
+    written = tomllib.loads(next((tmp_path / "sim").glob("*.toml")).read_text())
+    norm = written["model"]["components"]["continuum"]["params"]["norm"]["value"]
+    assert norm == pytest.approx(simulation_from_dict(both, cfg).truth["continuum_norm"],
+                                 rel=1e-12, abs=0)

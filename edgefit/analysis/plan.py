@@ -423,11 +423,22 @@ def verdict(forecast, sims, significance=3.0):
 
 
 def plan_observation(setup, *, exposures=None, n_sims=100, seed=1, workers=1,
-                     significance=3.0, progress=False):
+                     significance=3.0, progress=False, flux=None, counts_per_channel=None):
     """Fisher forecast, exposure table, simulated widths (unless
-    ``n_sims`` is 0) and verdict for ``setup``.  Returns :class:`PlanResult`."""
+    ``n_sims`` is 0) and verdict for ``setup``.  Returns :class:`PlanResult`.
+
+    The source level is the setup's (its emission norms) unless ``flux``
+    (unabsorbed photon flux density at the edge, a Quantity in
+    ph cm-2 s-1 keV-1) or ``counts_per_channel`` (expected source counts
+    per channel near the edge in the first response, a Quantity in count
+    or count / chan) is given; not both
+    (:func:`edgefit.analysis.simulate.set_source_level`)."""
     if not (significance > 0):
         raise ArgumentError("significance: must be positive")
+    if flux is not None or counts_per_channel is not None:
+        from .simulate import set_source_level
+
+        setup = set_source_level(setup, flux=flux, counts_per_channel=counts_per_channel)
     fc = fisher_forecast(setup)
     t0 = fc.exposure
     if exposures is None:

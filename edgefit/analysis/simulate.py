@@ -15,6 +15,7 @@ tables and with a ``[simulate]`` table saying how to observe it:
     band = [1.7, 2.05]            # keV
     background_rate = 1e-4        # counts s^-1 per channel, background region
     background_area = 5.0         # its area relative to the source region
+    # counts_per_channel = 200    # instead of the continuum's norm (below)
     # [[simulate.response]]       # ... or your own responses instead of arms
     # rmf = "mine.rmf"
     # arf = "mine.arf"
@@ -24,7 +25,19 @@ tables and with a ``[simulate]`` table saying how to observe it:
 
 The ``value`` of each parameter under ``[model.components.*.params]`` is
 the truth; parameters not given take the component's default.  Bounds,
-``fixed`` and ties are kept for fitting.  :func:`write_simulation` writes,
+``fixed`` and ties are kept for fitting.
+
+How bright the source is comes from exactly one of two places: the
+``norm`` values of the emission components (the source flux), or
+``simulate.counts_per_channel``, the expected source counts per channel
+near the edge in the first response over the exposure.  "Near the edge"
+means the channels whose centres lie within 20 eV
+(:data:`edgefit.physics.atomic.EDGE_OFFSET_KEV`) of the edge of the
+model's gas or dust edge component; the emission norms are then scaled
+(all by one factor, so the spectral shape is kept) until the mean
+expected source count over those channels is the number given
+(:func:`set_source_level`, which also takes a flux).  Giving both, or
+neither, is an error.  :func:`write_simulation` writes,
 per response, ``<stem>_<arm>.pha`` with its ``.rmf``, ``.arf`` and
 ``_bkg.pha`` (OGIP, marked simulated), ``truth.json`` and
 ``<stem>.toml``: the same configuration with ``[[spectrum]]`` tables
@@ -46,10 +59,12 @@ import numpy as np
 from ..errors import ArgumentError, ConfigError, EdgefitError
 
 __all__ = ["SimulationSetup", "load_simulation", "simulation_from_dict", "simulate_spectra",
-           "write_simulation", "toml_text", "slug"]
+           "write_simulation", "toml_text", "slug", "set_source_level", "edge_counts",
+           "edge_of_model"]
 
 _SIM_KEYS = {"exposure", "seed", "arms", "band", "energy_step", "response",
-             "background_rate", "background_area", "fit_range", "stem", "group_min_counts"}
+             "background_rate", "background_area", "fit_range", "stem", "group_min_counts",
+             "counts_per_channel"}
 _PASS_SECTIONS = ("sightline", "model", "fit", "errors", "mcmc", "derived", "goodness", "plots")
 
 
@@ -180,13 +195,190 @@ def simulation_from_dict(data, path=None, seed=None):
     model, _components, settings = build_model(data.get("model"), path)
     params = apply_parameter_settings(model.make_params(), settings, model, path)
     truth = {k: float(p.value) for k, p in params.items()}
+    counts = sim.get("counts_per_channel")
+    if counts is not None:
+        counts = _number(counts, path, "simulate.counts_per_channel")
+    given = _norms_given(data.get("model"), _norm_names(model))
+    if counts is not None and given:
+        raise ConfigError(path, f"simulate.counts_per_channel: the source level is also "
+                                f"given as {given[0]}; give the emission norm (flux) or "
+                                "counts_per_channel, not both")
+    if counts is None and not given:
+        raise ConfigError(path, "simulate: how bright is the source? give the emission "
+                                "components' norm value (flux) or simulate.counts_per_channel")
     sections = {k: data[k] for k in _PASS_SECTIONS if k in data}
-    return SimulationSetup(name=name, model=model, truth=truth, responses=responses,
-                           exposure=exposure, background_rate=bkg_rate,
-                           background_area=bkg_area, seed=int(seed_val),
-                           fit_range=fit_range, stem=stem, group_min_counts=gmc,
-                           sections=sections, path=Path(path) if path else None,
-                           param_settings=settings)
+    setup = SimulationSetup(name=name, model=model, truth=truth, responses=responses,
+                            exposure=exposure, background_rate=bkg_rate,
+                            background_area=bkg_area, seed=int(seed_val),
+                            fit_range=fit_range, stem=stem, group_min_counts=gmc,
+                            sections=sections, path=Path(path) if path else None,
+                            param_settings=settings)
+    if counts is not None:
+        try:
+            setup = set_source_level(setup, counts_per_channel=counts)
+        except EdgefitError as exc:
+            raise ConfigError(path, f"simulate.counts_per_channel: {exc}") from None
+        # the fit configuration written beside the spectra starts at the
+        # scaled norms (the source level it was simulated with)
+        setup.sections = _with_norms(setup.sections, setup.truth, model)
+    return setup
+
+
+def _norm_names(model):
+    """Full names of the emission (additive) components' ``norm``
+    parameters; a component without one is an EdgefitError."""
+    from ..models.base import ADDITIVE
+
+    out = []
+    for comp in model.components():
+        if comp.kind != ADDITIVE:
+            continue
+        if not any(p.name == "norm" for p in comp.params):
+            raise EdgefitError(f"emission component {comp.name!r} has no 'norm' to set the "
+                               "source level with")
+        out.append(f"{comp.name}_norm")
+    if not out:
+        raise EdgefitError("the model has no emission component")
+    return out
+
+
+def _norms_given(model_table, names):
+    """Which of ``names`` (``<component>_norm``) the [model] table gives a
+    value for."""
+    comps = (model_table or {}).get("components") or {} if isinstance(model_table, dict) \
+        else {}
+    out = []
+    for full in names:
+        comp = comps.get(full[:-len("_norm")])
+        setting = ((comp or {}).get("params") or {}).get("norm") \
+            if isinstance(comp, dict) else None
+        if setting is not None and (not isinstance(setting, dict) or "value" in setting):
+            out.append(f"model.components.{full[:-len('_norm')]}.params.norm")
+    return out
+
+
+def _with_norms(sections, truth, model):
+    """``sections`` with each emission norm's value set to ``truth``'s."""
+    import copy
+
+    out = copy.deepcopy(sections)
+    comps = out.setdefault("model", {}).setdefault("components", {})
+    for full in _norm_names(model):
+        comp = comps.setdefault(full[:-len("_norm")], {})
+        params = comp.setdefault("params", {})
+        setting = params.get("norm")
+        setting = dict(setting) if isinstance(setting, dict) else {}
+        setting["value"] = float(truth[full])
+        params["norm"] = setting
+    return out
+
+
+def edge_of_model(model):
+    """(element, edge energy in keV) of the model's first gas or dust edge
+    component (the edge "near the edge" refers to)."""
+    for comp in model.components():
+        if getattr(comp, "phase", None) not in ("gas", "dust"):
+            continue
+        if hasattr(comp, "edge_kev"):
+            return comp.element, float(comp.edge_kev)
+        if hasattr(comp, "edge_energy"):
+            return comp.element, float(comp.edge_energy())
+    raise EdgefitError("the model has no gas or dust edge component to count near")
+
+
+def edge_counts(setup, values=None, exposure=None):
+    """Mean expected *source* counts per channel near the edge (channel
+    centres within :data:`~edgefit.physics.atomic.EDGE_OFFSET_KEV` of it) in
+    the setup's first response over ``exposure`` (default the setup's),
+    with the truth (or ``values``, full names, over it).  Pure
+    computation."""
+    from ..physics.atomic import EDGE_OFFSET_KEV
+
+    _tag, label, resp = setup.responses[0]
+    element, e0 = edge_of_model(setup.model)
+    near = np.abs(resp.channel_mid - e0) <= EDGE_OFFSET_KEV
+    if not near.any():
+        raise EdgefitError(f"no channel of the first response ({label}) lies within "
+                           f"{EDGE_OFFSET_KEV * 1e3:g} eV of the {element} edge at "
+                           f"{e0:.4f} keV")
+    vals = dict(setup.truth)
+    vals.update(values or {})
+    t = float(setup.exposure if exposure is None else exposure)
+    counts = resp.fold(setup.model.evaluate(resp.grid, vals), t)
+    return float(np.mean(counts[near]))
+
+
+def set_source_level(setup, *, flux=None, counts_per_channel=None):
+    """A copy of ``setup`` whose emission norms are scaled (all by one
+    factor) to one of:
+
+    ``flux``
+        the unabsorbed photon flux density of the emission at the edge
+        energy (a Quantity convertible to ph cm-2 s-1 keV-1, or a number in
+        those units);
+    ``counts_per_channel``
+        the mean expected source counts per channel near the edge in the
+        first response over the setup's exposure (:func:`edge_counts`; a
+        Quantity in count or count / chan, or a number).
+
+    Exactly one must be given (else one ArgumentError line).  The model is
+    linear in the emission norms, so the scaling is exact."""
+    from astropy import units as u
+
+    if (flux is None) == (counts_per_channel is None):
+        raise ArgumentError("source level: give flux (photon flux density at the edge) or "
+                            "counts_per_channel (counts per channel near the edge)"
+                            + (", not both" if flux is not None else ""))
+    names = _norm_names(setup.model)
+    if flux is not None:
+        unit = u.Unit("ph cm-2 s-1 keV-1")
+        try:
+            target = (flux.to_value(unit) if isinstance(flux, u.Quantity) else float(flux))
+        except (u.UnitConversionError, TypeError, ValueError):
+            raise ArgumentError(f"flux: {flux!r} is not a photon flux density "
+                                f"(ph cm-2 s-1 keV-1)") from None
+        what = "flux"
+        _el, e0 = edge_of_model(setup.model)
+        from ..grid import EnergyGrid
+
+        grid = EnergyGrid(np.array([e0 * (1 - 1e-4)]), np.array([e0 * (1 + 1e-4)]))
+        emission = _emission_only(setup.model)
+        current = float(emission.evaluate(grid, setup.truth)[0] / grid.width[0])
+    else:
+        try:
+            if isinstance(counts_per_channel, u.Quantity):
+                target = counts_per_channel.to_value(
+                    u.count / u.chan if counts_per_channel.unit.is_equivalent(u.count / u.chan)
+                    else u.count)
+            else:
+                target = float(counts_per_channel)
+        except (u.UnitConversionError, TypeError, ValueError):
+            raise ArgumentError(f"counts_per_channel: {counts_per_channel!r} is not a "
+                                "number of counts (per channel)") from None
+        what = "counts_per_channel"
+        current = edge_counts(setup)
+    if not (math.isfinite(target) and target > 0):
+        raise ArgumentError(f"{what}: must be a positive finite number, got {target:g}")
+    if not (math.isfinite(current) and current > 0):
+        raise EdgefitError(f"{what}: the model gives no source photons at the edge to scale")
+    scale = target / current
+    import dataclasses
+
+    truth = dict(setup.truth)
+    for n in names:
+        truth[n] = truth[n] * scale
+    return dataclasses.replace(setup, truth=truth)
+
+
+def _emission_only(model):
+    """The sum of the model's additive components (the unabsorbed source)."""
+    from ..models.base import ADDITIVE
+
+    parts = [c for c in model.components() if c.kind == ADDITIVE]
+    total = parts[0]
+    for c in parts[1:]:
+        total = total + c
+    return total
 
 
 def load_simulation(path, seed=None):

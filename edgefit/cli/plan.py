@@ -2,7 +2,8 @@
 
 Reads a simulation configuration (the format of ``edgefit simulate``: the
 model's parameter values are the assumed truth, ``[simulate]`` gives the
-response and exposure) and reports the Fisher 68 % uncertainties of the
+response and exposure, and the source level either as the emission
+norms or as ``counts_per_channel`` near the edge) and reports the Fisher 68 % uncertainties of the
 gas, dust and total columns and their correlation against exposure, the
 68 % widths of many simulated fits, the exposure needed to tell gas from
 dust at a chosen significance and, in words, what would help when the
