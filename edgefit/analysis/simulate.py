@@ -198,7 +198,10 @@ def simulation_from_dict(data, path=None, seed=None):
     counts = sim.get("counts_per_channel")
     if counts is not None:
         counts = _number(counts, path, "simulate.counts_per_channel")
-    given = _norms_given(data.get("model"), _norm_names(model))
+    try:
+        given = _norms_given(data.get("model"), _norm_names(model))
+    except EdgefitError as exc:
+        raise ConfigError(path, f"model: {exc}") from None
     if counts is not None and given:
         raise ConfigError(path, f"simulate.counts_per_channel: the source level is also "
                                 f"given as {given[0]}; give the emission norm (flux) or "
