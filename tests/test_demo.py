@@ -24,6 +24,7 @@ from astropy.table import Table
 
 from edgefit.cli import main
 from edgefit.demo.region import SIGHTLINES, si_abundance
+from edgefit.demo.sample import QUICK_SIZE_SIGHTLINES, SIZE_CANDIDATES
 
 
 @pytest.fixture(scope="module")
@@ -85,6 +86,9 @@ def test_report_parses_links_exist_and_has_one_row_per_sightline(demo_run):
     assert page.tables["sample-table"] == 8
     assert page.tables["grain-table"] == 8
     assert page.tables["truth-table"] == 16
+    # size comparison: (3 quick sightlines + the sample sum) x 3 candidates
+    n_quick = len(QUICK_SIZE_SIGHTLINES)
+    assert page.tables["sizes-table"] == (n_quick + 1) * len(SIZE_CANDIDATES)
     assert "SIMULATED" in text
     # no coordinate-shaped designations anywhere on the page
     assert not re.search(r"[JB]\d{4}[+-]?\d*", text)
@@ -109,6 +113,27 @@ def test_quick_demo_regression_slope_covers_the_abundance(demo_run):
     assert abs(slope - si_abundance()) < 1.96 * err
     # and it is a measurement, not a bound: 5 % or better
     assert err < 0.05 * slope
+
+
+def test_quick_demo_size_comparison_finds_the_large_grains(demo_run):
+    # Against the simulated truth: Cinder Ford's grains reach 1.5 um, the
+    # others' 0.25 um (the fixed MRN candidate's upper size).  MRN fixed is
+    # nested in MRN with the upper size free, so the likelihood-ratio test
+    # (Wilks 1938, chi^2 with 1 degree of freedom) applies: for Cinder Ford
+    # it must reject the fixed small grains at the 0.05 level; for the
+    # small-grain sightlines freeing the size is a correct model's extra
+    # parameter, rejected by chance in 5 % of seeds (the demo is seeded).
+    _, out = demo_run
+    d = json.loads((out / "sizes" / "sizes.json").read_text())
+    assert sorted(d["sightlines"]) == sorted(QUICK_SIZE_SIGHTLINES)
+    assert (out / "sizes" / "sizes.png").is_file()
+    for name, per in d["sightlines"].items():
+        lrt = [c for c in per["comparisons"] if c.get("nested")]
+        assert len(lrt) == 1 and lrt[0]["larger"] == "power_law:amax=free"
+        if name == "Cinder Ford":
+            assert lrt[0]["p_value"] < 0.05 and per["best_aic"] == "power_law:amax=free"
+        else:
+            assert lrt[0]["p_value"] > 0.05
 
 
 def test_demo_help_and_bad_argument(capsys):

@@ -214,3 +214,29 @@ def test_true_size_wins_on_simulated_sample(tmp_path, capsys):
         assert float(table["statistic"][(table["candidate"] == c)
                                         & (table["sightline"] == "ALL")][0]) == \
             pytest.approx(float(np.sum(table["statistic"][sel])), rel=1e-12, abs=0)
+
+
+def test_apply_spec_profiles_free_sizes_unless_asked_not_to(tmp_path, capsys):
+    # [errors] profile after applying a candidate: a free size parameter is
+    # added (its interval is the profile's) unless profile_sizes=False, and a
+    # size parameter the candidate holds fixed is never profiled.  The
+    # manifest's own entries (here gas_si_col) are kept.
+    sys.path.insert(0, str(__import__("pathlib").Path(__file__).parent))
+    from _batch_sim import write_sample
+
+    from edgefit.analysis.manifest import load_manifest
+    from edgefit.analysis.sizes_compare import apply_spec
+
+    manifest = load_manifest(write_sample(tmp_path, n=1, profile='["gas_si_col"]', draws=50,
+                                          hydrogen=False))
+    capsys.readouterr()
+    free = parse_spec("mrn:amax=free")
+    [e] = apply_spec(manifest, free)
+    dust = next(n for n, c in e.table["model"]["components"].items()
+                if c.get("type") == "dust_edge")
+    assert e.table["errors"]["profile"] == ["gas_si_col", f"{dust}_amax"]
+    assert tuple(e.config.errors.profile) == ("gas_si_col", f"{dust}_amax")
+    [e] = apply_spec(manifest, free, profile_sizes=False)
+    assert tuple(e.config.errors.profile) == ("gas_si_col",)
+    [e] = apply_spec(manifest, parse_spec("single:size=0.1"))
+    assert tuple(e.config.errors.profile) == ("gas_si_col",)

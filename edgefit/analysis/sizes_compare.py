@@ -301,10 +301,12 @@ def compare_pair(a, b, stats_a, stats_b, alpha=0.05, who=""):
 
 # ---------------------------------------------------------------------------
 # applying a candidate to a manifest
-def apply_spec(manifest, spec):
+def apply_spec(manifest, spec, profile_sizes=True):
     """A copy of ``manifest`` (a checked :class:`Manifest`) whose every
     ``dust_edge`` component uses the candidate ``spec``; every sightline's
-    configuration is checked again.  No dust_edge component is an
+    configuration is checked again.  ``profile_sizes``: the candidate's
+    free size parameters get profile-likelihood intervals (else their
+    covariance intervals stand).  No dust_edge component is an
     ArgumentError naming the manifest."""
     from .config import config_from_dict
 
@@ -328,16 +330,17 @@ def apply_spec(manifest, spec):
         if not found:
             raise ArgumentError(f"{manifest.path}: {e.key}: the model has no dust_edge "
                                 "component whose sizes could be compared")
-        _adapt_profile(table, comps, spec, names)
+        _adapt_profile(table, comps, spec, names, profile_sizes)
         cfg = config_from_dict(table, manifest.path, base=e.config.base,
                                key_prefix=f"{e.key}.", name=e.name, output=e.config.base)
         entries.append(dataclasses.replace(e, table=table, config=cfg))
     return dataclasses.replace(manifest, sightlines=entries)
 
 
-def _adapt_profile(table, comps, spec, names):
+def _adapt_profile(table, comps, spec, names, profile_sizes=True):
     """``[errors] profile``: drop size parameters the candidate holds fixed,
-    add the ones it frees (their intervals are the profile's)."""
+    add the ones it frees (their intervals are the profile's) unless
+    ``profile_sizes`` is False."""
     errors = table.setdefault("errors", {})
     prof = errors.get("profile")
     if isinstance(prof, str) and prof != "all":
@@ -347,7 +350,8 @@ def _adapt_profile(table, comps, spec, names):
     dust = [n for n, c in comps.items() if isinstance(c, dict) and c.get("type") == "dust_edge"]
     size_full = {f"{d}_{n}" for d in dust for n in names}
     keep = [p for p in (prof or []) if p not in size_full]
-    errors["profile"] = keep + [f"{d}_{n}" for d in dust for n in sorted(spec.free)]
+    errors["profile"] = keep + ([f"{d}_{n}" for d in dust for n in sorted(spec.free)]
+                                if profile_sizes else [])
 
 
 # ---------------------------------------------------------------------------
@@ -432,7 +436,7 @@ def _comparisons(specs, entries, alpha, who):
 
 def compare_sizes(manifest, specs, output=None, *, workers=None, fresh=False, mcmc=False,
                   plots=False, steps=None, alpha=0.05, figures=None, progress=True,
-                  batch_figures=None):
+                  batch_figures=None, profile_sizes=True):
     """Refit a batch manifest under each candidate size distribution and
     compare them (see the module docstring).
 
@@ -457,6 +461,10 @@ def compare_sizes(manifest, specs, output=None, *, workers=None, fresh=False, mc
         :func:`edgefit.plotting.sizes.save_sizes_figure`).
     batch_figures : callable, optional
         Per-sightline figure hook handed to ``run_batch``.
+    profile_sizes : bool
+        Profile-likelihood intervals for the free size parameters (the
+        default; the most expensive part of a refit); False keeps their
+        covariance intervals.
 
     Returns
     -------
@@ -482,7 +490,7 @@ def compare_sizes(manifest, specs, output=None, *, workers=None, fresh=False, mc
         manifest = load_manifest(manifest)
     out = (Path(output) if output is not None
            else manifest.path.parent / f"{manifest.path.stem}_sizes")
-    applied = [apply_spec(manifest, s) for s in specs]   # check all before fitting
+    applied = [apply_spec(manifest, s, profile_sizes) for s in specs]   # check all before fitting
     samples = []
     for s, m in zip(specs, applied):
         if progress:

@@ -16,6 +16,13 @@ them in batch, relate them to hydrogen, and write the report.
   truth comparison (``truth_comparison.ecsv``) and, in the full run, the
   population fit of the dust columns (``population.json``,
   ``population_sightlines.ecsv``);
+* ``sizes/``: the size-distribution comparison
+  (:mod:`edgefit.analysis.sizes_compare`: ``sizes.ecsv``, ``sizes.json``,
+  ``sizes.png`` and one batch folder per candidate): the sightlines refitted
+  under :data:`SIZE_CANDIDATES` (MRN with the upper size free, MRN fixed at
+  its small-grain default, one grain size), compared by C, AIC and
+  likelihood-ratio tests.  The full run compares every sightline; ``quick``
+  only :data:`QUICK_SIZE_SIGHTLINES` (the large-grain one and two others);
 * ``report.html``: everything on one page (:mod:`edgefit.report.html`).
 
 ``quick`` fits without MCMC (profile-likelihood intervals for the gas and
@@ -38,13 +45,21 @@ from .region import (AMAX_FIT_UM, FIT_RANGE_KEV, REGION, SIGHTLINES, fit_model,
                      si_abundance, simulation_dict, tracer_columns, truth_of)
 
 __all__ = ["SEED", "write_sample", "run_sample_demo", "analyse_sample", "truth_table",
-           "MCMC_FULL"]
+           "MCMC_FULL", "SIZE_CANDIDATES", "QUICK_SIZE_SIGHTLINES", "compare_sample_sizes"]
 
 SEED = 20261202
 #: MCMC of the full demo: walkers, steps.  With the continuum norm given
 #: at a pivot inside the band the six-parameter posteriors have
 #: autocorrelation times of 70-110 steps; 6000 steps >= 50 x 120.
 MCMC_FULL = (16, 6000)
+#: Size distributions the demo compares (``edgefit sizes`` syntax): MRN
+#: with the upper size fitted, MRN with every size fixed at the defaults
+#: (0.005-0.25 um, index 3.5: what the batch assumes), and grains of one
+#: radius, 0.1 um.
+SIZE_CANDIDATES = ("mrn:amax=free", "mrn", "single:size=0.1")
+#: Sightlines compared by ``--quick``: the large-grain one between two with
+#: small grains (a low and a high column).
+QUICK_SIZE_SIGHTLINES = ("Tallow Reach", "Cinder Ford", "Hazel Weir")
 
 
 def folder_of(name):
@@ -167,17 +182,21 @@ def run_sample_demo(output="edgefit-demo", *, quick=False, quiet=False, workers=
                       figures=save_configured, progress=not quiet, fresh=True)
     say(f"  {sum(str(s) != 'failed' for s in table['status'])} of {len(table)} fitted "
         f"({time.time() - t0:.0f} s so far)")
-    products = analyse_sample(output, table, truths, quick=quick, say=say)
+    products = analyse_sample(output, table, truths, quick=quick, say=say, workers=workers,
+                              progress=not quiet, fresh=True)
     say(f"report: {products['report']}   ({time.time() - t0:.0f} s)")
     return products
 
 
-def analyse_sample(output, table=None, truths=None, *, quick=False, say=print):
+def analyse_sample(output, table=None, truths=None, *, quick=False, say=print, workers=None,
+                   progress=False, fresh=False):
     """Everything after the batch fits: regressions, grain columns, the
     shielded relation, the truth comparison, the self-shielding curve, the
-    population fit (unless ``quick``) and the report.  ``table`` and
-    ``truths`` default to what an earlier run wrote into ``output``, so the
-    analysis can be redone without refitting.  Returns the products dict."""
+    size-distribution comparison, the population fit (unless ``quick``)
+    and the report.  ``table`` and ``truths`` default to what an earlier
+    run wrote into ``output``, so the analysis can be redone without
+    refitting (the size comparison then resumes its own fits unless
+    ``fresh``).  Returns the products dict."""
     import warnings
 
     from ..analysis import grain_columns, read_sample_table, regress
@@ -238,6 +257,8 @@ def analyse_sample(output, table=None, truths=None, *, quick=False, say=print):
 
     plt.close(fig)
     products["shielding"] = sh
+    products["sizes"] = compare_sample_sizes(output, quick=quick, workers=workers,
+                                             fresh=fresh, progress=progress, say=say)
     if not quick:
         products["population"] = _population(batch_dir, ana, say)
     from .report import demo_report
@@ -247,6 +268,51 @@ def analyse_sample(output, table=None, truths=None, *, quick=False, say=print):
     n_cov = int(np.sum(truth["covered95"]))
     say(f"truth inside the 95 % intervals: {n_cov} of {len(truth)} gas and dust columns")
     return products
+
+
+def compare_sample_sizes(output, *, quick=False, workers=None, fresh=False, progress=False,
+                         say=print):
+    """Refit the sample's sightlines (all of them, or with ``quick`` only
+    :data:`QUICK_SIZE_SIGHTLINES`) under :data:`SIZE_CANDIDATES` with
+    :func:`edgefit.analysis.sizes_compare.compare_sizes` into
+    ``output/sizes``.  The comparison needs best fits, not column
+    intervals: the refits profile only the free size parameter (not even
+    that with ``quick``: its covariance interval stands), skip the
+    posterior-predictive draws and take 100 draws for derived quantities.  Returns the :class:`SizesResult`, or
+    None (with a message) when it cannot run."""
+    import copy
+    import dataclasses
+    import warnings
+
+    from ..analysis.manifest import load_manifest
+    from ..analysis.sizes_compare import compare_sizes
+    from ..errors import EdgefitError
+    from ..plotting.sizes import save_sizes_figure
+
+    output = Path(output)
+    manifest = load_manifest(output / "sample.toml")
+    entries = []
+    for e in manifest.select(list(QUICK_SIZE_SIGHTLINES) if quick else None):
+        t = copy.deepcopy(e.table)
+        t["errors"] = dict(t.get("errors") or {}, profile=[])
+        t["goodness"] = dict(t.get("goodness") or {}, ppc_draws=0)
+        t["mcmc"] = dict(t.get("mcmc") or {}, enabled=False)
+        # derived quantities are not compared: a few draws keep them cheap
+        t["derived"] = dict(t.get("derived") or {}, draws=100)
+        entries.append(dataclasses.replace(e, table=t))
+    manifest = dataclasses.replace(manifest, sightlines=entries)
+    say(f"comparing size distributions ({', '.join(SIZE_CANDIDATES)}) on "
+        f"{len(entries)} sightline{'s' if len(entries) != 1 else ''} ...")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return compare_sizes(manifest, list(SIZE_CANDIDATES), output / "sizes",
+                                 workers=workers, fresh=fresh, mcmc=False, plots=False,
+                                 figures=save_sizes_figure, progress=progress,
+                                 profile_sizes=not quick)
+    except EdgefitError as exc:
+        say(f"  size comparison not possible: {exc}")
+        return None
 
 
 def _population(batch_dir, ana, say):

@@ -36,7 +36,10 @@ def plot_sizes(result, path=None):
     for level in (1.0, 4.0):
         ax.axhline(level, color="0.6", lw=0.8, ls=":")
     ax.set_yscale("symlog", linthresh=1.0)
-    ax.set_ylim(bottom=-0.1)
+    finite = dc[np.isfinite(dc)]
+    top = float(finite.max()) if finite.size else 0.0
+    # headroom above the largest dC (symlog: about a third of a decade)
+    ax.set_ylim(bottom=-0.1, top=max(10.0, 2.0 * top))
     ax.set_xticks(x)
     tilt = len(names) > 4
     ax.set_xticklabels(names, rotation=30 if tilt else 0, ha="right" if tilt else "center",

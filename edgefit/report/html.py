@@ -31,6 +31,7 @@ th, td { border: 1px solid #ccd; padding: 0.25em 0.5em; text-align: right; }
 th { background: #eef; }
 td.text, th.text { text-align: left; }
 tr.bad td { background: #fee; }
+tr.sum td { font-weight: bold; background: #f4f4fa; }
 caption { caption-side: bottom; font-size: 0.85em; color: #555; text-align: left;
           padding-top: 0.3em; }
 figure { margin: 1em 0; display: inline-block; vertical-align: top; }
