@@ -76,8 +76,11 @@ def edge_energy_grid(material: str | Material, lo: float, hi: float,
                      rel_step: float = 1e-3) -> np.ndarray:
     """Energies (keV) from ``lo`` to ``hi``: logarithmic with relative step
     ``rel_step`` plus the atomic tables' nodes of every element of
-    ``material`` inside the range (points closer than 1e-7 relative are
-    merged)."""
+    ``material`` and the energies of its laboratory near-edge corrections
+    inside the range (points closer than 1e-7 relative are merged).  The
+    correction nodes matter: a white line of a few eV is narrower than the
+    logarithmic step (1.8 eV at the Si K edge) and would otherwise be
+    sampled too coarsely and blunted."""
     material = get_material(material)
     lo, hi = float(as_kev(lo)), float(as_kev(hi))
     if not 0 < lo < hi:
@@ -86,6 +89,9 @@ def edge_energy_grid(material: str | Material, lo: float, hi: float,
     parts = [np.geomspace(lo, hi, n)]
     for el in material.composition:
         e = atomic.table(el)[0]
+        parts.append(e[(e > lo) & (e < hi)])
+    for corr in material.corrections:
+        e = np.asarray(corr.energy_kev, float)
         parts.append(e[(e > lo) & (e < hi)])
     grid = np.unique(np.concatenate(parts))
     keep = np.concatenate([[True], np.diff(grid) / grid[1:] > 1e-7])
