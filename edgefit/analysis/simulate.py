@@ -53,6 +53,7 @@ import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -276,7 +277,7 @@ def _with_norms(sections, truth, model):
     return out
 
 
-def edge_of_model(model):
+def edge_of_model(model: Any) -> tuple[str, float]:
     """(element, edge energy in keV) of the model's first gas or dust edge
     component (the edge "near the edge" refers to)."""
     for comp in model.components():
@@ -289,7 +290,8 @@ def edge_of_model(model):
     raise EdgefitError("the model has no gas or dust edge component to count near")
 
 
-def edge_counts(setup, values=None, exposure=None):
+def edge_counts(setup: SimulationSetup, values: dict | None = None,
+                exposure: float | None = None) -> float:
     """Mean expected *source* counts per channel near the edge (channel
     centres within :data:`~edgefit.physics.atomic.EDGE_OFFSET_KEV` of it) in
     the setup's first response over ``exposure`` (default the setup's),
@@ -307,11 +309,13 @@ def edge_counts(setup, values=None, exposure=None):
     vals = dict(setup.truth)
     vals.update(values or {})
     t = float(setup.exposure if exposure is None else exposure)
-    counts = resp.fold(setup.model.evaluate(resp.grid, vals), t)
+    model: Any = setup.model
+    counts = resp.fold(model.evaluate(resp.grid, vals), t)
     return float(np.mean(counts[near]))
 
 
-def set_source_level(setup, *, flux=None, counts_per_channel=None):
+def set_source_level(setup: SimulationSetup, *, flux: Any = None,
+                     counts_per_channel: Any = None) -> SimulationSetup:
     """A copy of ``setup`` whose emission norms are scaled (all by one
     factor) to one of:
 

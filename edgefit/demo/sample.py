@@ -270,8 +270,9 @@ def analyse_sample(output, table=None, truths=None, *, quick=False, say=print, w
     return products
 
 
-def compare_sample_sizes(output, *, quick=False, workers=None, fresh=False, progress=False,
-                         say=print):
+def compare_sample_sizes(output: str | Path, *, quick: bool = False, workers: int | None = None,
+                         fresh: bool = False, progress: bool = False,
+                         say: Any = print) -> Any:
     """Refit the sample's sightlines (all of them, or with ``quick`` only
     :data:`QUICK_SIZE_SIGHTLINES`) under :data:`SIZE_CANDIDATES` with
     :func:`edgefit.analysis.sizes_compare.compare_sizes` into
