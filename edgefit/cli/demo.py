@@ -20,8 +20,9 @@ def add_parser(subparsers):
     p.add_argument("-o", "--output", default="edgefit-demo",
                    help="output folder (default: edgefit-demo)")
     p.add_argument("--quick", action="store_true",
-                   help="no MCMC: best fits with profile-likelihood intervals (about a "
-                        "minute on two cores instead of about three)")
+                   help="no MCMC: best fits with profile-likelihood intervals, the size "
+                        "comparison on three sightlines (about a minute on two cores "
+                        "instead of several)")
     p.add_argument("--workers", type=int, default=None,
                    help="worker processes for the batch (default: CPU count)")
     p.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
