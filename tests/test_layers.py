@@ -12,7 +12,7 @@ ROOT = Path(edgefit.__file__).parent
 
 #: top-level module or subpackage -> layer
 LAYERS = {
-    "_paths": 0, "_units": 0, "errors": 0, "grid": 0, "_jit": 0, "params": 0,
+    "_paths": 0, "_units": 0, "errors": 0, "grid": 0, "_jit": 0, "_threads": 0, "params": 0,
     "data": 1, "stats": 1, "_foldstat": 1,
     "physics": 2, "dust": 2,
     "models": 3,
