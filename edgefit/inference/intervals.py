@@ -25,18 +25,23 @@ Starts whose size parameters coincide (|Delta ln a| <= 0.15) with one
 already taken are skipped.  Each start begins a chain of warm-started
 minimisations: at each x every chain is minimised from its own nearest
 point, so it follows its valley cheaply; chains that arrive at the same
-point merge.
+point merge.  Each minimisation is SciPy's trust-region least squares on
+the free-parameter vector (:func:`~edgefit.inference.fit.local_minimum`,
+steps scaled by the Jacobian's columns, BLAS on one thread), with lmfit
+and its fallback minimisers only where that fails.
 
 The scan
 --------
 From p0 the profile is stepped outward on each side (first step one
 covariance sigma, or 10 % of |p0| without one; steps grow by 1.6x) until
 it exceeds the largest requested Delta by :data:`SCAN_MARGIN` *and* the
-scan has passed the parameter's value at every known distinct minimum, or
-until the parameter's bound.  The points form the profile curve
-(:class:`ProfileCurve`, stored in ``result.profiles``).  For each level,
-every crossing of Delta between neighbouring points is refined with
-Brent's root finder, and the interval is the set {Delta S_prof <= Delta}:
+scan has passed the parameter's value at every distinct minimum within
+Delta C <= 10 (those that seed chains), or until the parameter's bound.
+The points form the profile curve (:class:`ProfileCurve`, stored in
+``result.profiles``).  For each level, every crossing of Delta between
+neighbouring points is refined by regula falsi in sqrt(Delta S_prof), to
+:data:`CROSSING_TOL` in Delta S_prof, and the interval is the set
+{Delta S_prof <= Delta}:
 usually one piece, but a profile with a second dip below the level gives
 a union of pieces (``Interval.pieces``; ``lower``/``upper`` are the outer
 ends).  A second dip of the curve is noted (``second_dip``) whether or not
@@ -56,7 +61,6 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
-from scipy import optimize
 from scipy import stats as sps
 
 from ..errors import ArgumentError, UnknownParameterError
@@ -75,6 +79,11 @@ SCAN_MARGIN = 1.0
 PROFILE_SIZE_STARTS = 2
 #: Distinct minima of the fit up to this Delta C seed profile chains.
 MINIMA_DELTA = 10.0
+#: The interval ends are refined until Delta S_prof is within this of the
+#: level: an end error of about CROSSING_TOL / (dDelta/dx), 5e-6 sigma at the
+#: 1-sigma level of a parabolic profile, below the scatter the inner
+#: minimisations' own tolerance leaves in Delta S_prof.
+CROSSING_TOL = 1e-5
 #: A local minimum of the profile curve at least this much below the
 #: highest point between it and the best fit is a "second dip".
 DIP_DEPTH = 0.3
@@ -164,15 +173,21 @@ class ProfileScan:
         self.n_minimisations = 0
 
     def _minimise_at(self, start, x, fallback):
-        from .fit import minimise
+        from .fit import local_minimum, minimise
 
         start = start.copy()
         start[self.name].set(value=x, vary=False)
         if not any(p.vary and not p.expr for p in start.values()):
             return self.result.likelihood.statistic(start.valuesdict()), start
+        self.n_minimisations += 1
+        if self.method == "least_squares":
+            # the lean vector path; the lmfit path with its fallbacks only
+            # where it fails
+            params, stat, ok = local_minimum(self.result.likelihood, start)
+            if ok or not fallback:
+                return stat, params
         out, stat, _ = minimise(self.result.likelihood, start, method=self.method,
                                 fallback=fallback)
-        self.n_minimisations += 1
         return stat, out.params
 
     def __call__(self, x):
@@ -255,6 +270,34 @@ def _step_side(scan, sign, step0, bound, stop_delta, must_pass, max_steps=40):
     return False, False
 
 
+def _crossing(f, a, b, xtol, ftol=CROSSING_TOL, maxiter=40):
+    """x in [a, b] where ``f`` (of opposite signs at a and b) crosses zero, to |f| <= ``ftol`` or a bracket narrower than
+    ``xtol``: regula falsi with the Illinois modification (Dowell &
+    Jarratt 1971), which needs two or three profile points per crossing
+    where bisection to a tight ``xtol`` needs a dozen."""
+    fa, fb = f(a), f(b)
+    if fa == 0:
+        return a
+    if fb == 0:
+        return b
+    if fa * fb > 0:
+        raise ValueError("the crossing is not bracketed")
+    c = a
+    for _ in range(maxiter):
+        c = (a * fb - b * fa) / (fb - fa)
+        if not (min(a, b) < c < max(a, b)):
+            c = 0.5 * (a + b)
+        fc = f(c)
+        if abs(fc) <= ftol or abs(b - a) <= xtol:
+            return c
+        if fc * fb < 0:
+            a, fa = b, fb
+        else:
+            fa *= 0.5
+        b, fb = c, fc
+    return c
+
+
 def _pieces(scan, target, lower_bound, upper_bound, xtol):
     """Pieces of {delta <= target} along the scanned points, crossings
     refined by Brent's method.  Returns (pieces, lower_at_bound,
@@ -265,9 +308,13 @@ def _pieces(scan, target, lower_bound, upper_bound, xtol):
     i = 0
     n = len(xs)
 
+    # the crossing is sought in sqrt(Delta), nearly linear in x for a
+    # near-parabolic profile (so regula falsi converges in a step or two)
+    rt = math.sqrt(target)
+
     def root(a, b):
-        return optimize.brentq(lambda x: scan.delta(x) - target, a, b, xtol=xtol, rtol=1e-8,
-                               maxiter=60)
+        return _crossing(lambda x: math.sqrt(max(scan.delta(x), 0.0)) - rt, a, b, xtol,
+                         ftol=CROSSING_TOL / (2.0 * rt))
 
     while i < n:
         if not inside[i]:
@@ -393,7 +440,11 @@ def _scan_levels(result, name, levels, method, multistart=True,
     step0 = min(err, 0.25 * span) if math.isfinite(span) else err
     targets = {level: delta_statistic(level) for level in levels}
     stop = max(targets.values()) + SCAN_MARGIN
-    minima_x = [float(m.params[name].value) for m in getattr(result, "minima", [])[1:]]
+    # the scan passes the parameter's value at every other distinct minimum
+    # that seeds a chain (Delta C <= MINIMA_DELTA)
+    minima_x = [float(m.params[name].value) for m in getattr(result, "minima", [])[1:]
+                if m.delta <= max(getattr(result, "multimodal_delta", None) or 0.0,
+                                  MINIMA_DELTA)]
     lo_reached, lo_ok = _step_side(scan, -1, step0, float(p.min), stop, minima_x)
     hi_reached, hi_ok = _step_side(scan, +1, step0, float(p.max), stop, minima_x)
     if not lo_ok:
