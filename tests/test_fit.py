@@ -271,3 +271,20 @@ def test_profiled_background_level_maximises_the_likelihood(s, n, nb, r):
                           options={"xatol": 1e-10}).x
     got = float(stats.profiled_background_level([s], [n], [nb], r)[0])
     assert got == pytest.approx(ref, rel=1e-6, abs=1e-6)
+
+
+def test_column_at_zero_is_a_limit_not_a_convergence_flag(response):
+    """A column fitted at zero is a physical limit the data allow (an upper
+    limit, reported by the profile interval's lower_at_bound), not a
+    failed fit: informational ``at_limit:``, so the fit stays converged.
+    Bounds a user narrowed keep the ``at_bound:`` convergence flag (test
+    above).  Data: no gas edge at all in the simulation (column 0)."""
+    from edgefit.models.absorption import GasEdge
+
+    model = GasEdge("gas", element="Si") * PhotonPowerLaw("pl", index=1.8, norm=0.5)
+    spec = simulate_counts(model, toy_response(1.6, 2.2, n_channels=300), 3e4,
+                           values={"gas_col": 0.0}, seed=4)
+    res = fit_sightline(model, Dataset(spec, ranges=(1.65, 2.15)), warn=False)
+    assert res.params["gas_col"].value < 1e-6 * res.error("gas_col")  # at the limit (this seed)
+    assert "at_limit:gas_col" in res.flags and "at_bound:gas_col" not in res.flags
+    assert res.converged

@@ -266,10 +266,15 @@ def _minimise(likelihood, params, method, fallback, max_nfev):
     return out, stat, flags
 
 
-def _bound_flags(params, free):
-    """Names of free parameters sitting on a bound: closer than
+def _bound_flags(params, free, model=None):
+    """Flags of free parameters sitting on a bound: closer than
     BOUND_TOLERANCE x max(|value|, |bound|), or than 1 % of their
-    covariance error."""
+    covariance error.  ``at_limit:<name>`` (informational) where the bound
+    is a physical limit of the model's own declaration
+    (:func:`_physical_limit`): the data are consistent with it, and the
+    parameter's interval reports it as a limit.  ``at_bound:<name>`` (a
+    convergence flag) elsewhere: a range set by the user, or a shape
+    parameter that ran to the end of its allowed range."""
     flags = []
     for name in free:
         p = params[name]
@@ -281,9 +286,26 @@ def _bound_flags(params, free):
             if p.stderr is not None and np.isfinite(p.stderr):
                 tol = max(tol, 0.01 * p.stderr)
             if dist <= tol:
-                flags.append(f"at_bound:{name}")
+                limit = model is not None and _physical_limit(model, name, float(bound))
+                flags.append(f"{'at_limit' if limit else 'at_bound'}:{name}")
                 break
     return flags
+
+
+def _physical_limit(model, name, bound):
+    """True when ``bound`` is where the model's declaration of ``name`` ends
+    at a physical limit: a column (cm-2) at zero, a grain radius (um) at
+    either end of its tabulated range, the dust fraction of a total/fraction
+    model at 0 or 1.  Bounds a user narrowed are not limits."""
+    decl = model.parameters().get(name)
+    if decl is None:
+        return False
+    d = decl[1]
+    if bound not in (float(d.min), float(d.max)):
+        return False
+    if d.unit == "um" or name == getattr(model, "fraction_param", None):
+        return True
+    return "cm-2" in d.unit and bound == 0.0 == float(d.min)
 
 
 def _same_minimum(a, b, size_names, stat_a=None, stat_b=None):
@@ -488,7 +510,7 @@ def fit_sightline(model: ModelNode, datasets: Sequence[Dataset], *, statistic: s
     minima = distinct_minima(ends, size_names) if size_names else []
     flags = list(flags)
     free = [n for n, p in out.params.items() if p.vary and not p.expr]
-    flags += _bound_flags(out.params, free)
+    flags += _bound_flags(out.params, free, model)
     covar = getattr(out, "covar", None)
     if covar is None:
         flags.append("no_covariance")
@@ -606,7 +628,7 @@ def reparametrise(result, columns="total_fraction", *, gas=None, dust=None, poli
             covar = None
         flags = [f for f in fl if f != "no_success"]
     free = [n for n, p in params.items() if p.vary and not p.expr]
-    flags += _bound_flags(params, free)
+    flags += _bound_flags(params, free, new_model)
     flags += [f for f in result.flags if f in ("multimodal",)]
     new = FitResult(likelihood=like, params=params, statistic=stat, covariance=covar,
                     covariance_names=var_names or free, flags=flags, method=result.method)

@@ -47,8 +47,11 @@ __all__ = ["FitResult", "Interval", "level_label", "INFO_FLAGS"]
 #: was redone from there).
 INFO_FLAGS = {"refit_after_profile", "multimodal"}
 #: Flag prefixes that inform (``gas_dust_degenerate:<element>``: the data
-#: do not separate the gas and dust columns of that element).
-INFO_PREFIXES = ("gas_dust_degenerate:",)
+#: do not separate the gas and dust columns of that element;
+#: ``at_limit:<name>``: the best fit lies at a physical limit of the
+#: parameter, a column at zero, a grain size at the end of its range or
+#: all/no dust, which the data allow).
+INFO_PREFIXES = ("gas_dust_degenerate:", "at_limit:")
 
 
 def level_label(level: float) -> str:
