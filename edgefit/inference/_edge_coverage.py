@@ -25,13 +25,15 @@ from typing import Any
 import numpy as np
 from scipy import stats as sps
 
+from ..stats import ONE_SIGMA
+
 __all__ = ["draw_tasks", "run_one", "coverage_table", "QUANTITIES", "LEVELS",
            "AMAX_VALUES"]
 
 #: Quantities whose coverage is tallied.
 QUANTITIES = ("gas", "dust", "total", "depletion")
 #: Confidence levels (the 1-sigma and the 95 % two-sided levels).
-LEVELS = (0.6827, 0.95)
+LEVELS = (ONE_SIGMA, 0.95)
 #: Upper grain sizes (µm) of the simulations.
 AMAX_VALUES = (0.1, 0.25, 0.5, 1.0)
 
@@ -186,7 +188,7 @@ def coverage_table(records, methods=("profile", "mcmc")):
                                 else f"{'--':>11}")
                 lines.append(row)
             n = len([r for r in recs if key in r])
-            lo68, hi68 = _band(n, 0.6827)
+            lo68, hi68 = _band(n, ONE_SIGMA)
             verdicts = []
             for q, (c68, c95, ok) in check_targets(recs, method).items():
                 verdicts.append(f"{q[1]}: {'ok' if ok else 'FAIL'}")
@@ -206,9 +208,9 @@ def check_targets(records, method="profile"):
             by_el.setdefault(r["task"]["element"], []).append(r)
     for el, recs in by_el.items():
         n = len(recs)
-        lo68, _ = _band(n, 0.6827)
+        lo68, _ = _band(n, ONE_SIGMA)
         for q in QUANTITIES:
-            k68, k95 = f"{method}_{q}_0.6827", f"{method}_{q}_0.95"
+            k68, k95 = f"{method}_{q}_{ONE_SIGMA}", f"{method}_{q}_0.95"
             if not all(k68 in r[key] for r in recs):
                 continue
             c68 = sum(r[key][k68] for r in recs) / n

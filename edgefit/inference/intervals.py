@@ -64,6 +64,7 @@ import numpy as np
 from scipy import stats as sps
 
 from ..errors import ArgumentError, UnknownParameterError
+from ..stats import ONE_SIGMA
 from .result import Interval
 
 if TYPE_CHECKING:
@@ -354,7 +355,7 @@ def _dips(xs, ds, best):
     return out
 
 
-def profile_interval(result: FitResult, name: str, level: float = 0.6827,
+def profile_interval(result: FitResult, name: str, level: float = ONE_SIGMA,
                      method: str = "least_squares", **kw: Any) -> Interval:
     """Profile-likelihood interval of one parameter at one level
     (see module docstring).  Returns an :class:`Interval`."""
@@ -362,7 +363,7 @@ def profile_interval(result: FitResult, name: str, level: float = 0.6827,
 
 
 def profile_intervals(result: FitResult, names: Sequence[str],
-                      levels: Sequence[float] = (0.6827, 0.90), method: str = "least_squares",
+                      levels: Sequence[float] = (ONE_SIGMA, 0.90), method: str = "least_squares",
                       store: bool = True, multistart: bool = True,
                       n_size_starts: int = PROFILE_SIZE_STARTS
                       ) -> dict[str, dict[float, Interval]]:
