@@ -282,7 +282,7 @@ def _crossing(f, a, b, xtol, ftol=CROSSING_TOL, maxiter=40):
     if fb == 0:
         return b
     if fa * fb > 0:
-        raise ValueError("the crossing is not bracketed")
+        raise ArgumentError("the profile crossing is not bracketed (same sign at both ends)")
     c = a
     for _ in range(maxiter):
         c = (a * fb - b * fa) / (fb - fa)
