@@ -194,3 +194,26 @@ def test_depletion_uses_declared_phase_not_names():
     assert out["depletion_Si"][0] == pytest.approx(0.9 / 1.2, rel=1e-12)
     gas.phase = "neither"
     assert "depletion_Si" not in _evaluate_all(model, model.default_values(), {})
+
+
+def test_profile_from_a_bound_without_covariance_reaches_the_far_end():
+    """A best fit a hair above its lower bound with no covariance error
+    (a dust fraction fitted at zero, say) starts the scan with a step of
+    ~1e-17 of the value; the steps must still reach the level.  Reference:
+    the same fit with its covariance error as the first step gives the same
+    upper end (the interval is the set Delta C <= chi-square(1) quantile,
+    Wilks 1938, whatever the steps), to 1e-4 of the interval."""
+    from edgefit.models.continuum import LineGaussian
+
+    resp = toy_response(1.6, 2.2, n_channels=120)
+    model = PhotonPowerLaw("pl", index=1.8, norm=0.5) + LineGaussian(
+        "ln", center=1.9, sigma=0.01, norm=0.0, fixed=["center", "sigma"])
+    spec = simulate_counts(model, resp, 2e4, values={"ln_norm": 0.0}, seed=3)
+    res = fit_sightline(model, Dataset(spec), warn=False)
+    with_cov = profile_intervals(res, ["ln_norm"], [0.95], store=False)["ln_norm"][0.95]
+    assert with_cov.lower_at_bound and with_cov.upper is not None
+    res.params["ln_norm"].set(value=1e-17 * with_cov.upper)   # a hair above the bound
+    res.covariance = None
+    no_cov = profile_intervals(res, ["ln_norm"], [0.95], store=False)["ln_norm"][0.95]
+    assert no_cov.upper is not None, no_cov.notes
+    assert no_cov.upper == pytest.approx(with_cov.upper, rel=1e-4, abs=0)

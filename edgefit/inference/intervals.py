@@ -33,7 +33,8 @@ and its fallback minimisers only where that fails.
 The scan
 --------
 From p0 the profile is stepped outward on each side (first step one
-covariance sigma, or 10 % of |p0| without one; steps grow by 1.6x) until
+covariance sigma, or 10 % of |p0| without one; steps grow by 1.6x, 2.5x
+while Delta S_prof < 0.1 of the level, 10x while it is below 1e-3) until
 it exceeds the largest requested Delta by :data:`SCAN_MARGIN` *and* the
 scan has passed the parameter's value at every distinct minimum within
 Delta C <= 10 (those that seed chains), or until the parameter's bound.
@@ -85,6 +86,8 @@ MINIMA_DELTA = 10.0
 #: 1-sigma level of a parabolic profile, below the scatter the inner
 #: minimisations' own tolerance leaves in Delta S_prof.
 CROSSING_TOL = 1e-5
+#: While Delta S_prof stays below this the scan's steps grow tenfold.
+FLAT_DELTA = 1e-3
 #: A local minimum of the profile curve at least this much below the
 #: highest point between it and the best fit is a "second dip".
 DIP_DEPTH = 0.3
@@ -267,7 +270,9 @@ def _step_side(scan, sign, step0, bound, stop_delta, must_pass, max_steps=40):
             return False, True
         if x == bound:
             return True, True
-        step *= 2.5 if d < 0.1 * stop_delta else 1.6
+        # grow fast while the profile is flat: a best fit a hair above its
+        # bound with no covariance error starts with a step of ~1e-17
+        step *= 10.0 if d < FLAT_DELTA else 2.5 if d < 0.1 * stop_delta else 1.6
     return False, False
 
 
