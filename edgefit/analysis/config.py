@@ -694,6 +694,21 @@ class SightlineConfig:
                 raise self.error(key, str(exc)) from None
         return out
 
+    def likelihood(self, datasets):
+        """The joint likelihood of ``datasets`` (from :meth:`load_datasets`)
+        under this configuration's model and ``[fit]`` statistic, and its
+        starting Parameters: cross-normalisations as ``[fit]`` says, then
+        the configuration's parameter settings applied.  Returns
+        ``(likelihood, params)``."""
+        from ..inference.likelihood import JointLikelihood
+
+        fitc = self.fit
+        like = JointLikelihood(self.model, datasets, statistic=fitc.statistic,
+                               chi2_variance=fitc.chi2_variance)
+        params = like.make_params(xnorm_free=fitc.xnorm_free)
+        params = apply_parameter_settings(params, self.param_settings, self.model, self.path)
+        return like, params
+
 
 def _check_table(data, key, allowed, path):
     if not isinstance(data, dict):

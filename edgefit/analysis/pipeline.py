@@ -119,8 +119,6 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
     from ..errors import ConvergenceWarning, EdgefitError, ShortChainWarning
     from ..inference import (derived_quantities, fit_sightline, posterior_predictive,
                              profile_intervals, run_mcmc)
-    from ..inference.likelihood import JointLikelihood
-    from .config import apply_parameter_settings
 
     def say(msg):
         if not quiet:
@@ -138,10 +136,7 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
     out_dir = Path(output) if output else cfg.output
     datasets = cfg.load_datasets()
     fitc = cfg.fit
-    like = JointLikelihood(cfg.model, datasets, statistic=fitc.statistic,
-                           chi2_variance=fitc.chi2_variance)
-    params = like.make_params(xnorm_free=fitc.xnorm_free)
-    params = apply_parameter_settings(params, cfg.param_settings, cfg.model, cfg.path)
+    like, params = cfg.likelihood(datasets)
     say(f"{cfg.name}: {len(datasets)} spectra, {like.n_bins} bins; fitting ...")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ConvergenceWarning)

@@ -329,9 +329,8 @@ def grid_point_task(task: dict) -> dict:
     JSON-ready record; a problem of the sightline becomes ``status =
     "failed"`` with a one-line ``reason`` (never raises for it)."""
     from ..inference import fit_sightline, profile_intervals
-    from ..inference.likelihood import JointLikelihood
     from .batch import _one_line
-    from .config import apply_parameter_settings, config_from_dict
+    from .config import config_from_dict
 
     t0 = time.perf_counter()
     rec: dict[str, Any] = {k: task[k] for k in ("name", "folder", "parameter", "value",
@@ -347,10 +346,7 @@ def grid_point_task(task: dict) -> dict:
                                    name=task["name"], output=task["base"])
             datasets = cfg.load_datasets()
             fitc = cfg.fit
-            like = JointLikelihood(cfg.model, datasets, statistic=fitc.statistic,
-                                   chi2_variance=fitc.chi2_variance)
-            params = like.make_params(xnorm_free=fitc.xnorm_free)
-            params = apply_parameter_settings(params, cfg.param_settings, cfg.model, cfg.path)
+            _, params = cfg.likelihood(datasets)
             if name not in params:
                 raise ArgumentError(f"the model has no parameter {name!r}")
             p = params[name]
