@@ -138,6 +138,8 @@ def threshold_intervals(x: ArrayLike, delta: ArrayLike, threshold: float, *,
     (then that end is where the curve stops, not a crossing).  NaN samples
     count as above the threshold.  No sample below: no pieces, ends None.
     """
+    from ..inference.intervals import inside_runs
+
     xs = np.asarray(x, float)
     d = np.asarray(delta, float)
     if xs.shape != d.shape or xs.ndim != 1:
@@ -147,29 +149,21 @@ def threshold_intervals(x: ArrayLike, delta: ArrayLike, threshold: float, *,
     pieces: list[list[float]] = []
     low_b = high_b = False
     n = xs.size
-    i = 0
-    while i < n:
-        if not inside[i]:
-            i += 1
-            continue
-        j = i
-        while j + 1 < n and inside[j + 1]:
-            j += 1
 
-        def cross(a, b):
-            # a inside, b outside (or NaN: the outside sample itself)
-            if not np.isfinite(d[b]):
-                return xs[b]
-            t = (threshold - d[a]) / (d[b] - d[a])
-            uu = u[a] + t * (u[b] - u[a])
-            return float(np.exp(uu)) if log else float(uu)
+    def cross(a, b):
+        # a inside, b outside (or NaN: the outside sample itself)
+        if not np.isfinite(d[b]):
+            return xs[b]
+        t = (threshold - d[a]) / (d[b] - d[a])
+        uu = u[a] + t * (u[b] - u[a])
+        return float(np.exp(uu)) if log else float(uu)
 
+    for i, j in inside_runs(inside):
         lo = float(xs[0]) if i == 0 else cross(i, i - 1)
         hi = float(xs[-1]) if j == n - 1 else cross(j, j + 1)
         low_b = low_b or i == 0
         high_b = high_b or j == n - 1
         pieces.append([lo, hi])
-        i = j + 1
     return {"pieces": pieces, "lower": pieces[0][0] if pieces else None,
             "upper": pieces[-1][1] if pieces else None,
             "lower_at_bound": bool(low_b), "upper_at_bound": bool(high_b)}

@@ -304,14 +304,31 @@ def _crossing(f, a, b, xtol, ftol=CROSSING_TOL, maxiter=40):
     return c
 
 
+def inside_runs(inside) -> list[tuple[int, int]]:
+    """The runs of consecutive true entries of the boolean sequence
+    ``inside``, in order, as inclusive index pairs ``(first, last)``: the
+    sampled pieces of a set {x : delta(x) <= level} along a scanned curve."""
+    runs = []
+    n = len(inside)
+    i = 0
+    while i < n:
+        if not inside[i]:
+            i += 1
+            continue
+        j = i
+        while j + 1 < n and inside[j + 1]:
+            j += 1
+        runs.append((i, j))
+        i = j + 1
+    return runs
+
+
 def _pieces(scan, target, lower_bound, upper_bound, xtol):
     """Pieces of {delta <= target} along the scanned points, crossings
     refined by Brent's method.  Returns (pieces, lower_at_bound,
     upper_at_bound)."""
     xs, ds = scan.curve()
-    inside = ds <= target
     pieces = []
-    i = 0
     n = len(xs)
 
     # the crossing is sought in sqrt(Delta), nearly linear in x for a
@@ -322,17 +339,10 @@ def _pieces(scan, target, lower_bound, upper_bound, xtol):
         return _crossing(lambda x: math.sqrt(max(scan.delta(x), 0.0)) - rt, a, b, xtol,
                          ftol=CROSSING_TOL / (2.0 * rt))
 
-    while i < n:
-        if not inside[i]:
-            i += 1
-            continue
-        j = i
-        while j + 1 < n and inside[j + 1]:
-            j += 1
+    for i, j in inside_runs(ds <= target):
         lo = xs[i] if i == 0 else root(xs[i - 1], xs[i])
         hi = xs[j] if j == n - 1 else root(xs[j], xs[j + 1])
         pieces.append([float(lo), float(hi), i == 0, j == n - 1])
-        i = j + 1
     # roots may have added points inside; recompute nothing, the pieces hold
     lo_b = bool(pieces and pieces[0][2] and xs[0] <= lower_bound)
     hi_b = bool(pieces and pieces[-1][3] and xs[-1] >= upper_bound)
