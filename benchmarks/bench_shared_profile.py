@@ -14,39 +14,25 @@ depends on the machine's load.
         [--grid 0.05,2,9] [--workers 2] [--out DIR]
 """
 import argparse
-import sys
-import tempfile
 import time
-from pathlib import Path
 
 import numpy as np
 
-HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent / "tests"))
-
-TRUE_AMAX = 0.25   # um, tests/_batch_sim.py build_model
+from _sim_sample import TRUE_AMAX, add_sample_options, simulated_sample
 
 
 def main():
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--sightlines", type=int, default=8)
-    ap.add_argument("--exposure", type=float, default=2e5)
     ap.add_argument("--grid", default="0.05,2,9")
-    ap.add_argument("--workers", type=int, default=2)
-    ap.add_argument("--seed", type=int, default=21)
-    ap.add_argument("--out", type=Path)
+    add_sample_options(ap, exposure=2e5, seed=21)
     a = ap.parse_args()
 
-    import _batch_sim
     from edgefit.analysis.shared_profile import make_grid, shared_parameter_profile
     from edgefit.cli.population import parse_grid
     from edgefit.plotting.shared_profile import save_shared_figure
 
-    out = a.out or Path(tempfile.mkdtemp(prefix="edgefit-shared-"))
-    manifest = out / "sample" / "sample.toml"
-    if not manifest.exists():
-        _batch_sim.write_sample(out / "sample", n=a.sightlines, seed=a.seed,
-                                exposure=a.exposure)
+    out, manifest = simulated_sample(a, a.sightlines, "edgefit-shared-")
     lo, hi, n = parse_grid(a.grid)
     t0 = time.perf_counter()
     res = shared_parameter_profile(manifest, "dust_amax", make_grid(lo, hi, n),

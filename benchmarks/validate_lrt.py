@@ -21,36 +21,25 @@ asserted.
 """
 import argparse
 import math
-import sys
-import tempfile
 import time
-from pathlib import Path
 
 import numpy as np
 
-HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent / "tests"))
+from _sim_sample import add_sample_options, simulated_sample
 
 
 def main():
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--sims", type=int, default=200)
-    ap.add_argument("--exposure", type=float, default=4e4)
-    ap.add_argument("--workers", type=int, default=2)
-    ap.add_argument("--seed", type=int, default=7)
-    ap.add_argument("--out", type=Path)
+    add_sample_options(ap, exposure=4e4, seed=7)
     a = ap.parse_args()
 
     from scipy import stats
 
-    import _batch_sim
     from edgefit.analysis.sizes_compare import compare_sizes
 
-    out = a.out or Path(tempfile.mkdtemp(prefix="edgefit-lrt-"))
-    manifest = out / "sample" / "sample.toml"
-    if not manifest.exists():
-        _batch_sim.write_sample(out / "sample", n=a.sims, seed=a.seed, exposure=a.exposure,
-                                profile="[]", draws=100, hydrogen=False)
+    out, manifest = simulated_sample(a, a.sims, "edgefit-lrt-", profile="[]", draws=100,
+                                     hydrogen=False)
     t0 = time.perf_counter()
     res = compare_sizes(manifest, ["mrn", "mrn:amax=free"], out / "sizes",
                         workers=a.workers, progress=True)
