@@ -354,18 +354,10 @@ def population_from_batch(folder, quantity, *, covariate=None, log_covariate=Tru
     from .manifest import folder_name
     from .pipeline import SAMPLES_FILE, read_samples
     from .regression import write_json
-    from .sample_table import read_sample_table
+    from .sample_table import open_sample_table
 
-    folder = Path(folder)
-    table_path = folder / "sample.ecsv" if folder.is_dir() else folder
-    if not table_path.exists():
-        raise InputFileError(table_path, "no sample table (run 'edgefit batch' first)")
-    if table_path.parent != folder:
-        folder = table_path.parent
-    try:
-        table = read_sample_table(table_path)
-    except Exception as exc:  # astropy raises many kinds for unreadable tables
-        raise InputFileError(table_path, f"cannot read the sample table ({exc})") from None
+    table_path, table = open_sample_table(folder)
+    folder = table_path.parent
     if covariate is not None and covariate not in table.colnames:
         raise InputFileError(table_path, f"no column {covariate!r} for the covariate")
     samples, cov, skipped = {}, {}, []

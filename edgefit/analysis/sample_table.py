@@ -57,7 +57,7 @@ if TYPE_CHECKING:
     from astropy.table import Table
 
 __all__ = ["sightline_row", "failed_row", "sample_table", "write_sample_table",
-           "read_sample_table", "total_column_profiles", "STATUSES", "POOR_FIT_P",
+           "read_sample_table", "open_sample_table", "total_column_profiles", "STATUSES", "POOR_FIT_P",
            "TOTAL_PROFILES_KEY"]
 
 #: Row statuses.
@@ -360,3 +360,22 @@ def read_sample_table(folder_or_file: str | os.PathLike) -> Table:
         if isinstance(t[c], MaskedColumn) and t[c].dtype.kind in "US":
             t[c] = t[c].filled("")
     return t
+
+
+def open_sample_table(folder_or_file: str | os.PathLike, *,
+                      missing: str = "no sample table (run 'edgefit batch' first)"
+                      ) -> tuple[Path, Table]:
+    """``(path, table)``: the sample table of a batch output folder (its
+    ``sample.ecsv``) or the file itself, read by :func:`read_sample_table`.
+    A missing table (problem text ``missing``) or an unreadable one is an
+    :class:`~edgefit.errors.InputFileError` naming the file."""
+    from ..errors import InputFileError
+
+    p = Path(folder_or_file)
+    path = p / "sample.ecsv" if p.is_dir() else p
+    if not path.exists():
+        raise InputFileError(path, missing)
+    try:
+        return path, read_sample_table(path)
+    except Exception as exc:  # astropy raises many kinds for unreadable tables
+        raise InputFileError(path, f"cannot read the sample table ({exc})") from None

@@ -10,14 +10,16 @@ See :mod:`edgefit.analysis.grains`.
 """
 from __future__ import annotations
 
+from ._sample import add_output_options, figures_of, sample_parser
+
 __all__ = ["add_parser", "run"]
 
 
 def add_parser(subparsers):
-    p = subparsers.add_parser("grains", help="grain and dust columns from dust optical "
-                                             "depths; shielded tau-N_H relation",
-                              description=__doc__.split("\n\n")[0])
-    p.add_argument("sample", metavar="SAMPLE", help="sample table or batch output folder")
+    p = sample_parser(subparsers, "grains", __doc__,
+                      help="grain and dust columns from dust optical depths; shielded "
+                           "tau-N_H relation",
+                      sample_help="sample table or batch output folder")
     p.add_argument("--tau", default="dust_tau_above", metavar="Q",
                    help="dust optical depth column (default dust_tau_above)")
     p.add_argument("--material", default="olivine")
@@ -33,8 +35,7 @@ def add_parser(subparsers):
                    help="the optical depth is absorption only (scattered light kept)")
     p.add_argument("--no-count-once", action="store_true",
                    help="the fits did not subtract the grains' other atoms")
-    p.add_argument("-o", "--output", metavar="DIR")
-    p.add_argument("--no-plots", action="store_true")
+    add_output_options(p)
     p.set_defaults(func=run)
     return p
 
@@ -47,7 +48,7 @@ def run(args) -> int:
     res = grains_sample(args.sample, args.tau, material=args.material, element=args.element,
                         sizes=sizes, nh=args.nh, count_once=not args.no_count_once,
                         kind="abs" if args.absorption else "ext", output=args.output,
-                        figures=None if args.no_plots else save_grains_figure)
+                        figures=figures_of(args, save_grains_figure))
     gc = res["grain_columns"]["default"]
     print(f"optical depth per grain {gc['sigma_grain']:.4g} cm2 at {gc['energy_kev']:.4g} keV "
           f"({gc['sizes']}); {gc['atoms_per_grain']:.4g} {gc['element']} atoms per grain")

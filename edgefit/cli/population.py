@@ -21,17 +21,18 @@ from __future__ import annotations
 
 import re
 
+from ._sample import add_output_options, figures_of, middle, sample_parser
+
 __all__ = ["add_parser", "run", "parse_grid"]
 
 _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 
 
 def add_parser(subparsers):
-    p = subparsers.add_parser("population", help="population fit of a batch output folder "
-                                                 "(saved posterior samples, or a shared "
-                                                 "parameter on a grid)",
-                              description=__doc__.split("\n\n")[0])
-    p.add_argument("sample_dir", metavar="SAMPLE_DIR", help="output folder of 'edgefit batch'")
+    p = sample_parser(subparsers, "population", __doc__,
+                      help="population fit of a batch output folder (saved posterior "
+                           "samples, or a shared parameter on a grid)",
+                      sample_help="output folder of 'edgefit batch'", metavar="SAMPLE_DIR")
     p.add_argument("--quantity", metavar="NAME",
                    help="sampled (free) parameter, e.g. dust_col")
     p.add_argument("--covariate", metavar="COLUMN",
@@ -62,10 +63,9 @@ def add_parser(subparsers):
                         "(default 2; 0 = the grid alone)")
     g.add_argument("--fresh", action="store_true", help="refit every grid point even when "
                                                         "cached")
-    p.add_argument("-o", "--output", metavar="DIR", help="output folder (default SAMPLE_DIR, "
-                   "or SAMPLE_DIR/shared_<NAME> with --shared)")
+    add_output_options(p, output_help="output folder (default SAMPLE_DIR, or "
+                                      "SAMPLE_DIR/shared_<NAME> with --shared)")
     p.add_argument("--seed", type=int, default=0)
-    p.add_argument("--no-plots", action="store_true")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
     return p
@@ -87,20 +87,15 @@ def parse_grid(text):
 def _find_manifest(sample_dir, given):
     from pathlib import Path
 
+    from ..analysis.sample_table import open_sample_table
     from ..errors import InputFileError
-    from ..analysis.sample_table import read_sample_table
 
     if given:
         return Path(given)
-    folder = Path(sample_dir)
-    table = folder / "sample.ecsv"
-    if not table.exists():
-        raise InputFileError(table, "no sample table (run 'edgefit batch' first, or give "
-                                    "--manifest)")
-    try:
-        name = read_sample_table(table).meta.get("manifest")
-    except Exception as exc:  # astropy raises many kinds for unreadable tables
-        raise InputFileError(table, f"cannot read the sample table ({exc})") from None
+    table, sample = open_sample_table(sample_dir, missing="no sample table (run 'edgefit "
+                                                         "batch' first, or give --manifest)")
+    folder = table.parent
+    name = sample.meta.get("manifest")
     if not name:
         raise InputFileError(table, "names no manifest; give --manifest")
     for cand in (folder.parent / name, folder / name):
@@ -124,13 +119,13 @@ def _run_shared(args) -> int:
         raise ArgumentError("--shared: give the grid, --grid LO,HI,N")
     lo, hi, n = parse_grid(args.grid)
     grid = make_grid(lo, hi, n, log=not args.linear_grid)
-    manifest = _find_manifest(args.sample_dir, args.manifest)
-    out = Path(args.output) if args.output else Path(args.sample_dir) / f"shared_{args.shared}"
+    manifest = _find_manifest(args.sample, args.manifest)
+    out = Path(args.output) if args.output else Path(args.sample) / f"shared_{args.shared}"
     res = shared_parameter_profile(manifest, args.shared, grid, output=out,
                                    columns=args.columns, log=not args.linear_grid,
                                    workers=args.workers, fresh=args.fresh,
                                    refine=args.refine,
-                                   figures=None if args.no_plots else save_shared_figure,
+                                   figures=figures_of(args, save_shared_figure),
                                    progress=not args.quiet)
     s = res.summary
     unit = f" {res.unit}" if res.unit else ""
@@ -143,8 +138,8 @@ def _run_shared(args) -> int:
         print(f"  {100 * float(lv):.4g} % (dS <= {s['thresholds'][lv]:.3f}): {pieces}"
               + (f"  ({' and '.join(ends)} end at the grid's edge)" if ends else ""))
     for c in s["columns"]:
-        shrink = sorted(s["sightlines"][n_]["columns"][c]["shrink"] for n_ in res.names)
-        print(f"  median 68 % width pooled / alone of {c}: {shrink[len(shrink) // 2]:.2f}")
+        shrink = [s["sightlines"][n_]["columns"][c]["shrink"] for n_ in res.names]
+        print(f"  median 68 % width pooled / alone of {c}: {middle(shrink):.2f}")
     for note in s["notes"]:
         print(f"  note: {note}")
     print(f"  wrote {res.output}")
@@ -162,15 +157,15 @@ def run(args) -> int:
     from ..analysis.population import population_from_batch
     from ..plotting.population import save_population_figure
 
-    res = population_from_batch(args.sample_dir, args.quantity, covariate=args.covariate,
+    res = population_from_batch(args.sample, args.quantity, covariate=args.covariate,
                                 log_covariate=not args.linear_covariate, log=args.log,
                                 interim=args.interim, output=args.output,
-                                figures=None if args.no_plots else save_population_figure,
+                                figures=figures_of(args, save_population_figure),
                                 seed=args.seed)
     print(f"{len(res.sightlines)} sightlines; skipped {len(res.skipped)}")
     for k, v in res.hyper.items():
         print(f"  {k:3s} {v['median']:.5g} [{v['lo']:.5g}, {v['hi']:.5g}]")
     shrink = [e["columns"][res.quantity]["shrink"] for e in res.sightlines]
-    print(f"  median interval shrink of {res.quantity}: {sorted(shrink)[len(shrink) // 2]:.2f}")
+    print(f"  median interval shrink of {res.quantity}: {middle(shrink):.2f}")
     print(f"  wrote {res.output}")
     return 0

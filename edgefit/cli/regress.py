@@ -8,22 +8,21 @@ are present); writes ``regression.json``, ``regression.png`` and
 """
 from __future__ import annotations
 
+from ._sample import add_output_options, figures_of, sample_parser
+
 __all__ = ["add_parser", "run"]
 
 
 def add_parser(subparsers):
-    p = subparsers.add_parser("regress", help="straight-line regression between two "
-                                              "columns of a sample table",
-                              description=__doc__.split("\n\n")[0])
-    p.add_argument("sample", metavar="SAMPLE",
-                   help="sample table (ECSV or FITS), or a folder holding sample.ecsv")
+    p = sample_parser(subparsers, "regress", __doc__,
+                      help="straight-line regression between two columns of a sample table",
+                      sample_help="sample table (ECSV or FITS), or a folder holding "
+                                  "sample.ecsv")
     p.add_argument("--y", required=True, metavar="Q", help="quantity on the vertical axis")
     p.add_argument("--x", required=True, metavar="Q", help="quantity on the horizontal axis")
     p.add_argument("--through-origin", action="store_true", help="fit y = slope * x")
-    p.add_argument("-o", "--output", metavar="DIR",
-                   help="output folder (default: the table's folder)")
+    add_output_options(p, output_help="output folder (default: the table's folder)")
     p.add_argument("--seed", type=int, default=0, help="sampler seed (default 0)")
-    p.add_argument("--no-plots", action="store_true", help="do not draw figures")
     p.set_defaults(func=run)
     return p
 
@@ -34,7 +33,7 @@ def run(args) -> int:
 
     res = regress_sample(args.sample, args.y, args.x, through_origin=args.through_origin,
                          output=args.output, seed=args.seed,
-                         figures=None if args.no_plots else save_regression_figures)
+                         figures=figures_of(args, save_regression_figures))
     d = res.to_dict()
     print(f"{d['n_points']} points ({d['n_limits']} limits), slope in {d['units']['slope']}")
     if d["odr"] is not None:
