@@ -101,14 +101,17 @@ class SizeDistribution:
     def __init_subclass__(cls, **kw):
         super().__init_subclass__(**kw)
         cls.PARAMS = tuple(p if isinstance(p, Param) else Param(*p) for p in cls.PARAMS)
+        cls._DEFAULTS = {p.name: p.default for p in cls.PARAMS}
         if cls.family and cls.__dict__.get("register", True):
             register_family(cls)
 
+    _DEFAULTS: ClassVar[dict[str, float]] = {}
+
     def __init__(self, **values):
-        names = [p.name for p in self.PARAMS]
-        vals = {p.name: p.default for p in self.PARAMS}
+        vals = dict(self._DEFAULTS)
         for k, v in values.items():
-            if k not in names:
+            if k not in vals:
+                names = [p.name for p in self.PARAMS]
                 raise PhysicsDataError(f"{self.family} size distribution has no parameter "
                                        f"{k!r}; it has {names}")
             if type(v) is float:        # a plain number is in µm already (fit-time path)
@@ -123,7 +126,7 @@ class SizeDistribution:
 
     def _check(self):
         lo, hi = self.support()
-        if not (0 < lo < hi and np.isfinite(hi)):
+        if not (0 < lo < hi and math.isfinite(hi)):
             raise PhysicsDataError(f"{self!r}: need 0 < amin < amax")
 
     def __getattr__(self, name):
@@ -138,6 +141,11 @@ class SizeDistribution:
 
     def shape(self, a_um):
         """Unnormalised n(a), per µm, on the support (vectorised)."""
+
+    def _shape_nodes(self, a, ln_a):
+        """:meth:`shape` at radii ``a`` whose logarithms ``ln_a`` are known
+        (the integration nodes); a family may use them to save work."""
+        return self.shape(a)
         raise NotImplementedError
 
     def pdf(self, a_um):
@@ -195,6 +203,11 @@ class PowerLaw(SizeDistribution):
     def shape(self, a_um):
         a = np.asarray(a_um, dtype=float)
         return a ** (-self.values["index"])
+
+    def _shape_nodes(self, a, ln_a):
+        # a^-q as exp(-q ln a): one exp instead of a pow (equal to rounding)
+        out = ln_a * (-self.values["index"])
+        return np.exp(out, out=out)
 
 
 #: The default: MRN, q = 3.5 from 0.005 to 0.25 µm (Mathis, Rumpl & Nordsieck 1977).
@@ -407,6 +420,25 @@ def _moments_loop(f, half, a, uu, u_left, glw, power, mom):
         mom[k, 3] = m3
 
 
+def _weights_loop(f, half, a, uu, u_left, glw, power, mom, coef, inv_ap, w):
+    """The moments (:func:`_moments_loop`) and their contraction with the
+    spline coefficients of the support's intervals, ``coef`` (interval,
+    power, radius), divided by a^p: the weights W into ``w`` (compiled by
+    numba; the same sums as the NumPy product of :meth:`SizeGrid.weights`,
+    accumulated interval by interval)."""
+    _moments_loop(f, half, a, uu, u_left, glw, power, mom)
+    m_size = w.size
+    for m in range(m_size):
+        w[m] = 0.0
+    for k in range(mom.shape[0]):
+        for j in range(4):
+            c = mom[k, j]
+            for m in range(m_size):
+                w[m] += c * coef[k, j, m]
+    for m in range(m_size):
+        w[m] *= inv_ap[m]
+
+
 def _nodes_loop(u, ulo, uhi, glx, uu, half):
     """:meth:`SizeGrid._nodes_numpy` as one loop: fills uu[:nk], half[:nk]
     and returns (k0, nk)."""
@@ -440,7 +472,9 @@ def _numba_kernels():
     """The compiled :func:`_moments_loop` and :func:`_nodes_loop` (None when
     numba is missing or ``EDGEFIT_NO_NUMBA`` is set: the NumPy lines of
     :meth:`SizeGrid.weights` run instead)."""
-    return {"moments": _jit.jit(_moments_loop), "nodes": _jit.jit(_nodes_loop)}
+    moments = _jit.jit(_moments_loop)
+    return {"moments": moments, "nodes": _jit.jit(_nodes_loop),
+            "weights": _jit.jit(_weights_loop, globals={"_moments_loop": moments})}
 
 
 class SizeGrid:
@@ -516,15 +550,19 @@ class SizeGrid:
             a = np.exp(uu)
         else:
             k0, k1, uu, half, a = self._nodes_numpy(ulo, uhi)
-        f = dist.shape(a)
+        f = dist._shape_nodes(a, uu)
         if not (isinstance(f, np.ndarray) and f.dtype == float and f.flags.owndata
                 and f.flags.writeable and f.shape == a.shape):
             f = np.array(np.broadcast_to(f, a.shape), dtype=float)   # overwritten below
         if kern is not None:
-            mom = np.empty((k1 - k0 + 1, 4))
-            kern["moments"](f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power, mom)
-        else:
-            mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
+            # moments and their contraction with the spline coefficients in
+            # one compiled call
+            w = np.empty(self.a.size)
+            kern["weights"](f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power,
+                            np.empty((k1 - k0 + 1, 4)), self._coef_by_interval()[k0:k1 + 1],
+                            self._inv_a_power(), w)
+            return w
+        mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
         w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
         w /= a_p
         return w
@@ -553,6 +591,13 @@ class SizeGrid:
         if cached is None or cached[0] != self.power:
             cached = (self.power, self.a ** self.power)
             self._a_p = cached
+        return cached[1]
+
+    def _inv_a_power(self):
+        cached = self.__dict__.get("_inv_a_p")
+        if cached is None or cached[0] != self.power:
+            cached = (self.power, 1.0 / self._a_power())
+            self._inv_a_p = cached
         return cached[1]
 
     def _coef_by_interval(self):

@@ -15,8 +15,11 @@ in :meth:`precompute`.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from .. import _jit
 from .._units import HC_KEV_ANGSTROM, as_kev
 from ..errors import ModelError
 from ..physics import abundances as _ab
@@ -124,12 +127,18 @@ class SmoothISM(Component):
         # the last combined cross section, keyed by mol_frac (usually fixed)
         return [m * _NH_UNIT, h1 * _NH_UNIT, 0.5 * h2 * _NH_UNIT, None, None]
 
-    def _evaluate(self, grid, pre, nh, mol_frac):
+    def has_log_transmission(self) -> bool:
+        return True
+
+    def _log_transmission(self, grid, pre, nh, mol_frac):
         if pre[3] != mol_frac:
             m, h1, h2half = pre[:3]
             pre[4] = -(m + (1.0 - mol_frac) * h1 + mol_frac * h2half)
             pre[3] = mol_frac
-        out = pre[4] * nh
+        return pre[4] * nh
+
+    def _evaluate(self, grid, pre, nh, mol_frac):
+        out = self._log_transmission(grid, pre, nh, mol_frac)
         return np.exp(out, out=out)
 
     def optical_depth(self, energy_kev, **values):
@@ -154,6 +163,36 @@ def _line_params(n_lines):
                 Param(f"line{i}_fwhm", 0.5, 1e-3, 100.0, "eV",
                       f"Lorentzian FWHM of line {i}")]
     return tuple(out)
+
+
+def _gas_log_transmission_loop(x, s, log_e, log_f2, const, col, out):
+    """−N σ(E − s) at the bin centres ``x``: :meth:`GasEdge._sigma_shifted`
+    (f2 interpolated linearly in log-log like ``np.interp``) and the
+    product with the column, in one loop over the increasing ``x``
+    (compiled by numba)."""
+    j = 0
+    last = log_e.size - 1
+    for i in range(x.size):
+        e = x[i] - s
+        le = math.log(e)
+        while j < last - 1 and log_e[j + 1] <= le:
+            j += 1
+        if le >= log_e[last]:
+            f = log_f2[last]
+        elif le <= log_e[0]:
+            f = log_f2[0]
+        else:
+            slope = (log_f2[j + 1] - log_f2[j]) / (log_e[j + 1] - log_e[j])
+            f = slope * (le - log_e[j]) + log_f2[j]
+        sig = const / e
+        sig *= math.exp(f)
+        out[i] = sig * (-col)
+
+
+@_jit.kernels
+def _numba_kernels():
+    """The compiled gas-edge kernel (None without numba)."""
+    return {"gas": _jit.jit(_gas_log_transmission_loop)}
 
 
 class GasEdge(Component):
@@ -256,13 +295,27 @@ class GasEdge(Component):
         area = n_z * s * 1e-18 * 1e-3          # cm^-2 * cm^2 keV -> keV
         return c, area, np.zeros_like(c), 0.5 * w * 1e-3
 
-    def _evaluate(self, grid, pre, **v):
-        col, shift = v["col"], v["shift"]
+    def has_log_transmission(self) -> bool:
+        return not self.n_lines       # the lines' transmission is bin-averaged
+
+    def _log_transmission(self, grid, pre, **v):
+        shift = v["shift"]
         if shift == 0.0:
-            sig = pre["sigma0"]
-        else:
-            sig = self._sigma_shifted(pre, shift)
-        trans = sig * (-col)
+            return pre["sigma0"] * (-v["col"])
+        kern = _numba_kernels()
+        if kern is not None:
+            x = pre["x"]
+            emin, emax, log_e, log_f2 = pre["table"]
+            s = shift * 1e-3
+            if x[0] - s >= emin and x[-1] - s <= emax:
+                out = np.empty(x.size)
+                kern["gas"](x, s, log_e, log_f2, _SIGMA_CONST, v["col"], out)
+                return out
+        return self._sigma_shifted(pre, shift) * (-v["col"])
+
+    def _evaluate(self, grid, pre, **v):
+        col = v["col"]
+        trans = self._log_transmission(grid, pre, **v)
         np.exp(trans, out=trans)
         if self.n_lines and col > 0:
             c, area, s, g = self._line_arrays(v, col * _EDGE_COL_UNIT)

@@ -226,6 +226,20 @@ class Component(ModelNode):
         # subclasses name their parameters: _evaluate(self, grid, pre, nh, ...)
         raise NotImplementedError
 
+    def has_log_transmission(self) -> bool:
+        """True when :meth:`_log_transmission` gives ln T of this
+        (multiplicative) component, so that a compiled product of such
+        components sums logarithms and takes one exponential
+        (:class:`CompiledModel`).  Default False."""
+        return False
+
+    def _log_transmission(self, grid: EnergyGrid, pre: Any, **values: Any) -> np.ndarray:
+        """ln of the transmission (−τ per bin) with the arguments of
+        :meth:`_evaluate`, for components whose :meth:`has_log_transmission`
+        is True; the exponential of it must be :meth:`_evaluate`'s output
+        (to rounding).  The array may be cached but is never changed."""
+        raise NotImplementedError
+
     def optical_depth(self, energy_kev, **values) -> np.ndarray:
         """Optical depth at the given energies (keV) for multiplicative
         absorbers, with ``values`` by short parameter name (missing ones take
@@ -353,9 +367,10 @@ class _Leaf:
     """One component of a :class:`CompiledModel`: its slots in the value
     list and the last output, reused while its own values do not change."""
 
-    __slots__ = ("comp", "grid", "pre", "shorts", "idx", "key", "out", "changed", "plain")
+    __slots__ = ("comp", "grid", "pre", "shorts", "idx", "key", "out", "changed", "plain",
+                 "func")
 
-    def __init__(self, comp, grid, index):
+    def __init__(self, comp, grid, index, log=False):
         self.comp = comp
         self.grid = grid
         self.pre = comp.prepared(grid)
@@ -366,6 +381,8 @@ class _Leaf:
         self.changed = True
         # a subclass that overrides evaluate() itself is called through it
         self.plain = type(comp).evaluate is Component.evaluate
+        # with ``log``, the leaf gives ln T (see Component.has_log_transmission)
+        self.func = comp._log_transmission if log else comp._evaluate
 
     def __call__(self, vals):
         key = tuple([vals[i] for i in self.idx])
@@ -373,7 +390,7 @@ class _Leaf:
             self.changed = False
             return self.out
         if self.plain:
-            out = self.comp._evaluate(self.grid, self.pre, **dict(zip(self.shorts, key)))
+            out = self.func(self.grid, self.pre, **dict(zip(self.shorts, key)))
         else:
             prefix = self.comp.name + "_"
             out = self.comp.evaluate(self.grid, {prefix + k: v for k, v in
@@ -415,6 +432,35 @@ class _Node:
         return out
 
 
+def _defined_in(cls, name):
+    """The class of ``cls``'s MRO whose namespace defines ``name``."""
+    return next(k for k in cls.__mro__ if name in k.__dict__)
+
+
+class _Exp:
+    """exp of a compiled sum of log transmissions, written into its own
+    buffer and recomputed only when the sum changed."""
+
+    __slots__ = ("child", "out", "changed")
+
+    def __init__(self, child):
+        self.child = child
+        self.out = None
+        self.changed = True
+
+    def __call__(self, vals):
+        t = self.child(vals)
+        if self.out is not None and not self.child.changed:
+            self.changed = False
+            return self.out
+        out = self.out
+        if out is None or out.shape != np.shape(t) or out is t:
+            out = np.empty(np.shape(t))
+        np.exp(t, out=out)
+        self.out, self.changed = out, True
+        return out
+
+
 class CompiledModel:
     """A model bound to one energy grid and evaluated from a flat list of
     parameter values (the hot loop of a fit: no dicts of full names, no
@@ -426,8 +472,13 @@ class CompiledModel:
     values did not change since the previous call returns its previous
     output unchanged (components are pure functions of grid and values),
     and products and sums are written into buffers owned by this object.
-    The arithmetic is that of :meth:`ModelNode.evaluate` (same operands,
-    same order), so the results are identical.
+    A product of two or more absorbers that give their log transmission
+    (:meth:`Component.has_log_transmission`: the smooth ISM, gas edges
+    without lines, dust edges) is evaluated as the exponential of the sum
+    of their logarithms, one exponential instead of one per absorber;
+    otherwise the arithmetic is that of :meth:`ModelNode.evaluate` (same
+    operands, same order).  Results agree with :meth:`ModelNode.evaluate`
+    to rounding (exp(a + b) against exp(a) exp(b)).
 
     The array returned may be reused by the next call: copy it to keep it.
     """
@@ -444,8 +495,31 @@ class CompiledModel:
     def _build(cls, node, grid, index):
         if isinstance(node, Component):
             return _Leaf(node, grid, index)
+        if cls._log_product(node):
+            return _Exp(cls._build_log(node, grid, index))
         return _Node(cls._build(node.left, grid, index), cls._build(node.right, grid, index),
                      node.op == "*")
+
+    @classmethod
+    def _log_product(cls, node):
+        """True for a component or product whose every factor gives its log
+        transmission."""
+        if isinstance(node, Component):
+            cls_ = type(node)
+            # a subclass that overrides _evaluate but not _log_transmission
+            # keeps its own _evaluate
+            return (node.kind == MULTIPLICATIVE and cls_.evaluate is Component.evaluate
+                    and _defined_in(cls_, "_evaluate") is _defined_in(cls_, "_log_transmission")
+                    and node.has_log_transmission())
+        return (isinstance(node, CompositeModel) and node.op == "*"
+                and cls._log_product(node.left) and cls._log_product(node.right))
+
+    @classmethod
+    def _build_log(cls, node, grid, index):
+        if isinstance(node, Component):
+            return _Leaf(node, grid, index, log=True)
+        return _Node(cls._build_log(node.left, grid, index),
+                     cls._build_log(node.right, grid, index), False)
 
     def __call__(self, vals) -> np.ndarray:
         """Model on the grid for ``vals`` (a list of floats in ``names`` order)."""

@@ -361,9 +361,15 @@ class DustEdge(Component):
         cache = pre.setdefault("weights", {})
         hit = cache.get(key)
         if hit is None:
+            from ..dust.sizes import make_distribution
+
             try:
-                w = table.sizes.weights(self.distribution(**{k: values[k]
-                                                             for k in self._dist_names}))
+                if self.fixed_distribution is not None:
+                    dist = self.fixed_distribution
+                else:       # ``values`` holds every parameter: no merging needed
+                    dist = make_distribution(self.family,
+                                             **{k: values[k] for k in self._dist_names})
+                w = table.sizes.weights(dist)
             except PhysicsDataError as exc:
                 raise ModelError(f"{self.name}: {exc}") from exc
             atoms = 4.0 * math.pi / 3.0 * float(pre["a3"] @ w) * pre["atoms_per_um3"]
@@ -411,8 +417,8 @@ class DustEdge(Component):
         return {"table": table, "pre": pre, "x": grid.mid, "rows": (r0, r1),
                 "shift_range": (sp.min, sp.max), "shapes": {}}
 
-    def _evaluate(self, grid, pre, **values):
-        """exp(−N_Z,dust u(E − shift)), with u the optical depth per unit
+    def _log_transmission(self, grid, pre, **values):
+        """−N_Z,dust u(E − shift) (the log of the transmission), with u the optical depth per unit
         column interpolated from the table (cached per distribution, f_in
         and shift, so a change of the column alone costs one multiply and
         one exp over the grid)."""
@@ -428,7 +434,13 @@ class DustEdge(Component):
             u = np.interp(pre["x"] - shift * 1e-3, pre["pre"]["energy"][rows[0]:rows[1]],
                           per_col)
             _remember(shapes, key, u, self.fast_cache_size)
-        tau = u * (-(values["col"] * 1e16))
+        return u * (-(values["col"] * 1e16))
+
+    def has_log_transmission(self) -> bool:
+        return True
+
+    def _evaluate(self, grid, pre, **values):
+        tau = self._log_transmission(grid, pre, **values)
         return np.exp(tau, out=tau)
 
     def optical_depth(self, energy_kev, **values):

@@ -481,6 +481,12 @@ class MultiEdgeDust(Component):
             tau = tau + np.interp(x, m["energy"], t)
         return tau
 
+    def has_log_transmission(self) -> bool:
+        return True
+
+    def _log_transmission(self, grid, pre, **values):
+        return np.negative(self._tau_on(pre, pre["x"], values))
+
     def _evaluate(self, grid, pre, **values):
         return np.exp(-self._tau_on(pre, pre["x"], values))
 
