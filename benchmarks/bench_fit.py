@@ -12,6 +12,8 @@ Prints (no assertions):
   of the same datasets (SciPy CSR matrix @ vector), all side by side in
   the same run, as medians of several repeats; target: time per
   evaluation <= 2.5x the floor;
+* a self-check that the numbers have not moved: check_fit_numbers.py against
+  the stored reference (1e-10 relative);
 * with --processes N, the MCMC throughput serial vs a pool.
 
 Data: invented, SIMULATED values (no real source).  Run:
@@ -20,6 +22,8 @@ Data: invented, SIMULATED values (no real source).  Run:
 from __future__ import annotations
 
 import argparse
+import os
+import sys
 import time
 import warnings
 
@@ -30,6 +34,8 @@ from edgefit.errors import ConvergenceWarning, ShortChainWarning
 from edgefit.inference import Dataset, JointLikelihood, fit_sightline, run_mcmc
 from edgefit.inference.likelihood import ParameterVector
 from edgefit.models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 
 TRUTH = {"ism_nh": 2.0, "gas_si_col": 6.0, "gas_si_shift": 0.0, "dust_col": 30.0,
          "dust_amax": 0.3, "dust_index": 3.5, "dust_shift": 2.0, "continuum_index": 1.7,
@@ -177,6 +183,17 @@ def main(argv=None):
     col = [dict(base, dust_col=base["dust_col"] * (1 + 1e-3 * k)) for k in range(100)]
     t_col = per_call(lambda v: dust.evaluate(unions[0], v), col)
     print(f"   dust component when only its column changes: {1e3 * t_col:.3f} ms")
+
+    # results unchanged: the fit path's numbers against the stored reference
+    # (check_fit_numbers.py; reference written by the code before the
+    # speed work on the vector path)
+    import check_fit_numbers
+
+    worst, ok = check_fit_numbers.self_check()
+    print(f"self-check: statistic, residuals, model values and expected counts on this "
+          f"sightline and 16 small configurations agree with "
+          f"results/fit_numbers.npz to {worst:.1e} relative "
+          f"({'within' if ok else 'OUTSIDE'} {check_fit_numbers.TOLERANCE:g})")
 
     if args.processes:
         with warnings.catch_warnings():

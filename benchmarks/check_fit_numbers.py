@@ -183,6 +183,15 @@ def compare(new, ref):
     return report
 
 
+def self_check(ref=DEFAULT_REF):
+    """(largest relative deviation from the reference file, within the
+    tolerance?) for the current code."""
+    with np.load(ref) as r:
+        report = compare(collect(), r)
+    worst = max(report.values())
+    return worst, worst <= TOLERANCE
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--write", metavar="JSON", help="write the reference numbers here")
