@@ -420,24 +420,59 @@ def _moments_loop(f, half, a, uu, u_left, glw, power, mom):
         mom[k, 3] = m3
 
 
-def _weights_loop(f, half, a, uu, u_left, glw, power, mom, coef, band_lo, band_hi, inv_ap,
-                  w):
-    """The moments (:func:`_moments_loop`) and their contraction with the
-    spline coefficients of the support's intervals, ``coef`` (interval,
-    power, radius), divided by a^p: the weights W into ``w`` (compiled by
-    numba; the sums of the NumPy product of :meth:`SizeGrid.weights`,
-    accumulated interval by interval over the radii band_lo[k] ..
-    band_hi[k] - 1 outside which interval k's coefficients are below 1e-20
-    of their largest, :meth:`SizeGrid._bands`)."""
-    _moments_loop(f, half, a, uu, u_left, glw, power, mom)
-    for m in range(w.size):
+def _weights_loop(f, half, a, uu, k0, u, glw, power, mom, fac, inv_ap, w):
+    """The moments (:func:`_moments_loop`) of the support's grid intervals
+    k0, k0+1, ... and the weights W = (S^T mom) / a^p into ``w``, S the
+    linear map from tabulated values to the not-a-knot spline's
+    coefficients, applied transposed: the chain rule through the
+    coefficients, the slopes and the spline's tridiagonal system (solved
+    transposed with the factors of :meth:`SizeGrid._adjoint_factors`),
+    O(grid size) instead of the product with the dense coefficients of
+    :meth:`SizeGrid.weights`' NumPy path (equal to rounding).  Compiled by
+    numba."""
+    _moments_loop(f, half, a, uu, u[k0:k0 + mom.shape[0]], glw, power, mom)
+    n = u.size
+    dx = fac[0]
+    upper = fac[1]
+    mult = fac[2]
+    piv = fac[3]
+    d0 = u[2] - u[0]
+    d1 = u[n - 1] - u[n - 3]
+    gs = np.zeros(n)
+    sl = np.zeros(n - 1)
+    for m in range(n):
         w[m] = 0.0
-    for k in range(mom.shape[0]):
-        for j in range(4):
-            c = mom[k, j]
-            for m in range(band_lo[k], band_hi[k]):
-                w[m] += c * coef[k, j, m]
-    for m in range(w.size):
+    # value = sum_k m0 c0 + m1 c1 + m2 c2 + m3 c3 with, per interval k,
+    # t = (s_k + s_k+1 - 2 slope_k) / h, c0 = t / h,
+    # c1 = (slope_k - s_k) / h - t, c2 = s_k, c3 = y_k
+    for i in range(mom.shape[0]):
+        k = k0 + i
+        h = dx[k]
+        gt = mom[i, 0] / h - mom[i, 1]
+        sl[k] += mom[i, 1] / h - 2.0 * gt / h
+        gs[k] += mom[i, 2] - mom[i, 1] / h + gt / h
+        gs[k + 1] += gt / h
+        w[k] += mom[i, 3]
+    # through the slopes' system A s = b: z = A^-T gs
+    for k in range(1, n):
+        gs[k] -= mult[k] * gs[k - 1]
+    gs[n - 1] /= piv[n - 1]
+    for k in range(n - 2, -1, -1):
+        gs[k] = (gs[k] - upper[k] * gs[k + 1]) / piv[k]
+    # b from the secant slopes (not-a-knot first and last rows)
+    sl[0] += (dx[0] + 2.0 * d0) * dx[1] / d0 * gs[0]
+    sl[1] += dx[0] * dx[0] / d0 * gs[0]
+    for k in range(1, n - 1):
+        sl[k - 1] += 3.0 * dx[k] * gs[k]
+        sl[k] += 3.0 * dx[k - 1] * gs[k]
+    sl[n - 3] += dx[n - 2] * dx[n - 2] / d1 * gs[n - 1]
+    sl[n - 2] += (2.0 * d1 + dx[n - 2]) * dx[n - 3] / d1 * gs[n - 1]
+    # secant slopes from the tabulated values
+    for k in range(n - 1):
+        g = sl[k] / dx[k]
+        w[k + 1] += g
+        w[k] -= g
+    for m in range(n):
         w[m] *= inv_ap[m]
 
 
@@ -577,13 +612,12 @@ class SizeGrid:
                 and f.flags.writeable and f.shape == a.shape):
             f = np.array(np.broadcast_to(f, a.shape), dtype=float)   # overwritten below
         if kern is not None:
-            # moments and their contraction with the spline coefficients in
-            # one compiled call
+            # moments and the weights in one compiled call (the spline map
+            # applied transposed, not as a dense product)
             w = np.empty(self.a.size)
-            band_lo, band_hi = self._bands()
-            kern["weights"](f, half, a, uu, self.u[k0:k1 + 1], _GL_W, self.power,
-                            np.empty((k1 - k0 + 1, 4)), self._coef_by_interval()[k0:k1 + 1],
-                            band_lo[k0:k1 + 1], band_hi[k0:k1 + 1], self._inv_a_power(), w)
+            kern["weights"](f, half, a, uu, k0, self.u, _GL_W, self.power,
+                            np.empty((k1 - k0 + 1, 4)), self._adjoint_factors(),
+                            self._inv_a_power(), w)
             return w
         mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
         w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
@@ -623,24 +657,34 @@ class SizeGrid:
             self._inv_a_p = cached
         return cached[1]
 
-    #: Coefficients of a grid interval's spline cardinal functions smaller
-    #: than this fraction of the interval's largest are left out of the
-    #: compiled contraction (they decay by ~0.27 per interval on a
-    #: log-spaced grid: about 37 intervals each side of 160 are kept).
-    BAND_CUT = 1e-20
-
-    def _bands(self):
-        """Per grid interval k, the radii [lo_k, hi_k) whose spline
-        coefficients reach BAND_CUT of the interval's largest."""
-        b = self.__dict__.get("_band")
-        if b is None:
-            mag = np.abs(self._coef_by_interval()).max(axis=1)        # (interval, radius)
-            big = mag > self.BAND_CUT * mag.max(axis=1, keepdims=True)
-            idx = np.arange(self.a.size)
-            lo = np.where(big, idx, self.a.size).min(axis=1)
-            hi = np.where(big, idx, -1).max(axis=1) + 1
-            b = self._band = (lo.astype(np.int64), hi.astype(np.int64))
-        return b
+    def _adjoint_factors(self):
+        """(4, M) array: interval widths in ln a, and the upper diagonal,
+        elimination multipliers and pivots of the transposed tridiagonal
+        system of the not-a-knot spline's slopes (the system scipy's
+        CubicSpline solves), for :func:`_weights_loop`."""
+        fac = self.__dict__.get("_adj")
+        if fac is None:
+            x = self.u
+            n = x.size
+            dx = np.diff(x)
+            diag = np.empty(n)
+            diag[0], diag[-1] = dx[1], dx[-2]
+            diag[1:-1] = 2.0 * (dx[:-1] + dx[1:])
+            lower = np.zeros(n)           # of A^T: A[k-1, k]
+            lower[1] = x[2] - x[0]
+            lower[2:] = dx[:-1]
+            upper = np.zeros(n)           # of A^T: A[k+1, k]
+            upper[:n - 2] = dx[1:]
+            upper[n - 2] = x[-1] - x[-3]
+            mult = np.zeros(n)
+            piv = np.empty(n)
+            piv[0] = diag[0]
+            for k in range(1, n):
+                mult[k] = lower[k] / piv[k - 1]
+                piv[k] = diag[k] - mult[k] * upper[k - 1]
+            fac = self._adj = np.ascontiguousarray(
+                np.stack([np.append(dx, 0.0), upper, mult, piv]))
+        return fac
 
     def _coef_by_interval(self):
         """Spline coefficients as (interval, power, radius), contiguous."""

@@ -233,7 +233,8 @@ class Component(ModelNode):
         (:class:`CompiledModel`).  Default False."""
         return False
 
-    def _log_transmission(self, grid: EnergyGrid, pre: Any, **values: Any) -> np.ndarray:
+    def _log_transmission(self, grid: EnergyGrid, pre: Any, *args: Any,
+                          **values: Any) -> np.ndarray:
         """ln of the transmission (−τ per bin) with the arguments of
         :meth:`_evaluate`, for components whose :meth:`has_log_transmission`
         is True; the exponential of it must be :meth:`_evaluate`'s output
