@@ -155,6 +155,40 @@ def test_cache_roundtrip_and_key(tmp_path, monkeypatch):
     assert os.path.getsize(files[0]) > 100
 
 
+def test_reading_a_cached_table_again_reuses_it_until_its_bytes_change(tmp_path, monkeypatch):
+    """A table file read twice in one process is parsed once (the second
+    table shares the arrays, and its own size grid copy); the same file
+    rewritten with other numbers -- size and header unchanged -- is read
+    again, and its content digest is that of the new numbers."""
+    monkeypatch.setenv("EDGEFIT_CACHE_DIR", str(tmp_path))
+    e = np.array([1.80, 1.85, 1.90])
+    sizes = SizeGrid.log(0.002, 1.0, 12)
+    load_or_build("olivine", e, sizes, progress=False)
+    t1 = load_or_build("olivine", e, sizes)
+    t2 = load_or_build("olivine", e, sizes)
+    assert t2.sigma_abs is t1.sigma_abs and t2.g is t1.g
+    assert t2.sizes is not t1.sizes and t2.sizes.a is t1.sizes.a
+    ident = tables_mod.table_identity(t1)
+    expect = tables_mod._content_digest(t1.energy_kev, t1.sizes.a, t1.sigma_abs,
+                                        t1.sigma_sca, t1.g)
+    assert ident["content"] == expect and tables_mod.table_identity(t2) == ident
+
+    path = t1.meta["path"]
+    with np.load(path) as f:
+        arrays = {k: f[k] for k in f.files}
+    arrays["sigma_abs"] = arrays["sigma_abs"] * 1.02
+    np.savez(path, **arrays)   # uncompressed: same size for arrays of the same shapes
+    size = os.path.getsize(path)
+    t3 = load_or_build("olivine", e, sizes)
+    assert t3.sigma_abs is not t1.sigma_abs
+    np.testing.assert_array_equal(t3.sigma_abs, t1.sigma_abs * 1.02)
+    assert tables_mod.table_identity(t3)["content"] != ident["content"]
+    np.savez(path, **dict(arrays, sigma_abs=arrays["sigma_abs"] / 1.02 * 1.03))
+    assert os.path.getsize(path) == size
+    t4 = load_or_build("olivine", e, sizes)
+    np.testing.assert_allclose(t4.sigma_abs, t1.sigma_abs * 1.03, rtol=1e-12, atol=0)
+
+
 def test_shielding_table():
     # Small grains: ratio -> 1 (no shielding; 1 %); the ratio falls with size
     # for absorption; at 3 um it is far below 1 (grain optically thick at the

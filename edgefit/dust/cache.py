@@ -14,9 +14,12 @@ writes.
 """
 from __future__ import annotations
 
+import copy
 import hashlib
+import io
 import json
 import os
+from collections import OrderedDict
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -67,22 +70,27 @@ def table_identity(table: DustTable) -> dict:
     (energies, radii, both cross sections and g).  Two tables with the same
     identity hold the same numbers; a table rebuilt differently (another
     version, other optical constants, edited on disk) gets another one.
-    The content digest is computed once per table object (kept in
-    ``table.meta``, never stored in the cache file: it is always computed
-    from the numbers read)."""
+    The content digest is computed from the numbers, never stored in the
+    cache file: once per table object built in memory (kept in
+    ``table.meta``), and on reading a cache file once per process and file
+    content (:func:`load`)."""
     content = table.meta.get(_CONTENT)
     if content is None:
-        h = hashlib.blake2b(digest_size=16)
-        for arr in (table.energy_kev, table.sizes.a, table.sigma_abs, table.sigma_sca,
-                    table.g):
-            a = np.ascontiguousarray(arr, dtype=float)
-            h.update(str(a.shape).encode())
-            h.update(a.tobytes())
-        content = h.hexdigest()
-        table.meta[_CONTENT] = content
+        content = table.meta[_CONTENT] = _content_digest(
+            table.energy_kev, table.sizes.a, table.sigma_abs, table.sigma_sca, table.g)
     return {"material": table.material.name, "material_digest": table.material.digest(),
             "format": table.meta.get("format", TABLE_FORMAT_VERSION),
             "built_by": table.meta.get("edgefit"), "content": content}
+
+
+def _content_digest(*arrays) -> str:
+    """Digest of a table's numbers (energies, radii, both cross sections, g)."""
+    h = hashlib.blake2b(digest_size=16)
+    for arr in arrays:
+        a = np.ascontiguousarray(arr, dtype=float)
+        h.update(str(a.shape).encode())
+        h.update(a.tobytes())
+    return h.hexdigest()
 
 
 def table_path(material, energy_kev, sizes, method="auto", rtol=None, directory=None):
@@ -108,16 +116,52 @@ def save(table: DustTable, path, key):
     os.replace(tmp, path)
 
 
-def load(path, material, key):
-    """The table stored at ``path`` if its header carries ``key``, else None."""
-    with np.load(path, allow_pickle=False) as data:
+#: Table files read in this process, by a digest of their bytes (at most
+#: :data:`_READ_KEEP`, the latest last): reading the same file again -- every
+#: sightline of a batch builds its model, in the main process and in the
+#: workers -- costs a hash of the bytes instead of decompressing the arrays,
+#: building the size grid's spline and digesting the numbers again.
+_READ: OrderedDict[str, tuple] = OrderedDict()
+_READ_KEEP = 8
+
+
+def _read(path) -> tuple:
+    """(header, energy, size grid, sigma_abs, sigma_sca, g) of the table
+    file at ``path``, the header with the content digest of the numbers;
+    the arrays are shared by every read of the same bytes (tables are never
+    written into; they stay writeable because numba compiles read-only
+    arrays as another type), the size grid is copied by :func:`load`, so no
+    two tables share its work arrays."""
+    with open(path, "rb") as fh:
+        raw = fh.read()
+    digest = hashlib.blake2b(raw, digest_size=20).hexdigest()
+    hit = _READ.get(digest)
+    if hit is not None:
+        _READ.move_to_end(digest)
+        return hit
+    with np.load(io.BytesIO(raw), allow_pickle=False) as data:
         header = json.loads(str(data["header"]))
-        if header.get("key") != key:
-            return None
-        return DustTable(material, data["energy_kev"], SizeGrid(data["size_um"]),
-                         data["sigma_abs"], data["sigma_sca"], data["g"],
-                         {k: v for k, v in header.items() if k not in ("key", _CONTENT)}
-                         | {"path": path})
+        arrays = [np.array(data[k]) for k in ("energy_kev", "size_um", "sigma_abs",
+                                               "sigma_sca", "g")]
+    energy, size_um, sigma_abs, sigma_sca, g = arrays
+    header[_CONTENT] = _content_digest(energy, size_um, sigma_abs, sigma_sca, g)
+    item = (header, energy, SizeGrid(size_um), sigma_abs, sigma_sca, g)
+    _READ[digest] = item
+    while len(_READ) > _READ_KEEP:
+        _READ.popitem(last=False)
+    return item
+
+
+def load(path, material, key):
+    """The table stored at ``path`` if its header carries ``key``, else None.
+
+    A file this process read before with the same bytes is not parsed
+    again: the new table shares its arrays."""
+    header, energy, sizes, sigma_abs, sigma_sca, g = _read(path)
+    if header.get("key") != key:
+        return None
+    return DustTable(material, energy, copy.copy(sizes), sigma_abs, sigma_sca, g,
+                     {k: v for k, v in header.items() if k != "key"} | {"path": path})
 
 
 def load_cached(material, energy_kev, sizes=None, *, method="auto", rtol=None):

@@ -25,6 +25,8 @@ material's elements inside the range, which the atomic tables refine to
 from __future__ import annotations
 
 import concurrent.futures as cf
+import copy
+import functools
 import time
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
@@ -178,10 +180,17 @@ def grain_cross_sections(material, energies, sizes_um, method="auto", rtol=None)
     return np.stack([qabs * area, qsca * area, g])
 
 
+@functools.lru_cache(maxsize=1)
+def _default_size_grid() -> SizeGrid:
+    return SizeGrid.log(*DEFAULT_SIZE_GRID)
+
+
 def _as_size_grid(sizes) -> SizeGrid:
-    """A SizeGrid from None (:data:`DEFAULT_SIZE_GRID`), a SizeGrid or radii (µm)."""
+    """A SizeGrid from None (:data:`DEFAULT_SIZE_GRID`; a copy sharing the
+    radii and spline coefficients of one built per process), a SizeGrid or
+    radii (µm)."""
     if sizes is None:
-        return SizeGrid.log(*DEFAULT_SIZE_GRID)
+        return copy.copy(_default_size_grid())
     return sizes if isinstance(sizes, SizeGrid) else SizeGrid(sizes)
 
 
