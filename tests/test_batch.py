@@ -330,6 +330,44 @@ def test_local_cluster_equals_process_pool(tmp_path):
     assert list(pool["status"]) == ["ok"] * 3
 
 
+@pytest.mark.parametrize("no_numba", ["", "1"])
+def test_fork_server_preload_imports_cleanly_and_respects_no_numba(no_numba):
+    """Every module the pool's fork server preloads imports in a fresh
+    interpreter (the server would silently skip one that does not, and the
+    workers would pay for it), the first compiled call included; with
+    EDGEFIT_NO_NUMBA set, numba is not even imported."""
+    from edgefit.analysis import batch
+
+    code = ("import importlib, sys\n"
+            f"for m in {batch._PRELOAD!r}:\n"
+            "    importlib.import_module(m)\n"
+            "print('numba' in sys.modules, 'lmfit' in sys.modules)")
+    env = dict(os.environ, EDGEFIT_NO_NUMBA=no_numba)
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True,
+                         text=True, check=True).stdout.split()
+    assert out == [str(not no_numba), "True"]
+
+
+def test_pool_server_starts_before_the_manifest_is_read(tmp_path, monkeypatch):
+    """run_batch starts the local pool's fork server first, so that its
+    imports overlap the reading of the manifest; not for an in-process
+    run (workers=0)."""
+    from edgefit.analysis import batch
+
+    calls = []
+    monkeypatch.setattr(batch, "_start_pool_server", lambda: calls.append("server"))
+    real = batch.load_manifest
+    monkeypatch.setattr(batch, "load_manifest",
+                        lambda p: calls.append("manifest") or real(p))
+    m = write_sample(tmp_path, n=1, **FAST)
+    run_batch(m, tmp_path / "inline", workers=0, progress=False)
+    assert calls == ["manifest"]
+    calls.clear()
+    with pytest.raises(ConfigError):
+        run_batch(tmp_path / "missing.toml", tmp_path / "pool", workers=2, progress=False)
+    assert calls == ["server", "manifest"]
+
+
 def test_table_rewrites_are_throttled_but_never_lost(tmp_path, monkeypatch):
     from edgefit.analysis import batch
 

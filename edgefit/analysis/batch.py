@@ -242,9 +242,10 @@ def _sigterm_raises():
 
 
 #: Modules imported once in the fork server, so that workers start without
-#: importing them again (spawn would pay that in every worker).
+#: importing them again (spawn would pay that in every worker); the last
+#: one imports the libraries a fit first reaches for.
 _PRELOAD = ["edgefit.analysis.batch", "edgefit.analysis.pipeline", "edgefit.inference",
-            "edgefit.models", "edgefit.data"]
+            "edgefit.models", "edgefit.data", "edgefit.analysis._pool_preload"]
 
 
 def _pool_context():
@@ -257,6 +258,20 @@ def _pool_context():
         ctx.set_forkserver_preload(_PRELOAD)
         return ctx
     return get_context("spawn")
+
+
+def _start_pool_server():
+    """Start the fork server now, with the environment the workers get:
+    it imports :data:`_PRELOAD` (several CPU-seconds) while the main process
+    reads the manifest and hashes the inputs, instead of after.  Does
+    nothing where workers are spawned, or when the server runs already."""
+    ctx = _pool_context()
+    if ctx.get_start_method() != "forkserver":
+        return
+    from multiprocessing import forkserver
+
+    with _single_threaded_workers(True):
+        forkserver.ensure_running()
 
 
 @contextmanager
@@ -427,14 +442,16 @@ def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike 
     BatchInterrupted
         On Ctrl-C / SIGTERM, after the finished sightlines are safe.
     """
-    if not isinstance(manifest, Manifest):
-        manifest = load_manifest(manifest)
-    out = Path(output) if output is not None else default_output(manifest.path)
-    selected = manifest.select(only)
     if workers is None:
         workers = os.cpu_count() or 1
     if workers < 0:
         raise ArgumentError(f"workers must be >= 0, got {workers}")
+    if workers > 0 and scheduler is None:
+        _start_pool_server()   # its imports overlap the reading and hashing below
+    if not isinstance(manifest, Manifest):
+        manifest = load_manifest(manifest)
+    out = Path(output) if output is not None else default_output(manifest.path)
+    selected = manifest.select(only)
     (out / SIGHTLINES_DIR).mkdir(parents=True, exist_ok=True)
     shutil.rmtree(out / _WORK_DIR, ignore_errors=True)  # leftovers of a killed run
     # "totals" names how the table's total columns are bounded without
