@@ -368,6 +368,34 @@ def test_pool_server_starts_before_the_manifest_is_read(tmp_path, monkeypatch):
     assert calls == ["server", "manifest"]
 
 
+def test_refit_starts_the_costliest_sightlines_and_keeps_manifest_order(tmp_path, monkeypatch):
+    """Each row.json records the CPU seconds of its fit; a run that refits
+    starts with the sightlines whose last fit took longest (a new one
+    counts as the median), while the table stays in manifest order and
+    holds the same numbers as before."""
+    from edgefit.analysis import batch
+
+    m = write_sample(tmp_path, n=4, **FAST)
+    out = tmp_path / "out"
+    first = run_batch(m, out, workers=0, progress=False)
+    rows = {n: out / "sightlines" / n / "row.json" for n in first["name"]}
+    for n, p in rows.items():
+        assert json.loads(p.read_text())["fit_cpu_s"] > 0, n
+    assert "fit_cpu_s" not in first.colnames
+    # pretend costs: B03 longest, then B01, B04; B02 never fitted
+    for n, c in {"SIM-B01": 7.0, "SIM-B03": 9.0, "SIM-B04": 1.0}.items():
+        rec = json.loads(rows[n].read_text())
+        rows[n].write_text(json.dumps(dict(rec, fit_cpu_s=c)))
+    rows["SIM-B02"].unlink()
+    started = []
+    real = batch.fit_task
+    monkeypatch.setattr(batch, "fit_task", lambda t: started.append(t["name"]) or real(t))
+    again = run_batch(m, out, workers=0, progress=False, fresh=True)
+    assert started == ["SIM-B03", "SIM-B01", "SIM-B02", "SIM-B04"]
+    _assert_same_table(first, again)
+    assert list(again["name"]) == ["SIM-B01", "SIM-B02", "SIM-B03", "SIM-B04"]
+
+
 def test_table_rewrites_are_throttled_but_never_lost(tmp_path, monkeypatch):
     from edgefit.analysis import batch
 

@@ -76,6 +76,9 @@ SIGHTLINES_DIR = "sightlines"
 _WORK_DIR = ".work"
 #: Default least time (s) between two rewrites of the sample table during a run.
 TABLE_INTERVAL = 5.0
+#: ``row.json`` key of the CPU seconds the sightline's fit took (not a table
+#: column): a later run that refits it starts the costliest sightlines first.
+_COST_KEY = "fit_cpu_s"
 _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
                 "NUMBA_NUM_THREADS")
 
@@ -127,6 +130,7 @@ def fit_task(task):
     from .pipeline import run_sightline
     from .sample_table import sightline_row
 
+    cpu0 = time.process_time()
     tmp = Path(tempfile.mkdtemp(prefix="edgefit-sightline-"))
     seen = []
     try:
@@ -148,6 +152,7 @@ def fit_task(task):
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     row["input_hash"] = task["hash"]
+    row[_COST_KEY] = round(time.process_time() - cpu0, 3)
     return {"name": task["name"], "folder": task["folder"], "row": row, "files": files,
             "worker": _worker_usage()}
 
@@ -171,6 +176,20 @@ def _task(manifest, entry, digest, mcmc, plots, steps, figures):
             "index": entry.index, "name": entry.name, "folder": entry.folder,
             "table": entry.table, "hash": digest, "mcmc": mcmc, "plots": plots,
             "steps": steps, "figures": figures}
+
+
+def _costliest_first(entries, cost):
+    """``entries`` ordered by the CPU seconds of their last fit, longest
+    first, so that the last sightline to finish is a short one rather than
+    a long one running alone on an otherwise idle pool; a sightline never
+    fitted counts as the median of the others, ties keep manifest order.
+    The order of work only: results are kept by name and the table is in
+    manifest order."""
+    known = sorted(cost[e.name] for e in entries if e.name in cost)
+    if not known:
+        return list(entries)
+    typical = known[len(known) // 2]
+    return sorted(entries, key=lambda e: -cost.get(e.name, typical))
 
 
 def _read_record(out, entry):
@@ -460,12 +479,15 @@ def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike 
                "totals": "profile"}
     digests = {e.name: e.input_hash(options) for e in manifest}
     records = {}
+    cost = {}    # CPU seconds of each sightline's last fit, whatever its inputs were
     for e in manifest:
         rec = _read_record(out, e)
+        if rec is not None and isinstance(rec.get(_COST_KEY), (int, float)):
+            cost[e.name] = float(rec[_COST_KEY])
         if rec is not None and rec.get("input_hash") == digests[e.name]:
             records[e.name] = rec
-    todo = [e for e in selected
-            if fresh or e.name not in records or records[e.name]["status"] == "failed"]
+    todo = _costliest_first([e for e in selected if fresh or e.name not in records
+                             or records[e.name]["status"] == "failed"], cost)
     for e in todo:
         records.pop(e.name, None)
     hydrogen = {e.name: e.hydrogen for e in manifest}
