@@ -159,10 +159,12 @@ def _finite_stat(likelihood, params):
 
 
 #: Relative tolerances of :func:`local_minimum` (scipy's ``ftol``/``xtol``).
-#: The cost is half the statistic, so ftol = 1e-8 stops once an iteration
-#: lowers a statistic of ~1,000 by less than ~1e-5.
 LOCAL_FTOL = 1e-8
 LOCAL_XTOL = 1e-8
+#: :func:`local_minimum` restarts while a restart lowers the statistic by
+#: more than this (at most :data:`LOCAL_RESTARTS` restarts).
+LOCAL_RESTART_GAIN = 1e-3
+LOCAL_RESTARTS = 3
 
 
 def local_minimum(likelihood, params, *, ftol=LOCAL_FTOL, xtol=LOCAL_XTOL, max_nfev=None):
@@ -172,7 +174,17 @@ def local_minimum(likelihood, params, *, ftol=LOCAL_FTOL, xtol=LOCAL_XTOL, max_n
     The lean path for the many inner minimisations of profile scans and
     the extra starts of a global fit: no lmfit objects are built per
     evaluation and no covariance is computed.  Bounds are SciPy's own
-    (the same ones lmfit hands to ``least_squares``).  Returns
+    (the same ones lmfit hands to ``least_squares``).
+
+    The first pass scales its steps by the Jacobian's column norms
+    (``x_scale="jac"``), which halves the iterations down the flat
+    gas/dust/size valley but can stall where the valley bends towards a
+    bound (a grain size near the end of its table): it stops with the
+    statistic still several tenths, at worst a few units, above the
+    minimum.  So the minimisation is restarted from its end point with
+    unit scaling (a fresh trust region) while a restart lowers the
+    statistic by more than :data:`LOCAL_RESTART_GAIN`; a converged end
+    costs one Jacobian and a step or two to confirm.  Returns
     ``(Parameters at the end point, statistic, success)``; the statistic
     is ``inf`` where the model is not finite.
     """
@@ -183,18 +195,24 @@ def local_minimum(likelihood, params, *, ftol=LOCAL_FTOL, xtol=LOCAL_XTOL, max_n
     if not ev.free:
         return out, ev.statistic([]), True
     lower, upper = ev.lower, ev.upper
-    x0 = np.clip(ev.vector(params), lower, upper)
-    # x_scale="jac": steps scaled by the Jacobian's column norms, which
-    # halves the iterations in the flat gas/dust/size valley
+    theta = np.clip(ev.vector(params), lower, upper)
+    stat = math.inf
+    success = False
     with single_blas_thread():
-        sol = least_squares(ev.residuals, x0, bounds=(lower, upper), method="trf",
-                            x_scale="jac", ftol=ftol, xtol=xtol, gtol=1e-10,
-                            max_nfev=max_nfev)
-    theta = np.clip(sol.x, lower, upper)
-    stat = ev.statistic(theta)
+        for attempt in range(1 + LOCAL_RESTARTS):
+            sol = least_squares(ev.residuals, theta, bounds=(lower, upper), method="trf",
+                                x_scale="jac" if attempt == 0 else 1.0, ftol=ftol,
+                                xtol=xtol, gtol=1e-10, max_nfev=max_nfev)
+            end = np.clip(sol.x, lower, upper)
+            s_end = ev.statistic(end)
+            gain = stat - s_end
+            if s_end < stat or not math.isfinite(stat):
+                theta, stat, success = end, s_end, bool(sol.success)
+            if not (gain > LOCAL_RESTART_GAIN) or max_nfev is not None:
+                break
     for n, v in zip(ev.free, theta):
         out[n].set(value=float(v))
-    return out, stat, bool(sol.success) and math.isfinite(stat)
+    return out, stat, success and math.isfinite(stat)
 
 
 def minimise(likelihood, params, method="least_squares", fallback=True, max_nfev=None):

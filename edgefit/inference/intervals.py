@@ -24,11 +24,15 @@ kept (``multistart=True``, the default):
 Starts whose size parameters coincide (|Delta ln a| <= 0.15) with one
 already taken are skipped.  Each start begins a chain of warm-started
 minimisations: at each x every chain is minimised from its own nearest
-point, so it follows its valley cheaply; chains that arrive at the same
-point merge.  Each minimisation is SciPy's trust-region least squares on
-the free-parameter vector (:func:`~edgefit.inference.fit.local_minimum`,
-steps scaled by the Jacobian's columns, BLAS on one thread), with lmfit
-and its fallback minimisers only where that fails.
+point between the best fit and x (the profile is traced outward, so
+refinements between an inside and an outside point continue the inside
+point's valley), so it follows its valley cheaply; chains that arrive at
+the same point merge.  Each minimisation is SciPy's trust-region least
+squares on the free-parameter vector
+(:func:`~edgefit.inference.fit.local_minimum`: steps scaled by the
+Jacobian's columns, then restarted with unit scaling until a restart
+gains no more than 1e-3; BLAS on one thread), with lmfit and its
+fallback minimisers only where that fails.
 
 The scan
 --------
@@ -201,8 +205,7 @@ class ProfileScan:
         ends = []
         for k, chain in enumerate(self.chains):
             if chain:
-                near = min(chain, key=lambda c: abs(c - x))
-                start = chain[near]
+                start = chain[_warm_start_point(chain, x, self.best)]
             else:
                 start = self.seeds[k - 1]
             try:
@@ -241,6 +244,17 @@ class ProfileScan:
     def curve(self):
         xs = np.array(sorted(self.points))
         return xs, np.array([self.points[x][0] - self.s0 for x in xs])
+
+
+def _warm_start_point(chain, x, best):
+    """The chain's point to start the minimisation at ``x`` from: the
+    nearest one between the best fit and ``x`` (the profile is traced
+    outward from the best fit, so a refinement between an inside and an
+    outside point continues the inner one's valley instead of inheriting
+    a stalled outer one), or the nearest of all when the chain has none
+    on that side."""
+    inner = [c for c in chain if min(best, x) <= c <= max(best, x)]
+    return min(inner or chain, key=lambda c: abs(c - x))
 
 
 def _same_point(a, b, rtol=1e-6):
