@@ -34,10 +34,16 @@ def run_edges(args):
     path = Path(args.out)
     done = _load(path)
     if not args.report:
-        tasks = draw_tasks(args.n_si, "Si", args.seed, mcmc=args.mcmc)
+        wanted = {e.strip() for e in args.elements.split(",") if e.strip()}
+        unknown = wanted - {"Si", *OTHER_NH}
+        if unknown:
+            raise SystemExit(f"--elements: unknown edge(s) {sorted(unknown)}; "
+                             "choose from Si, Mg, Fe, O")
+        tasks = draw_tasks(args.n_si, "Si", args.seed, mcmc=args.mcmc) if "Si" in wanted else []
         for el in ("Mg", "Fe", "O"):
-            tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc,
-                                nh=OTHER_NH[el])
+            if el in wanted:
+                tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc,
+                                    nh=OTHER_NH[el])
         seen = {(r["task"]["element"], r["task"]["index"]) for r in done}
         todo = [t for t in tasks if (t["element"], t["index"]) not in seen]
         # interleave the edges so that a partial run covers all of them

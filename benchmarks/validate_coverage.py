@@ -34,10 +34,13 @@ size and overall with the 99 % binomial band.  The run uses a process
 pool (--workers, default 2), is seeded (--seed) and resumable: each
 finished sightline is one line of --out (JSON lines); a rerun skips the
 sightlines already there.  --report only prints the table of --out.
+--elements limits which edges get new sightlines (e.g. ``--elements O
+--n-other 100`` extends the O K sample alone; draws are sequential, so
+the first 50 of 100 are the 50 already run).
 
 Run:  python benchmarks/validate_coverage.py [--n 300] [--profile] [--sightline]
       python benchmarks/validate_coverage.py --edges [--n-si 200] [--n-other 50]
-             [--mcmc] [--workers 2] [--out coverage_edges.jsonl]
+             [--elements Si,Mg,Fe,O] [--mcmc] [--workers 2] [--out coverage_edges.jsonl]
 """
 from __future__ import annotations
 
@@ -67,6 +70,8 @@ def main(argv=None):
                     help="gas/dust separation with the grain size free at Si K, Mg K, Fe L, O K")
     ap.add_argument("--n-si", type=int, default=200)
     ap.add_argument("--n-other", type=int, default=50)
+    ap.add_argument("--elements", default="Si,Mg,Fe,O",
+                    help="edges that get new sightlines (comma-separated)")
     ap.add_argument("--mcmc", action="store_true", help="also MCMC intervals (slow)")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--out", default="coverage_edges.jsonl")

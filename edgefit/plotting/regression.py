@@ -107,7 +107,10 @@ def plot_regression_corner(result, path=None):
 
     labels = [lab("intercept"), lab("slope"), lab("scatter")]
     cols = [1, 2] if result.through_origin else [0, 1, 2]
-    fig = corner.corner(s[:, cols], labels=[labels[i] for i in cols],
+    # axes over the central 99.5 % of each marginal: the scatter's long
+    # tail otherwise squeezes every panel into a few bins (and leaves
+    # too few points for the contours)
+    fig = corner.corner(s[:, cols], labels=[labels[i] for i in cols], range=[0.995] * len(cols),
                         quantiles=[0.15865525393145708, 0.5, 0.8413447460685429],
                         show_titles=True, title_fmt=".3g", label_kwargs={"fontsize": 9},
                         title_kwargs={"fontsize": 8})
