@@ -149,6 +149,10 @@ def _mcmc_hits(tf, true_q, tname, fname, nsteps=1500, nwalkers=32):
             "mcmc_mixing_warning": bool(getattr(mc, "unmixed_modes", False))}
 
 
+#: The edge each element's coverage sightlines are fitted at.
+EDGE_SHELL = {"Si": "K", "Mg": "K", "Fe": "L", "O": "K"}
+
+
 def _band(n, p):
     lo, hi = sps.binom.interval(0.99, n, p)
     return lo / n, hi / n
@@ -171,7 +175,8 @@ def coverage_table(records, methods=("profile", "mcmc")):
             key = "hits" if method == "profile" else "mcmc_hits"
             if not any(key in r for r in recs):
                 continue
-            lines.append(f"{el} K/L edge, {method} intervals ({len(recs)} sightlines)")
+            lines.append(f"{el} {EDGE_SHELL.get(el, '')} edge, {method} intervals "
+                         f"({len(recs)} sightlines)")
             hdr = f"  {'group':<12}{'n':>5}" + "".join(
                 f"{q[:5] + ' ' + str(round(100 * lev)):>11}" for q in QUANTITIES for lev in LEVELS)
             lines.append(hdr)
