@@ -12,7 +12,12 @@ cases and ">= 7 of 8" (the issue's criterion) fails by chance in about
 slope of the total Si column against N_H is the Si abundance of the
 package's default table (the simulation's truth), checked against the
 orthogonal-distance slope's 95 % interval (1.96 standard errors, normal
-approximation).  The report is parsed with Python's html.parser."""
+approximation).  The report is parsed with Python's html.parser.
+
+The end-to-end run takes a few CPU-minutes, so its checks are marked
+``long`` (CI runs them after the default suite); the default suite keeps
+the demo's first step, the simulated sample and its manifest, and the
+command's help and bad-argument handling."""
 import json
 import re
 from html.parser import HTMLParser
@@ -23,8 +28,9 @@ import pytest
 from astropy.table import Table
 
 from edgefit.cli import main
-from edgefit.demo.region import SIGHTLINES, si_abundance
-from edgefit.demo.sample import QUICK_SIZE_SIGHTLINES, SIZE_CANDIDATES
+from edgefit.demo.region import AMAX_FIT_UM, SIGHTLINES, si_abundance
+from edgefit.demo.sample import (QUICK_SIZE_SIGHTLINES, SIZE_CANDIDATES, folder_of,
+                                 write_sample)
 
 
 @pytest.fixture(scope="module")
@@ -59,6 +65,7 @@ class _Page(HTMLParser):
             self._in_body = False
 
 
+@pytest.mark.long
 def test_demo_writes_sample_batch_and_report(demo_run):
     rc, out = demo_run
     assert rc == 0
@@ -75,6 +82,7 @@ def test_demo_writes_sample_batch_and_report(demo_run):
         assert len(list(folder.glob("*.rmf"))) == 2 and len(list(folder.glob("*.arf"))) == 2
 
 
+@pytest.mark.long
 def test_report_parses_links_exist_and_has_one_row_per_sightline(demo_run):
     _, out = demo_run
     text = (out / "report.html").read_text()
@@ -94,6 +102,7 @@ def test_report_parses_links_exist_and_has_one_row_per_sightline(demo_run):
     assert not re.search(r"[JB]\d{4}[+-]?\d*", text)
 
 
+@pytest.mark.long
 def test_quick_demo_recovers_gas_and_dust_columns(demo_run):
     _, out = demo_run
     t = Table.read(out / "analysis" / "truth_comparison.ecsv")
@@ -105,6 +114,7 @@ def test_quick_demo_recovers_gas_and_dust_columns(demo_run):
     assert len(ok) == 8 and sum(ok.values()) >= 7, ok
 
 
+@pytest.mark.long
 def test_quick_demo_regression_slope_covers_the_abundance(demo_run):
     _, out = demo_run
     d = json.loads((out / "analysis" / "regression_total.json").read_text())
@@ -115,6 +125,7 @@ def test_quick_demo_regression_slope_covers_the_abundance(demo_run):
     assert err < 0.05 * slope
 
 
+@pytest.mark.long
 def test_quick_demo_size_comparison_finds_the_large_grains(demo_run):
     # Against the simulated truth: Cinder Ford's grains reach 1.5 um, the
     # others' 0.25 um (the fixed MRN candidate's upper size).  MRN fixed is
@@ -134,6 +145,33 @@ def test_quick_demo_size_comparison_finds_the_large_grains(demo_run):
             assert lrt[0]["p_value"] < 0.05 and per["best_aic"] == "power_law:amax=free"
         else:
             assert lrt[0]["p_value"] > 0.05
+
+
+def test_demo_sample_is_simulated_and_a_valid_manifest(tmp_path):
+    # the demo's first step alone: every sightline simulated with both arms
+    # and backgrounds, labelled SIMULATED, and a manifest that the batch's
+    # own checks accept; the quick run does no MCMC, and only the
+    # large-grain sightline fits its upper size (its truth above the
+    # fixed MRN value)
+    from edgefit.analysis.manifest import load_manifest
+
+    path, truths = write_sample(tmp_path, quick=True, say=lambda msg: None)
+    assert "SIMULATED" in path.read_text().splitlines()[0]
+    manifest = load_manifest(path)
+    names = [row[0] for row in SIGHTLINES]
+    assert [e.name for e in manifest] == names and sorted(truths) == sorted(names)
+    n_free = 0
+    for e in manifest:
+        folder = tmp_path / "spectra" / folder_of(e.name)
+        truth = json.loads((folder / "truth.json").read_text())
+        assert "SIMULATED" in truth["note"] and truth["name"] == f"{e.name} (simulated)"
+        assert len(list(folder.glob("*_bkg.pha"))) == 2 == len(e.config.spectra)
+        assert not e.config.mcmc.enabled
+        large = truths[e.name]["dust_amax"] > AMAX_FIT_UM
+        assert e.config.param_settings["dust_amax"]["fixed"] is not large
+        n_free += large
+        assert not re.search(r"[JB]\d{4}[+-]?\d*", e.name)
+    assert n_free == 1
 
 
 def test_demo_help_and_bad_argument(capsys):

@@ -6,7 +6,10 @@ print are checked elsewhere (simulate/plan/demo tests).  One physics check
 is made where the example makes a claim: compare_sizes must prefer the
 family that contains the simulated truth (MRN with a free upper size) by
 Delta AIC > 2 (Burnham & Anderson 2002, "substantial support" rule of
-thumb: common practice)."""
+thumb: common practice).  The scripts that fit a batch or run simulated
+fits for a plan (batch_regression, compare_sizes, plan_observation) take
+a minute or more each, so they are marked ``long``; the single-sightline
+and laboratory-material scripts stay in the default suite."""
 import os
 import re
 import subprocess
@@ -36,14 +39,14 @@ def test_one_sightline_example(tmp_path):
     assert "gas_si_col" in out and (tmp_path / "out" / "fit.ecsv").is_file()
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_batch_regression_example(tmp_path):
     out = _run("batch_regression.py", tmp_path, "--workers", "2")
     assert "total Si per H (ODR slope)" in out
     assert (tmp_path / "out" / "batch" / "sample.ecsv").is_file()
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_compare_sizes_example_prefers_the_true_family(tmp_path):
     out = _run("compare_sizes.py", tmp_path)
     row = next(line for line in out.splitlines() if line.startswith("MRN, upper size free"))
@@ -60,7 +63,7 @@ def test_lab_material_example(tmp_path):
     assert "invented" in out and (tmp_path / "out" / "lab_material.png").stat().st_size > 5000
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_plan_example(tmp_path):
     out = _run("plan_observation.py", tmp_path, "--workers", "1")
     assert out.count("planning the Si edge") == 2 and "cannot separate" in out
