@@ -4,8 +4,8 @@ against the single-start fit, on the four-spectrum sightline of
 
 The first fit of a process pays about 1 s for loading compiled kernels
 and caches, several times a warm single fit, so one untimed fit comes
-first (before this, the timed single fit held that cost and the ratios
-read 10x and 565x instead of about 40x and 1,100x).
+first (before, the timed single fit held that cost, which made every
+ratio look several times smaller).
 
 Prints times measured side by side in one run (this thread's CPU time,
 steadier than the wall clock on a shared machine; --wall for the wall
