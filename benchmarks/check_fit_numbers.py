@@ -91,18 +91,14 @@ def _bench_sightline(out):
 
 
 def _small_configs(out):
-    from edgefit.data import simulate_spectrum
     from edgefit.dust import HaloGeometry, SizeGrid, TabulatedSizes, compute_table
     from edgefit.dust import edge_energy_grid
-    from edgefit.inference import Dataset, JointLikelihood
-    from edgefit.inference._testing import simulate_counts, toy_response
+    from edgefit.inference import JointLikelihood
+    from edgefit.inference._testing import three_arm_datasets
     from edgefit.models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
 
     energy = edge_energy_grid("olivine", 1.66, 2.14, rel_step=3e-3)
     table = compute_table("olivine", energy, SizeGrid.log(0.002, 3.0, 48), progress=False)
-    resp_a = toy_response(1.75, 2.05, n_channels=200)
-    resp_b = toy_response(1.75, 2.05, n_channels=200, area_cm2=60.0)
-    resp_c = toy_response(1.76, 2.04, n_channels=120)
     truth = {"ism_nh": 1.5, "gas_si_col": 6.0, "gas_si_shift": 1.0, "dust_col": 25.0,
              "pl_index": 1.7, "pl_norm": 1.2}
     table_sizes = TabulatedSizes([0.005, 0.05, 0.2, 0.6], [3e3, 20.0, 0.5, 0.01])
@@ -130,15 +126,7 @@ def _small_configs(out):
         model = (SmoothISM("ism", exclude=("Si",)) * gas
                  * DustEdge("dust", table=table, **opts) * PhotonPowerLaw("pl"))
         values = dict(truth, **vals)
-        rng = np.random.default_rng(3)
-        ds = []
-        for k, resp in enumerate((resp_a, resp_b)):
-            spec = simulate_spectrum(model.evaluate(resp.grid, values), resp, 2e3 * (1 + k), rng)
-            ds.append(Dataset(spec, ranges=(1.78, 2.02) if k else None))
-        bkg = simulate_counts(PhotonPowerLaw("b", index=1.0, norm=0.05), resp_c, 4e3, seed=5)
-        bkg.backscal = 4.0
-        spec = simulate_counts(model, resp_c, 2e3, values, seed=6, background=bkg)
-        ds.append(Dataset(spec, grouping=15))
+        ds = three_arm_datasets(model, values)
         for statistic in ("poisson", "chi2"):
             like = JointLikelihood(model, ds, statistic=statistic)
             params = like.make_params()

@@ -19,10 +19,10 @@ import scipy.sparse as sp
 from scipy.special import xlogy
 
 from edgefit import _foldstat
-from edgefit.data import simulate_spectrum
 from edgefit.dust import SizeGrid, compute_table, edge_energy_grid
 from edgefit.inference import Dataset, JointLikelihood, fit_sightline
-from edgefit.inference._testing import simulate_counts, toy_model, toy_response
+from edgefit.inference._testing import (simulate_counts, three_arm_datasets, toy_model,
+                                        toy_response)
 from edgefit.inference.likelihood import BAD_RESIDUAL, _linear_tie
 from edgefit.models import DustEdge, GasEdge, PhotonPowerLaw, SmoothISM
 
@@ -56,18 +56,7 @@ def sightline(table):
     its own grid with a background: exercises the shared plan, the fused
     kernels and the generic (profiled-background) path."""
     model = _model(table)
-    resp_a = toy_response(1.75, 2.05, n_channels=200)
-    resp_b = toy_response(1.75, 2.05, n_channels=200, area_cm2=60.0)
-    resp_c = toy_response(1.76, 2.04, n_channels=120)
-    rng = np.random.default_rng(3)
-    ds = []
-    for k, resp in enumerate((resp_a, resp_b)):
-        spec = simulate_spectrum(model.evaluate(resp.grid, TRUE), resp, 2e3 * (1 + k), rng)
-        ds.append(Dataset(spec, ranges=(1.78, 2.02) if k else None))
-    bkg = simulate_counts(PhotonPowerLaw("b", index=1.0, norm=0.05), resp_c, 4e3, seed=5)
-    bkg.backscal = 4.0
-    spec = simulate_counts(model, resp_c, 2e3, TRUE, seed=6, background=bkg)
-    ds.append(Dataset(spec, grouping=15))
+    ds = three_arm_datasets(model, TRUE)
     return model, ds
 
 

@@ -19,7 +19,7 @@ from ..physics.atomic import EDGE_OFFSET_KEV
 
 __all__ = ["toy_response", "ToyEdgeAbsorber", "toy_model", "TOY_TRUTH", "simulate_counts",
            "EDGE_FIT_RANGES", "edge_sightline_model", "edge_sightline_truth",
-           "simulate_edge_sightline",
+           "simulate_edge_sightline", "three_arm_datasets",
            "FOUR_EDGE_ARMS", "FOUR_EDGE_BANDS", "four_edge_truth", "four_edge_model",
            "four_edge_responses", "four_edge_spectra"]
 
@@ -102,6 +102,34 @@ def simulate_counts(model, response, exposure, values=None, seed=None, backgroun
                              seed)
     spec.background = background
     return spec
+
+
+def three_arm_datasets(model, values):
+    """Three simulated Si-edge spectra of ``model`` at ``values``: two arms
+    sharing one energy grid (the second with 60 cm^2 and a narrower fit
+    range), a third on its own grid with a background and grouping 15.
+    Seeded (3, 5, 6), so the same call gives the same counts; it exercises
+    the likelihood's shared plan, its fused kernels and the profiled-
+    background path.  ``benchmarks/check_fit_numbers.py`` keeps reference
+    numbers computed on these data, so changing them means rewriting that
+    reference."""
+    from ..data import simulate_spectrum
+    from ..models import PhotonPowerLaw
+    from .dataset import Dataset
+
+    resp_a = toy_response(1.75, 2.05, n_channels=200)
+    resp_b = toy_response(1.75, 2.05, n_channels=200, area_cm2=60.0)
+    resp_c = toy_response(1.76, 2.04, n_channels=120)
+    rng = np.random.default_rng(3)
+    datasets = []
+    for k, resp in enumerate((resp_a, resp_b)):
+        spec = simulate_spectrum(model.evaluate(resp.grid, values), resp, 2e3 * (1 + k), rng)
+        datasets.append(Dataset(spec, ranges=(1.78, 2.02) if k else None))
+    bkg = simulate_counts(PhotonPowerLaw("b", index=1.0, norm=0.05), resp_c, 4e3, seed=5)
+    bkg.backscal = 4.0
+    spec = simulate_counts(model, resp_c, 2e3, values, seed=6, background=bkg)
+    datasets.append(Dataset(spec, grouping=15))
+    return datasets
 
 
 #: Fit energy ranges (keV) of the simulated edge sightlines, inside the
