@@ -14,7 +14,7 @@ from astropy import units as u
 HC_KEV_ANGSTROM = 12.398419843320026
 
 __all__ = ["HC_KEV_ANGSTROM", "to_value", "as_kev", "as_angstrom", "kev_to_angstrom",
-           "angstrom_to_kev", "unit_or_none"]
+           "angstrom_to_kev", "unit_or_none", "fits_ready_table"]
 
 
 def to_value(value, unit, name="value", equivalencies=None):
@@ -64,3 +64,25 @@ def unit_or_none(unit_str):
         return u.Unit(unit_str)
     except ValueError:
         return None
+
+
+def fits_ready_table(table):
+    """A copy of ``table`` whose units FITS can store: a column with a unit
+    FITS has no name for (e.g. ``dex(cm-2)`` of log columns) becomes plain
+    numbers with the unit written in its description (the ECSV and JSON
+    files keep the unit itself)."""
+    from astropy.table import Table
+
+    out = Table(table, copy=True)
+    for name in out.colnames:
+        col = out[name]
+        if col.unit is None:
+            continue
+        try:
+            col.unit.to_string(format="fits")
+        except (ValueError, TypeError, AttributeError):
+            unit = col.unit.to_string()
+            out[name] = np.asarray(col, dtype=float)
+            out[name].unit = None
+            out[name].description = f"unit: {unit}"
+    return out

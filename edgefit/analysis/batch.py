@@ -499,15 +499,18 @@ def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike 
         write_sample_table(table, out)
         return table
 
-    table = write_table()
     tasks = [_task(manifest, e, digests[e.name], bool(mcmc), bool(plots), steps, figures)
              for e in todo]
+    # with fits queued the table is first written when the first one ends
+    # (the one before would be rewritten at once; it costs the main process
+    # a table write while the workers start); with nothing to fit, now
+    table = None if tasks else write_table()
     from tqdm.auto import tqdm
 
     bar = tqdm(total=len(tasks), desc="sightlines", unit="sightline", file=sys.stderr,
                disable=not progress, dynamic_ncols=True)
     counts = {"done": 0, "failed": 0}
-    written = {"at": time.monotonic(), "stale": False}
+    written = {"at": time.monotonic(), "stale": table is None}
 
     def refresh_table(force):
         """Rewrite the table if it lags behind the records and ``force``

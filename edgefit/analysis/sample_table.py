@@ -326,14 +326,14 @@ def write_sample_table(table, folder):
     atomically (temporary file, then rename); returns their paths."""
     from astropy import units as u
 
-    from ..inference.result import _fits_ready
+    from .._units import fits_ready_table
 
     folder = Path(folder)
     ecsv, fits = folder / "sample.ecsv", folder / "sample.fits"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", u.UnitsWarning)
         _atomic_write(ecsv, lambda p: table.write(p, format="ascii.ecsv", overwrite=True))
-        ft = _fits_ready(table)
+        ft = fits_ready_table(table)
         comments = [f"interval level {ONE_SIGMA}"]
         for q, src in table.meta.get("interval_source", {}).items():
             if isinstance(src, dict):

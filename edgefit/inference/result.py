@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 import numpy as np
 from astropy import units as u
 
-from .._units import unit_or_none
+from .._units import fits_ready_table, unit_or_none
 from ..stats import ONE_SIGMA
 
 if TYPE_CHECKING:
@@ -439,7 +439,7 @@ class FitResult:
             self.parameter_table().write(p, format="ascii.ecsv", overwrite=True)
             paths.append(p)
             p = folder / f"{stem}.fits"
-            fits_table = _fits_ready(table)
+            fits_table = fits_ready_table(table)
             fits_table.meta = {k[:8].upper(): v for k, v in table.meta.items()
                                if isinstance(v, (int, float, str, bool))}
             fits_table.write(p, format="fits", overwrite=True)
@@ -451,28 +451,6 @@ class FitResult:
         p.write_text(self.summary() + "\n")
         paths.append(p)
         return paths
-
-
-def _fits_ready(table):
-    """A copy of ``table`` whose units FITS can store: a column with a unit
-    FITS has no name for (e.g. ``dex(cm-2)`` of log columns) becomes plain
-    numbers with the unit written in its description (the ECSV and JSON
-    files keep the unit itself)."""
-    from astropy.table import Table
-
-    out = Table(table, copy=True)
-    for name in out.colnames:
-        col = out[name]
-        if col.unit is None:
-            continue
-        try:
-            col.unit.to_string(format="fits")
-        except (ValueError, TypeError, AttributeError):
-            unit = col.unit.to_string()
-            out[name] = np.asarray(col, dtype=float)
-            out[name].unit = None
-            out[name].description = f"unit: {unit}"
-    return out
 
 
 def _json_num(x):
