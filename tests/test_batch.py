@@ -451,18 +451,41 @@ def test_signals_deferred_until_the_commit_ends():
         go.wait()
         os.kill(os.getpid(), signal.SIGINT)
 
+    # Python's own SIGINT handler, whatever the test run inherited (a shell
+    # starts background jobs with SIGINT ignored, and an ignored signal is
+    # rightly left ignored by the deferred block)
+    inherited = signal.signal(signal.SIGINT, signal.default_int_handler)
     t = threading.Thread(target=helper)
     t.start()
-    with pytest.raises(KeyboardInterrupt):
-        with _signals_deferred():
-            go.set()
-            t.join()
-            for _ in range(1000):   # give the interpreter many chances to run handlers
-                steps.append(1)
-            steps.append("end of the commit")
-    assert steps[-1] == "end of the commit" and len(steps) == 1001
-    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            with _signals_deferred():
+                go.set()
+                t.join()
+                for _ in range(1000):   # give the interpreter many chances to run handlers
+                    steps.append(1)
+                steps.append("end of the commit")
+        assert steps[-1] == "end of the commit" and len(steps) == 1001
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+    finally:
+        signal.signal(signal.SIGINT, inherited)
 
+
+
+def test_signals_deferred_leaves_an_ignored_signal_ignored():
+    """A run started with SIGINT ignored (``nohup``, a background job of a
+    shell) is not interrupted by one arriving during a commit, and the
+    ignore disposition is restored afterwards."""
+    from edgefit.analysis.batch import _signals_deferred
+
+    inherited = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        with _signals_deferred():
+            os.kill(os.getpid(), signal.SIGINT)   # noted, not acted on yet
+            done = True
+        assert done and signal.getsignal(signal.SIGINT) == signal.SIG_IGN
+    finally:
+        signal.signal(signal.SIGINT, inherited)
 
 def _count_finished(out):
     d = out / "sightlines"
