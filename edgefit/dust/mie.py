@@ -176,233 +176,253 @@ def _prepare_index(m, x, m_minus_1=None) -> tuple[np.ndarray, np.ndarray, np.nda
 
 
 # --------------------------------------------------------------------------
-# Kernel for one sphere (compiled by numba when available)
+# Compiled kernel: groups of LANES spheres side by side
 # --------------------------------------------------------------------------
-def _down(m, mm1, x, nstop, nstart, dm, dx, ee):
-    """Downward recurrences n = nstart .. 2 for D_{n-1}(mx), D_{n-1}(x) and
-    the m-1 term, stored for n-1 <= nstop (see :func:`_sphere`)."""
-    z = m * x
-    inv_z = 1.0 / z
-    izr = inv_z.real
-    izi = inv_z.imag
-    inv_x = 1.0 / x
-    c = mm1 * inv_z
-    cr = c.real
-    ci = c.imag
-    d1r = 0.0
-    d1i = 0.0
-    d0 = 0.0
-    er = 0.0
-    ei = 0.0
-    for n in range(nstart, 1, -1):
-        ar = d1r + n * izr
-        ai = d1i + n * izi
-        s2 = 1.0 / (ar * ar + ai * ai)
-        iar = ar * s2
-        iai = -ai * s2
-        ib = 1.0 / (d0 + n * inv_x)
-        cnr = cr * n
-        cni = ci * n
-        tr = (er - cnr) * ib
-        ti = (ei - cni) * ib
-        er = tr * iar - ti * iai - cnr
-        ei = tr * iai + ti * iar - cni
-        d1r = n * izr - iar
-        d1i = n * izi - iai
-        d0 = n * inv_x - ib
-        if n <= nstop + 1:
-            dm[n - 1] = complex(d1r, d1i)
-            dx[n - 1] = d0
-            ee[n - 1] = complex(er, ei)
+# A group of spheres runs the recurrences of the NumPy path below, in the
+# same order and with the same operations for every sphere, with the
+# spheres as the inner loop: numba's loop vectoriser then executes several
+# spheres at once in SIMD registers.  (The loops must contain no
+# Python-error branches, so the kernels are compiled with
+# error_model="numpy"; the divisors are nonzero for valid input.  Each
+# sphere's quantities are one row of a flat work array whose row length is
+# the constant LANES, so the vectoriser sees constant distances between
+# them.)  A lane whose sphere needs no more orders keeps its sums (the new
+# value is selected away), so each sphere's numbers are bit for bit those
+# of a loop over that sphere alone.
+#
+# The downward recurrences run from N = n_start to 1 before the upward sums
+# can start at n = 1.  Storing D_n(mx), D_n(x) and E_n of every order
+# (5 doubles per order and sphere) would take megabytes for x ~ 1e4 and run
+# at memory speed; instead the downward pass keeps its state at every
+# CHUNK-th order only (a checkpoint), and the upward pass recomputes each
+# chunk of orders from its checkpoint into a small buffer that stays in the
+# level-1 cache.  Recomputing from a stored state repeats the same
+# operations, so the values are the same.
+
+#: Spheres processed side by side by the compiled kernel.
+LANES = 16
+#: Orders per recomputed chunk of the downward recurrences.
+CHUNK = 32
+
+# Rows of the work array of a group (each row LANES long, one entry a sphere):
+# parameters,
+_IZR, _IZI, _IVX, _CR, _CI, _X, _MR, _MI, _M1R, _M1I, _NST, _NSP = range(12)
+# the downward state (D(mx) real, imaginary, D(x), E real, imaginary) of
+# the current order, 5 rows from _D,
+_D = 12
+# and the upward state: psi_{n-1}, psi_{n-2}, chi_{n-1}, chi_{n-2}, the three
+# sums, a_{n-1} and b_{n-1} (real, imaginary).
+_PM1, _PM2, _CM1, _CM2, _SCA, _ABS, _GS, _APR, _API, _BPR, _BPI = range(17, 28)
+_NROWS = 28
 
 
-def _down_pair(m, mm1, x, nstop, nstart, dm, dx, ee,
-               m_b, mm1_b, x_b, nstop_b, nstart_b, dm_b, dx_b, ee_b):
-    """:func:`_down` for two spheres in one loop.  Each recurrence is a
-    chain of dependent divisions, so one sphere alone leaves the processor
-    waiting; two independent chains side by side run in about the time of
-    one.  Each sphere's steps are exactly those of :func:`_down` (its state
-    stays zero until n reaches its own start), so the numbers are the same."""
+def _lane_setup(m, mm1, x):
+    """1/(mx) (real, imaginary), 1/x and c = (m-1)/(mx) (real, imaginary)."""
     z = m * x
     inv_z = 1.0 / z
-    izr = inv_z.real
-    izi = inv_z.imag
     inv_x = 1.0 / x
     c = mm1 * inv_z
-    cr = c.real
-    ci = c.imag
-    d1r = 0.0
-    d1i = 0.0
-    d0 = 0.0
-    er = 0.0
-    ei = 0.0
-    z_b = m_b * x_b
-    inv_z_b = 1.0 / z_b
-    izr_b = inv_z_b.real
-    izi_b = inv_z_b.imag
-    inv_x_b = 1.0 / x_b
-    c_b = mm1_b * inv_z_b
-    cr_b = c_b.real
-    ci_b = c_b.imag
-    d1r_b = 0.0
-    d1i_b = 0.0
-    d0_b = 0.0
-    er_b = 0.0
-    ei_b = 0.0
-    for n in range(max(nstart, nstart_b), 1, -1):
-        if n <= nstart:
-            ar = d1r + n * izr
-            ai = d1i + n * izi
+    return inv_z.real, inv_z.imag, inv_x, c.real, c.imag
+
+
+def _down_range(w, cp, buf, n_hi, n_lo, base, to_buf):
+    """Steps n = n_hi .. n_lo (n -> n-1) of the downward recurrences of all
+    lanes (state zero while n > n_start of the lane).  The state of order
+    r = n-1 goes to buf row r - base - 1 (``to_buf``) or, when r is a
+    multiple of CHUNK, to the checkpoint cp[r // CHUNK].  Complex
+    reciprocals are written conj(b)/|b|^2."""
+    nl = LANES
+    for n in range(n_hi, n_lo - 1, -1):
+        nf = float(n)
+        for k in range(nl):
+            izr = w[_IZR * nl + k]
+            izi = w[_IZI * nl + k]
+            ivx = w[_IVX * nl + k]
+            cnr = w[_CR * nl + k] * nf
+            cni = w[_CI * nl + k] * nf
+            ar = w[_D * nl + k] + nf * izr
+            ai = w[(_D + 1) * nl + k] + nf * izi
             s2 = 1.0 / (ar * ar + ai * ai)
             iar = ar * s2
             iai = -ai * s2
-            ib = 1.0 / (d0 + n * inv_x)
-            cnr = cr * n
-            cni = ci * n
-            tr = (er - cnr) * ib
-            ti = (ei - cni) * ib
-            er = tr * iar - ti * iai - cnr
-            ei = tr * iai + ti * iar - cni
-            d1r = n * izr - iar
-            d1i = n * izi - iai
-            d0 = n * inv_x - ib
-            if n <= nstop + 1:
-                dm[n - 1] = complex(d1r, d1i)
-                dx[n - 1] = d0
-                ee[n - 1] = complex(er, ei)
-        if n <= nstart_b:
-            ar_b = d1r_b + n * izr_b
-            ai_b = d1i_b + n * izi_b
-            s2_b = 1.0 / (ar_b * ar_b + ai_b * ai_b)
-            iar_b = ar_b * s2_b
-            iai_b = -ai_b * s2_b
-            ib_b = 1.0 / (d0_b + n * inv_x_b)
-            cnr_b = cr_b * n
-            cni_b = ci_b * n
-            tr_b = (er_b - cnr_b) * ib_b
-            ti_b = (ei_b - cni_b) * ib_b
-            er_b = tr_b * iar_b - ti_b * iai_b - cnr_b
-            ei_b = tr_b * iai_b + ti_b * iar_b - cni_b
-            d1r_b = n * izr_b - iar_b
-            d1i_b = n * izi_b - iai_b
-            d0_b = n * inv_x_b - ib_b
-            if n <= nstop_b + 1:
-                dm_b[n - 1] = complex(d1r_b, d1i_b)
-                dx_b[n - 1] = d0_b
-                ee_b[n - 1] = complex(er_b, ei_b)
+            ib = 1.0 / (w[(_D + 2) * nl + k] + nf * ivx)
+            tr = (w[(_D + 3) * nl + k] - cnr) * ib
+            ti = (w[(_D + 4) * nl + k] - cni) * ib
+            act = nf <= w[_NST * nl + k]
+            w[(_D + 3) * nl + k] = (tr * iar - ti * iai - cnr) if act else 0.0
+            w[(_D + 4) * nl + k] = (tr * iai + ti * iar - cni) if act else 0.0
+            w[_D * nl + k] = (nf * izr - iar) if act else 0.0
+            w[(_D + 1) * nl + k] = (nf * izi - iai) if act else 0.0
+            w[(_D + 2) * nl + k] = (nf * ivx - ib) if act else 0.0
+        r = n - 1
+        if to_buf:
+            o = (r - base - 1) * 5 * nl
+            for q in range(5 * nl):
+                buf[o + q] = w[_D * nl + q]
+        elif r % CHUNK == 0:
+            o = (r // CHUNK) * 5 * nl
+            for q in range(5 * nl):
+                cp[o + q] = w[_D * nl + q]
 
 
-def _up(m, mm1, x, nstop, dm, dx, ee):
-    """Upward recurrences and the sums of :func:`_sphere` from the stored
-    downward results."""
-    inv_x = 1.0 / x
-    mc = m.conjugate()
-    psi_m2 = np.cos(x)     # psi_{-1}
-    chi_m2 = -np.sin(x)    # chi_{-1}
-    psi_m1 = np.sin(x)     # psi_0
-    chi_m1 = np.cos(x)     # chi_0
-    sca = 0.0
-    absn = 0.0
-    gsum = 0.0
-    a_prev = 0j
-    b_prev = 0j
-    for n in range(1, nstop + 1):
-        if n < x:
-            psi = (2 * n - 1) * inv_x * psi_m1 - psi_m2
-        else:
-            psi = psi_m1 / (dx[n] + n * inv_x)
-        chi = (2 * n - 1) * inv_x * chi_m1 - chi_m2
-        xi = complex(psi, -chi)
-        xi_m1 = complex(psi_m1, -chi_m1)
-        dn = dm[n]
-        en = ee[n]
-        dxn = dx[n]
-        ni = n * inv_x
-        den_a = xi * (dn + m * ni) - m * xi_m1
-        den_b = xi * (m * dn + ni) - xi_m1
-        qa = 1.0 / (den_a.real * den_a.real + den_a.imag * den_a.imag)
-        qb = 1.0 / (den_b.real * den_b.real + den_b.imag * den_b.imag)
-        an = psi * (en - mm1 * dxn) * den_a.conjugate() * qa
-        bn = psi * (m * en + mm1 * dxn) * den_b.conjugate() * qb
-        w = 2 * n + 1
-        sca += w * (an.real * an.real + an.imag * an.imag
-                    + bn.real * bn.real + bn.imag * bn.imag)
-        absn += w * (-(mc * dn).imag * qa - (m * dn).imag * qb)
-        if n > 1:
-            gsum += ((n - 1) * (n + 1) / n) * ((a_prev * an.conjugate()).real
-                                               + (b_prev * bn.conjugate()).real)
-        gsum += (w / (n * (n + 1))) * (an * bn.conjugate()).real
-        a_prev = an
-        b_prev = bn
-        psi_m2 = psi_m1
-        chi_m2 = chi_m1
-        psi_m1 = psi
-        chi_m1 = chi
-    f = 2.0 * inv_x * inv_x
-    qsca = f * sca
-    qabs = f * absn
-    g = 2.0 * f * gsum / qsca if qsca > 0 else 0.0
-    return qsca + qabs, qsca, qabs, g
+def _up_range(w, buf, g1, g2, n_lo, n_hi, base):
+    """Orders n = n_lo .. n_hi of the upward recurrences and sums of all
+    lanes; buf row n - base - 1 holds the downward values of order n.
+    With xi = psi - i chi:  den_a = xi (D(mx) + m n/x) - m xi_{n-1},
+    den_b = xi (m D(mx) + n/x) - xi_{n-1},
+    a_n = psi (E - (m-1) D(x)) conj(den_a)/|den_a|^2,
+    b_n = psi (m E + (m-1) D(x)) conj(den_b)/|den_b|^2 (module docstring),
+    complex products written out in real and imaginary parts."""
+    nl = LANES
+    for n in range(n_lo, n_hi + 1):
+        nf = float(n)
+        f2 = float(2 * n - 1)
+        wt = float(2 * n + 1)
+        c1 = g1[n]
+        c2 = g2[n]
+        o = (n - base - 1) * 5 * nl
+        for k in range(nl):
+            inv_x = w[_IVX * nl + k]
+            mr = w[_MR * nl + k]
+            mi = w[_MI * nl + k]
+            f = f2 * inv_x
+            ni = nf * inv_x
+            psi_m1 = w[_PM1 * nl + k]
+            chi_m1 = w[_CM1 * nl + k]
+            dr = buf[o + k]
+            di = buf[o + nl + k]
+            dxn = buf[o + 2 * nl + k]
+            er = buf[o + 3 * nl + k]
+            ei = buf[o + 4 * nl + k]
+            if nf < w[_X * nl + k]:
+                psi = f * psi_m1 - w[_PM2 * nl + k]
+            else:
+                psi = psi_m1 / (dxn + ni)
+            chi = f * chi_m1 - w[_CM2 * nl + k]
+            ur = dr + mr * ni
+            ui = di + mi * ni
+            dar = (psi * ur + chi * ui) - (mr * psi_m1 + mi * chi_m1)
+            dai = (psi * ui - chi * ur) - (mi * psi_m1 - mr * chi_m1)
+            mdr = mr * dr - mi * di
+            mdi = mr * di + mi * dr
+            vr = mdr + ni
+            dbr = (psi * vr + chi * mdi) - psi_m1
+            dbi = (psi * mdi - chi * vr) + chi_m1
+            qa = 1.0 / (dar * dar + dai * dai)
+            qb = 1.0 / (dbr * dbr + dbi * dbi)
+            m1r = w[_M1R * nl + k]
+            m1i = w[_M1I * nl + k]
+            pr = psi * (er - m1r * dxn)
+            pi_ = psi * (ei - m1i * dxn)
+            anr = (pr * dar + pi_ * dai) * qa
+            ani = (pi_ * dar - pr * dai) * qa
+            sr = psi * ((mr * er - mi * ei) + m1r * dxn)
+            si = psi * ((mr * ei + mi * er) + m1i * dxn)
+            bnr = (sr * dbr + si * dbi) * qb
+            bni = (si * dbr - sr * dbi) * qb
+            sca = w[_SCA * nl + k] + wt * (anr * anr + ani * ani + bnr * bnr + bni * bni)
+            absn = w[_ABS * nl + k] + wt * (-(mr * di - mi * dr) * qa - mdi * qb)
+            gs = w[_GS * nl + k]
+            if n > 1:
+                gs = gs + c1 * ((w[_APR * nl + k] * anr + w[_API * nl + k] * ani)
+                                + (w[_BPR * nl + k] * bnr + w[_BPI * nl + k] * bni))
+            gs = gs + c2 * (anr * bnr + ani * bni)
+            act = nf <= w[_NSP * nl + k]
+            w[_SCA * nl + k] = sca if act else w[_SCA * nl + k]
+            w[_ABS * nl + k] = absn if act else w[_ABS * nl + k]
+            w[_GS * nl + k] = gs if act else w[_GS * nl + k]
+            w[_APR * nl + k] = anr
+            w[_API * nl + k] = ani
+            w[_BPR * nl + k] = bnr
+            w[_BPI * nl + k] = bni
+            w[_PM2 * nl + k] = psi_m1
+            w[_CM2 * nl + k] = chi_m1
+            w[_PM1 * nl + k] = psi
+            w[_CM1 * nl + k] = chi
 
 
-def _sphere(m, mm1, x, nstop, nstart, dm, dx, ee):
-    """Mie sums for one sphere; dm, dx, ee are work arrays of length >= nstop+1.
-
-    Complex reciprocals and quotients are written as conj(b)/|b|^2 (the
-    moduli involved stay far from under/overflow for n <= n_stop), which
-    compiles to fewer operations than a general complex division and lets
-    the |den|^2 of the absorption sum be reused.  Returns (qext, qsca, qabs, g)."""
-    _down_kernel(m, mm1, x, nstop, nstart, dm, dx, ee)
-    return _up_kernel(m, mm1, x, nstop, dm, dx, ee)
-
-
-def _blocks_kernel(m, mm1, x, nstop, nstart, out, bounds):
-    """Blocks of spheres, in parallel when compiled (``_prange`` becomes
-    numba.prange); work arrays are allocated once per block.  Spheres go
-    through the downward recurrences in pairs (:func:`_down_pair`)."""
-    for blk in _prange(bounds.size - 1):
-        lo = bounds[blk]
-        hi = bounds[blk + 1]
-        k = 1
-        for i in range(lo, hi):
-            k = max(k, nstop[i] + 1)
-        dm = np.empty(k, dtype=np.complex128)
-        dx = np.empty(k, dtype=np.float64)
-        ee = np.empty(k, dtype=np.complex128)
-        dm_b = np.empty(k, dtype=np.complex128)
-        dx_b = np.empty(k, dtype=np.float64)
-        ee_b = np.empty(k, dtype=np.complex128)
-        i = lo
-        while i + 1 < hi:
-            j = i + 1
-            _down_pair_kernel(m[i], mm1[i], x[i], nstop[i], nstart[i], dm, dx, ee,
-                              m[j], mm1[j], x[j], nstop[j], nstart[j], dm_b, dx_b, ee_b)
-            r = _up_kernel(m[i], mm1[i], x[i], nstop[i], dm, dx, ee)
-            out[0, i] = r[0]
-            out[1, i] = r[1]
-            out[2, i] = r[2]
-            out[3, i] = r[3]
-            r = _up_kernel(m[j], mm1[j], x[j], nstop[j], dm_b, dx_b, ee_b)
-            out[0, j] = r[0]
-            out[1, j] = r[1]
-            out[2, j] = r[2]
-            out[3, j] = r[3]
-            i += 2
-        if i < hi:
-            r = _sphere_kernel(m[i], mm1[i], x[i], nstop[i], nstart[i], dm, dx, ee)
-            out[0, i] = r[0]
-            out[1, i] = r[1]
-            out[2, i] = r[2]
-            out[3, i] = r[3]
+def _g_coefficients(nmax):
+    """(n-1)(n+1)/n and (2n+1)/(n(n+1)) of the asymmetry sum, n = 0..nmax."""
+    g1 = np.zeros(nmax + 1)
+    g2 = np.zeros(nmax + 1)
+    for n in range(1, nmax + 1):
+        g1[n] = ((n - 1) * (n + 1)) / n
+        g2[n] = (2 * n + 1) / (n * (n + 1))
+    return g1, g2
 
 
-# Names the block loop reads from this module; the compiled version gets
-# numba.prange and the compiled sphere kernel instead (edgefit._jit.jit).
+def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
+    """Efficiencies of the spheres idx[lo:hi] (at most LANES; spare lanes
+    repeat the last sphere and are not written) into out[:, idx[i]]."""
+    nl = LANES
+    kc = CHUNK
+    w = np.zeros(_NROWS * nl)
+    nsmax = 2
+    ntop = 1
+    for k in range(nl):
+        i = idx[min(lo + k, hi - 1)]
+        izr, izi, ivx, cr, ci = _lane_setup(m[i], mm1[i], x[i])
+        w[_IZR * nl + k] = izr
+        w[_IZI * nl + k] = izi
+        w[_IVX * nl + k] = ivx
+        w[_CR * nl + k] = cr
+        w[_CI * nl + k] = ci
+        w[_X * nl + k] = x[i]
+        w[_MR * nl + k] = m[i].real
+        w[_MI * nl + k] = m[i].imag
+        w[_M1R * nl + k] = mm1[i].real
+        w[_M1I * nl + k] = mm1[i].imag
+        w[_NST * nl + k] = float(nstart[i])
+        w[_NSP * nl + k] = float(nstop[i])
+        nsmax = max(nsmax, nstart[i])
+        ntop = max(ntop, nstop[i])
+        w[_PM2 * nl + k] = np.cos(x[i])     # psi_{-1}
+        w[_CM2 * nl + k] = -np.sin(x[i])    # chi_{-1}
+        w[_PM1 * nl + k] = np.sin(x[i])     # psi_0
+        w[_CM1 * nl + k] = np.cos(x[i])     # chi_0
+    # downward pass, keeping checkpoints cp[j] = state of order j * kc
+    # (zero from n_start up)
+    nchunk = (ntop - 1) // kc + 1
+    cp = np.zeros((max(nsmax // kc, nchunk) + 1) * 5 * nl)
+    buf = np.empty(kc * 5 * nl)
+    _down_range(w, cp, buf, nsmax, 2, 0, False)
+    # upward pass, a chunk of orders j kc + 1 .. (j + 1) kc at a time
+    for j in range(nchunk):
+        base = j * kc
+        o = (j + 1) * 5 * nl
+        for q in range(5 * nl):
+            w[_D * nl + q] = cp[o + q]
+            buf[(kc - 1) * 5 * nl + q] = cp[o + q]
+        _down_range(w, cp, buf, base + kc, base + 2, base, True)
+        _up_range(w, buf, g1, g2, base + 1, min(base + kc, ntop), base)
+    for k in range(hi - lo):
+        i = idx[lo + k]
+        inv_x = w[_IVX * nl + k]
+        f = 2.0 * inv_x * inv_x
+        qsca = f * w[_SCA * nl + k]
+        qabs = f * w[_ABS * nl + k]
+        out[0, i] = qsca + qabs
+        out[1, i] = qsca
+        out[2, i] = qabs
+        out[3, i] = 2.0 * f * w[_GS * nl + k] / qsca if qsca > 0 else 0.0
+
+
+def _groups_kernel(m, mm1, x, nstop, nstart, idx, out):
+    """All spheres, LANES at a time in the order idx (spheres of similar
+    size together, so that few lanes idle); groups run in parallel threads
+    when compiled with parallel=True (``_prange`` becomes numba.prange)."""
+    g1, g2 = _g_coefficients(nstop.max() + 1)
+    ngroup = (x.size + LANES - 1) // LANES
+    for gi in _prange(ngroup):
+        lo = gi * LANES
+        _group_kernel(m, mm1, x, nstop, nstart, idx, lo, min(lo + LANES, x.size),
+                      g1, g2, out)
+
+
+# Names the group loop reads from this module; the compiled version gets
+# numba.prange and the compiled helpers instead (edgefit._jit.jit).
 _prange = range
-_down_kernel = _down
-_up_kernel = _up
-_down_pair_kernel = _down_pair
-_sphere_kernel = _sphere
+_group_kernel = _group
 
 #: Below this many terms (sum of n_stop) the compiled loop runs on one thread,
 #: where starting threads would cost more than it saves.
@@ -411,15 +431,19 @@ PARALLEL_MIN_TERMS = 200_000
 
 @_jit.kernels
 def _numba_kernels():
-    """(parallel, serial) compiled block loops (built once per process;
-    numba's on-disk cache makes later processes fast)."""
+    """(parallel, serial) compiled group loops (built once per process;
+    numba's on-disk cache makes later processes fast).  error_model="numpy"
+    drops the zero-division checks that would stop the loop vectoriser."""
     nb = _jit.require("the compiled Mie kernel")
-    down, up = _jit.jit(_down), _jit.jit(_up)
-    sphere = _jit.jit(_sphere, globals={"_down_kernel": down, "_up_kernel": up})
-    names = {"_prange": nb.prange, "_sphere_kernel": sphere, "_up_kernel": up,
-             "_down_pair_kernel": _jit.jit(_down_pair)}
-    return (_jit.jit(_blocks_kernel, parallel=True, globals=names),
-            _jit.jit(_blocks_kernel, globals=names))
+    opts = {"error_model": "numpy"}
+    steps = {"_down_range": _jit.jit(_down_range, **opts),
+             "_up_range": _jit.jit(_up_range, **opts),
+             "_lane_setup": _jit.jit(_lane_setup, **opts)}
+    group = _jit.jit(_group, globals=steps, **opts)
+    names = {"_prange": nb.prange, "_group_kernel": group,
+             "_g_coefficients": _jit.jit(_g_coefficients, **opts)}
+    return (_jit.jit(_groups_kernel, parallel=True, globals=names, **opts),
+            _jit.jit(_groups_kernel, globals=names, **opts))
 
 
 def numba_available():
@@ -538,14 +562,6 @@ def _numpy_batch(m, mm1, x, nstop, nstart, out, chunk_terms):
         i = j
 
 
-def _blocks(nstop, per_block=64):
-    """Block boundaries of about equal work (sum of n_stop) for the compiled loop."""
-    work = np.cumsum(nstop + 20)
-    nblk = int(min(max(1, nstop.size // per_block), 256))
-    edges = np.searchsorted(work, work[-1] * np.arange(1, nblk) / nblk)
-    return np.unique(np.concatenate([[0], edges, [nstop.size]])).astype(np.int64)
-
-
 def mie_efficiencies(m: ArrayLike | None, x: ArrayLike, *, backend: str = "auto",
                      m_minus_1: ArrayLike | None = None,
                      chunk_terms: int = DEFAULT_CHUNK_TERMS) -> MieEfficiencies:
@@ -605,7 +621,7 @@ def mie_efficiencies(m: ArrayLike | None, x: ArrayLike, *, backend: str = "auto"
     if xf.size:
         if kernels is not None:
             kernel = kernels[0] if nstop.sum() >= PARALLEL_MIN_TERMS else kernels[1]
-            kernel(mf, mm1f, xf, nstop, nstart, out, _blocks(nstop))
+            kernel(mf, mm1f, xf, nstop, nstart, np.argsort(nstart, kind="stable"), out)
         else:
             _numpy_batch(mf, mm1f, xf, nstop, nstart, out, int(chunk_terms))
     res = [out[i].reshape(shape) for i in range(4)]
