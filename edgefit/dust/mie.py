@@ -203,6 +203,9 @@ def _prepare_index(m, x, m_minus_1=None) -> tuple[np.ndarray, np.ndarray, np.nda
 LANES = 16
 #: Orders per recomputed chunk of the downward recurrences.
 CHUNK = 32
+#: Groups needing at most this many orders keep all of them from one
+#: downward pass (at most 330 kB), without checkpoints.
+DIRECT_ORDERS = 512
 
 # Rows of the work array of a group (each row LANES long, one entry a sphere):
 # parameters,
@@ -232,6 +235,7 @@ def _down_range(w, cp, buf, n_hi, n_lo, base, to_buf):
     multiple of CHUNK, to the checkpoint cp[r // CHUNK].  Complex
     reciprocals are written conj(b)/|b|^2."""
     nl = LANES
+    nrow = buf.size // (5 * nl)
     for n in range(n_hi, n_lo - 1, -1):
         nf = float(n)
         for k in range(nl):
@@ -256,13 +260,16 @@ def _down_range(w, cp, buf, n_hi, n_lo, base, to_buf):
             w[(_D + 2) * nl + k] = (nf * ivx - ib) if act else 0.0
         r = n - 1
         if to_buf:
-            o = (r - base - 1) * 5 * nl
-            for q in range(5 * nl):
-                buf[o + q] = w[_D * nl + q]
+            t = r - base - 1
+            if t < nrow:
+                for q in range(5):
+                    for k in range(nl):
+                        buf[(5 * t + q) * nl + k] = w[(_D + q) * nl + k]
         elif r % CHUNK == 0:
-            o = (r // CHUNK) * 5 * nl
-            for q in range(5 * nl):
-                cp[o + q] = w[_D * nl + q]
+            t = r // CHUNK
+            for q in range(5):
+                for k in range(nl):
+                    cp[(5 * t + q) * nl + k] = w[(_D + q) * nl + k]
 
 
 def _up_range(w, buf, g1, g2, n_lo, n_hi, base):
@@ -380,21 +387,28 @@ def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
         w[_CM2 * nl + k] = -np.sin(x[i])    # chi_{-1}
         w[_PM1 * nl + k] = np.sin(x[i])     # psi_0
         w[_CM1 * nl + k] = np.cos(x[i])     # chi_0
-    # downward pass, keeping checkpoints cp[j] = state of order j * kc
-    # (zero from n_start up)
-    nchunk = (ntop - 1) // kc + 1
-    cp = np.zeros((max(nsmax // kc, nchunk) + 1) * 5 * nl)
-    buf = np.empty(kc * 5 * nl)
-    _down_range(w, cp, buf, nsmax, 2, 0, False)
-    # upward pass, a chunk of orders j kc + 1 .. (j + 1) kc at a time
-    for j in range(nchunk):
-        base = j * kc
-        o = (j + 1) * 5 * nl
-        for q in range(5 * nl):
-            w[_D * nl + q] = cp[o + q]
-            buf[(kc - 1) * 5 * nl + q] = cp[o + q]
-        _down_range(w, cp, buf, base + kc, base + 2, base, True)
-        _up_range(w, buf, g1, g2, base + 1, min(base + kc, ntop), base)
+    if ntop <= DIRECT_ORDERS:
+        # small spheres: all orders 1 .. ntop kept from one downward pass
+        buf = np.empty(ntop * 5 * nl)
+        _down_range(w, buf, buf, nsmax, 2, 0, True)
+        _up_range(w, buf, g1, g2, 1, ntop, 0)
+    else:
+        # downward pass keeping checkpoints cp[j] = state of order j * kc
+        # (zero from n_start up) ...
+        nchunk = (ntop - 1) // kc + 1
+        cp = np.zeros((max(nsmax // kc, nchunk) + 1) * 5 * nl)
+        buf = np.empty(kc * 5 * nl)
+        _down_range(w, cp, buf, nsmax, 2, 0, False)
+        # ... and the upward pass, a chunk of orders j kc + 1 .. (j + 1) kc
+        # at a time
+        for j in range(nchunk):
+            base = j * kc
+            o = (j + 1) * 5 * nl
+            for q in range(5 * nl):
+                w[_D * nl + q] = cp[o + q]
+                buf[(kc - 1) * 5 * nl + q] = cp[o + q]
+            _down_range(w, cp, buf, base + kc, base + 2, base, True)
+            _up_range(w, buf, g1, g2, base + 1, min(base + kc, ntop), base)
     for k in range(hi - lo):
         i = idx[lo + k]
         inv_x = w[_IVX * nl + k]
