@@ -83,8 +83,13 @@ def adt_k(w):
     van de Hulst 1957, §11.22 (eq. for the absorption efficiency).
     """
     w_in = np.asarray(w)
-    real = not np.iscomplexobj(w_in)
-    w = w_in.astype(complex)
+    out = _k_real(w_in.astype(float)) if not np.iscomplexobj(w_in) else _k_complex(w_in)
+    return out[()] if out.ndim == 0 else out
+
+
+def _k_complex(w):
+    """K(w) for a complex array (see :func:`adt_k`)."""
+    w = w.astype(complex)
     small = np.abs(w) < 1.0
     out = np.empty_like(w)
     ws = w[small]
@@ -95,9 +100,26 @@ def adt_k(w):
     wl = w[~small]
     with np.errstate(under="ignore"):
         out[~small] = 0.5 + np.exp(-wl) / wl + np.expm1(-wl) / (wl * wl)
-    if real:
-        out = out.real
-    return out[()] if out.ndim == 0 else out
+    return out
+
+
+def _k_real(w):
+    """K(w) for a real array, in real arithmetic: the same numbers as
+    ``_k_complex(w + 0j).real`` (the imaginary parts stay zero and never
+    enter the real ones; a complex quotient by a real b is evaluated as a
+    product with 1/b, as written here)."""
+    small = np.abs(w) < 1.0
+    out = np.empty_like(w)
+    ws = w[small]
+    acc = np.zeros_like(ws)
+    for ck in _COEF[::-1]:        # acc = (acc + ck) * ws, in place
+        np.add(acc, ck, out=acc)
+        np.multiply(acc, ws, out=acc)
+    out[small] = acc
+    wl = w[~small]
+    with np.errstate(under="ignore"):
+        out[~small] = 0.5 + np.exp(-wl) * (1.0 / wl) + np.expm1(-wl) * (1.0 / (wl * wl))
+    return out
 
 
 def adt_efficiencies(m: ArrayLike | None, x: ArrayLike, *,
@@ -131,11 +153,16 @@ def adt_efficiencies(m: ArrayLike | None, x: ArrayLike, *,
     :func:`edgefit.dust.efficiencies.efficiencies`.
     """
     _, mm1, x = _prepare_index(m, x, m_minus_1)
-    w = -2j * x * mm1
-    qext = 4.0 * np.real(adt_k(w))
-    qabs = 2.0 * np.real(adt_k(2.0 * w.real))
-    qsca = qext - qabs
-    g = np.full(np.shape(x), np.nan)
+    qext, qsca, qabs = _adt_q(mm1, x)
     if np.ndim(x) == 0:
         return MieEfficiencies(float(qext), float(qsca), float(qabs), float("nan"))
-    return MieEfficiencies(np.asarray(qext), np.asarray(qsca), np.asarray(qabs), g)
+    return MieEfficiencies(qext, qsca, qabs, np.full(np.shape(x), np.nan))
+
+
+def _adt_q(mm1, x):
+    """(Q_ext, Q_sca, Q_abs) arrays for checked, broadcast m - 1 (complex)
+    and x (float) arrays: the computation of :func:`adt_efficiencies`."""
+    w = -2j * x * mm1
+    qext = 4.0 * _k_complex(np.atleast_1d(w)).real.reshape(w.shape)
+    qabs = 2.0 * _k_real(np.atleast_1d(2.0 * w.real)).reshape(w.shape)
+    return qext, qext - qabs, qabs

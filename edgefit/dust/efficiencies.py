@@ -48,7 +48,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .adt import adt_efficiencies
+from .adt import _adt_q, adt_efficiencies
 from .mie import MieEfficiencies, _prepare_index, mie_efficiencies
 from ..errors import ArgumentError
 
@@ -126,9 +126,10 @@ def efficiencies(m: ArrayLike | None, x: ArrayLike, method: str = "auto",
     use_adt = adt_error_bound(None, x, m_minus_1=mm1) <= rtol
     out = [np.empty(x.shape) for _ in range(4)]
     if np.any(use_adt):
-        r = adt_efficiencies(None, x[use_adt], m_minus_1=mm1[use_adt])
-        for o, v in zip(out, r):
+        # inputs checked above: the ADT computation without a second check
+        for o, v in zip(out, _adt_q(mm1[use_adt], x[use_adt])):
             o[use_adt] = v
+        out[3][use_adt] = np.nan
     exact = ~use_adt
     if np.any(exact):
         r = mie_efficiencies(None, x[exact], m_minus_1=mm1[exact], backend=backend)
