@@ -421,19 +421,31 @@ def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
         out[3, i] = 2.0 * f * w[_GS * nl + k] / qsca if qsca > 0 else 0.0
 
 
-def _groups_kernel(m, mm1, x, nstop, nstart, idx, out):
+def _groups_serial(m, mm1, x, nstop, nstart, idx, out):
     """All spheres, LANES at a time in the order idx (spheres of similar
-    size together, so that few lanes idle); groups run in parallel threads
-    when compiled with parallel=True (``_prange`` becomes numba.prange)."""
+    size together, so that few lanes idle)."""
     g1, g2 = _g_coefficients(nstop.max() + 1)
-    ngroup = (x.size + LANES - 1) // LANES
-    for gi in _prange(ngroup):
+    for gi in range((x.size + LANES - 1) // LANES):
         lo = gi * LANES
         _group_kernel(m, mm1, x, nstop, nstart, idx, lo, min(lo + LANES, x.size),
                       g1, g2, out)
 
 
-# Names the group loop reads from this module; the compiled version gets
+def _groups_parallel(m, mm1, x, nstop, nstart, idx, out):
+    """:func:`_groups_serial` with the groups in parallel threads when
+    compiled with parallel=True (``_prange`` becomes numba.prange).  A
+    function of its own: numba's on-disk cache tells compiled versions of
+    one function apart by argument types and bytecode, not by the parallel
+    option, so one function compiled both ways would load either version
+    for both."""
+    g1, g2 = _g_coefficients(nstop.max() + 1)
+    for gi in _prange((x.size + LANES - 1) // LANES):
+        lo = gi * LANES
+        _group_kernel(m, mm1, x, nstop, nstart, idx, lo, min(lo + LANES, x.size),
+                      g1, g2, out)
+
+
+# Names the group loops read from this module; the compiled versions get
 # numba.prange and the compiled helpers instead (edgefit._jit.jit).
 _prange = range
 _group_kernel = _group
@@ -456,8 +468,8 @@ def _numba_kernels():
     group = _jit.jit(_group, globals=steps, **opts)
     names = {"_prange": nb.prange, "_group_kernel": group,
              "_g_coefficients": _jit.jit(_g_coefficients, **opts)}
-    return (_jit.jit(_groups_kernel, parallel=True, globals=names, **opts),
-            _jit.jit(_groups_kernel, globals=names, **opts))
+    return (_jit.jit(_groups_parallel, parallel=True, globals=names, **opts),
+            _jit.jit(_groups_serial, globals=names, **opts))
 
 
 def numba_available():
@@ -634,8 +646,14 @@ def mie_efficiencies(m: ArrayLike | None, x: ArrayLike, *, backend: str = "auto"
     kernels = None if backend == "numpy" else _numba_kernels(required=backend == "numba")
     if xf.size:
         if kernels is not None:
-            kernel = kernels[0] if nstop.sum() >= PARALLEL_MIN_TERMS else kernels[1]
-            kernel(mf, mm1f, xf, nstop, nstart, np.argsort(nstart, kind="stable"), out)
+            order = np.argsort(nstart, kind="stable")
+            if nstop.sum() >= PARALLEL_MIN_TERMS:
+                # groups handed to the threads one at a time: they are sorted
+                # by size, so equal contiguous shares would be unequal work
+                with _jit.numba_module().parallel_chunksize(1):
+                    kernels[0](mf, mm1f, xf, nstop, nstart, order, out)
+            else:
+                kernels[1](mf, mm1f, xf, nstop, nstart, order, out)
         else:
             _numpy_batch(mf, mm1f, xf, nstop, nstart, out, int(chunk_terms))
     res = [out[i].reshape(shape) for i in range(4)]
