@@ -216,7 +216,9 @@ _D = 12
 # and the upward state: psi_{n-1}, psi_{n-2}, chi_{n-1}, chi_{n-2}, the three
 # sums, a_{n-1} and b_{n-1} (real, imaginary).
 _PM1, _PM2, _CM1, _CM2, _SCA, _ABS, _GS, _APR, _API, _BPR, _BPI = range(17, 28)
-_NROWS = 28
+# psi_n of the current order
+_PSI = 28
+_NROWS = 29
 
 
 def _lane_setup(m, mm1, x):
@@ -272,14 +274,17 @@ def _down_range(w, cp, buf, n_hi, n_lo, base, to_buf):
                     cp[(5 * t + q) * nl + k] = w[(_D + q) * nl + k]
 
 
-def _up_range(w, buf, g1, g2, n_lo, n_hi, base):
+def _up_range(w, buf, g1, g2, n_lo, n_hi, base, xmin):
     """Orders n = n_lo .. n_hi of the upward recurrences and sums of all
     lanes; buf row n - base - 1 holds the downward values of order n.
     With xi = psi - i chi:  den_a = xi (D(mx) + m n/x) - m xi_{n-1},
     den_b = xi (m D(mx) + n/x) - xi_{n-1},
     a_n = psi (E - (m-1) D(x)) conj(den_a)/|den_a|^2,
     b_n = psi (m E + (m-1) D(x)) conj(den_b)/|den_b|^2 (module docstring),
-    complex products written out in real and imaginary parts."""
+    complex products written out in real and imaginary parts.  psi_n comes
+    from the upward recurrence for n < x and from psi_{n-1} / (D_n(x) + n/x)
+    otherwise; below xmin (the smallest x of the group) a loop without the
+    division serves all lanes."""
     nl = LANES
     for n in range(n_lo, n_hi + 1):
         nf = float(n)
@@ -288,6 +293,18 @@ def _up_range(w, buf, g1, g2, n_lo, n_hi, base):
         c1 = g1[n]
         c2 = g2[n]
         o = (n - base - 1) * 5 * nl
+        if nf < xmin:
+            for k in range(nl):
+                w[_PSI * nl + k] = f2 * w[_IVX * nl + k] * w[_PM1 * nl + k] - w[_PM2 * nl + k]
+        else:
+            for k in range(nl):
+                psi_m1 = w[_PM1 * nl + k]
+                ni = nf * w[_IVX * nl + k]
+                if nf < w[_X * nl + k]:
+                    psi = f2 * w[_IVX * nl + k] * psi_m1 - w[_PM2 * nl + k]
+                else:
+                    psi = psi_m1 / (buf[o + 2 * nl + k] + ni)
+                w[_PSI * nl + k] = psi
         for k in range(nl):
             inv_x = w[_IVX * nl + k]
             mr = w[_MR * nl + k]
@@ -301,10 +318,7 @@ def _up_range(w, buf, g1, g2, n_lo, n_hi, base):
             dxn = buf[o + 2 * nl + k]
             er = buf[o + 3 * nl + k]
             ei = buf[o + 4 * nl + k]
-            if nf < w[_X * nl + k]:
-                psi = f * psi_m1 - w[_PM2 * nl + k]
-            else:
-                psi = psi_m1 / (dxn + ni)
+            psi = w[_PSI * nl + k]
             chi = f * chi_m1 - w[_CM2 * nl + k]
             ur = dr + mr * ni
             ui = di + mi * ni
@@ -366,6 +380,7 @@ def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
     w = np.zeros(_NROWS * nl)
     nsmax = 2
     ntop = 1
+    xmin = np.inf
     for k in range(nl):
         i = idx[min(lo + k, hi - 1)]
         izr, izi, ivx, cr, ci = _lane_setup(m[i], mm1[i], x[i])
@@ -383,6 +398,7 @@ def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
         w[_NSP * nl + k] = float(nstop[i])
         nsmax = max(nsmax, nstart[i])
         ntop = max(ntop, nstop[i])
+        xmin = min(xmin, x[i])
         w[_PM2 * nl + k] = np.cos(x[i])     # psi_{-1}
         w[_CM2 * nl + k] = -np.sin(x[i])    # chi_{-1}
         w[_PM1 * nl + k] = np.sin(x[i])     # psi_0
@@ -391,7 +407,7 @@ def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
         # small spheres: all orders 1 .. ntop kept from one downward pass
         buf = np.empty(ntop * 5 * nl)
         _down_range(w, buf, buf, nsmax, 2, 0, True)
-        _up_range(w, buf, g1, g2, 1, ntop, 0)
+        _up_range(w, buf, g1, g2, 1, ntop, 0, xmin)
     else:
         # downward pass keeping checkpoints cp[j] = state of order j * kc
         # (zero from n_start up) ...
@@ -408,7 +424,7 @@ def _group(m, mm1, x, nstop, nstart, idx, lo, hi, g1, g2, out):
                 w[_D * nl + q] = cp[o + q]
                 buf[(kc - 1) * 5 * nl + q] = cp[o + q]
             _down_range(w, cp, buf, base + kc, base + 2, base, True)
-            _up_range(w, buf, g1, g2, base + 1, min(base + kc, ntop), base)
+            _up_range(w, buf, g1, g2, base + 1, min(base + kc, ntop), base, xmin)
     for k in range(hi - lo):
         i = idx[lo + k]
         inv_x = w[_IVX * nl + k]
