@@ -178,3 +178,19 @@ def test_method_switch_and_errors():
         efficiencies(m, x, rtol=0.5)
     with pytest.raises(ValueError, match="kappa >= 0"):
         efficiencies(1 - 1e-3 - 1e-4j, x)
+
+
+@pytest.mark.parametrize("n", [1, 5, 1000])
+def test_k_of_real_argument_equals_complex_evaluation(n):
+    """K of a real argument is evaluated in real arithmetic; it must give
+    exactly the real part of the complex evaluation at w + 0j (the
+    imaginary parts there are zero and never enter the real ones), on both
+    sides of the |w| = 1 switch between series and closed form, for arrays
+    of any length and for scalars.  The outside checks of K are the limits
+    and the van de Hulst formula above."""
+    rng = np.random.default_rng(n)
+    w = 10 ** rng.uniform(-8, 3, n)
+    w[0] = 1.0
+    np.testing.assert_array_equal(adt_k(w), adt_k(w.astype(complex)).real)
+    for v in (w[-1], 0.3, 2.5):
+        assert adt_k(v) == adt_k(complex(v)).real

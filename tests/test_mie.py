@@ -221,21 +221,40 @@ def test_input_errors():
         mie_efficiencies(1.5, 1.0, backend="gpu")
 
 
-def test_paired_spheres_equal_single_sphere_results():
-    """The compiled loop runs the downward recurrences of two spheres side by
-    side; every sphere's efficiencies must equal those computed for it alone
-    (bit for bit: each sphere's steps are unchanged), including the odd one
-    left at the end of a block.  Values from miepython 3 are the outside
-    check elsewhere in this file."""
+def test_grouped_spheres_equal_single_sphere_results():
+    """The compiled kernel runs groups of mie.LANES spheres side by side
+    (SIMD lanes) and recomputes the downward recurrences a chunk of orders
+    at a time from checkpoints (above mie.DIRECT_ORDERS orders); every
+    sphere's efficiencies must equal those computed for it alone, bit for
+    bit (each sphere's operations are unchanged), whatever the other
+    spheres of its group, including spare lanes of the last group; and the
+    threaded and the one-thread group loops must agree bit for bit.
+    Values from miepython 3 and mpmath are the outside checks elsewhere in
+    this file."""
     from edgefit.dust import mie
 
     if not mie.numba_available():
         pytest.skip("numba not available")
     rng = np.random.default_rng(12)
-    x = np.exp(rng.uniform(np.log(0.05), np.log(3000.0), 7))
-    m = 1 - 10 ** rng.uniform(-5, -1, 7) + 1j * 10 ** rng.uniform(-6, -1, 7)
+    n = 2 * mie.LANES + 5
+    # sizes from Rayleigh to about 9 chunks above the direct limit, mixed
+    # within groups; X-ray and optical indices
+    x = np.exp(rng.uniform(np.log(0.05), np.log(3000.0), n))
+    m = 1 - 10 ** rng.uniform(-5, -1, n) + 1j * 10 ** rng.uniform(-6, -1, n)
+    m[::7] = 1.5 + 0.02j
     together = mie.mie_efficiencies(m, x)
-    for i in range(x.size):
+    for i in range(n):
         alone = mie.mie_efficiencies(m[i:i + 1], x[i:i + 1])
         for a, b in zip(together, alone):
             assert np.asarray(a)[i] == np.asarray(b)[0]
+    mm1 = m - 1
+    nstop = mie.n_terms(x)
+    nstart = mie._n_start(nstop, np.abs(m * x))
+    order = np.argsort(nstart, kind="stable")
+    outs = []
+    for kernel in mie._numba_kernels():
+        out = np.empty((4, n))
+        kernel(m, mm1, x, nstop, nstart, order, out)
+        outs.append(out)
+    np.testing.assert_array_equal(outs[0], outs[1])
+    np.testing.assert_array_equal(outs[1], np.array(together))

@@ -83,19 +83,23 @@ Bohren & Huffman eq. 4.62's
 
 Back ends
 ---------
-The per-sphere kernel runs compiled with numba when numba is importable
-(an optional dependency, imported lazily on first use and cached on disk by
-numba; blocks of spheres run in parallel threads when the batch has more
-than ``PARALLEL_MIN_TERMS`` terms), else as a pure-NumPy loop over the
-order n vectorised over spheres (about 10x slower; fine for small batches
-and for many energies at one size).  The compiled loop runs the downward
-recurrences of two spheres side by side (each is a chain of dependent
-divisions that leaves the processor idle when run alone); every sphere's
-arithmetic is unchanged.  Set ``EDGEFIT_NO_NUMBA=1`` to force
-the NumPy path.  Both
-implement the same recurrences in the same order and agree to about
-1e-13 (tested).  Memory is bounded: the NumPy path processes spheres in
-chunks of at most ``chunk_terms`` stored terms.
+The kernel runs compiled with numba when numba is importable (an optional
+dependency, imported lazily on first use and cached on disk by numba;
+groups of spheres run in parallel threads when the batch has more than
+``PARALLEL_MIN_TERMS`` terms), else as a pure-NumPy loop over the order n
+vectorised over spheres (about 30x slower; fine for small batches and for
+many energies at one size).  The compiled kernel takes the spheres in
+groups of ``LANES`` of similar size and runs each recurrence step for the
+whole group in one loop over the spheres, which the compiler turns into
+SIMD instructions; the downward values are kept at every ``CHUNK``-th
+order only and recomputed a chunk at a time for the upward sums, so that
+the working set stays in the processor's first-level cache.  Every
+sphere's arithmetic is the same operations in the same order as for that
+sphere alone (the results do not depend on the other spheres of its
+group; tested bit for bit).  Set ``EDGEFIT_NO_NUMBA=1`` to force the NumPy
+path.  Both implement the same recurrences in the same order and agree to
+about 1e-13 (tested).  Memory is bounded: the NumPy path processes spheres
+in chunks of at most ``chunk_terms`` stored terms.
 
 References
 ----------
@@ -497,7 +501,8 @@ def numba_available():
 # Pure-NumPy path: the same recurrences, vectorised over spheres
 # --------------------------------------------------------------------------
 def _numpy_chunk(m, mm1, x, nstop, nstart, out):
-    """Same algorithm as :func:`_sphere` for a chunk of spheres (in place into out)."""
+    """Same algorithm as the compiled kernel (:func:`_group`) for a chunk of
+    spheres (in place into out)."""
     # order by number of terms (descending) so the active spheres are a prefix
     order = np.argsort(-nstop, kind="stable")
     m, mm1, x = m[order], mm1[order], x[order]
