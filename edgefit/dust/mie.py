@@ -481,15 +481,15 @@ def _numba_kernels():
     numba's on-disk cache makes later processes fast).  error_model="numpy"
     drops the zero-division checks that would stop the loop vectoriser."""
     nb = _jit.require("the compiled Mie kernel")
-    opts = {"error_model": "numpy"}
-    steps = {"_down_range": _jit.jit(_down_range, **opts),
-             "_up_range": _jit.jit(_up_range, **opts),
-             "_lane_setup": _jit.jit(_lane_setup, **opts)}
-    group = _jit.jit(_group, globals=steps, **opts)
+    em = "numpy"
+    steps = {"_down_range": _jit.jit(_down_range, error_model=em),
+             "_up_range": _jit.jit(_up_range, error_model=em),
+             "_lane_setup": _jit.jit(_lane_setup, error_model=em)}
+    group = _jit.jit(_group, globals=steps, error_model=em)
     names = {"_prange": nb.prange, "_group_kernel": group,
-             "_g_coefficients": _jit.jit(_g_coefficients, **opts)}
-    return (_jit.jit(_groups_parallel, parallel=True, globals=names, **opts),
-            _jit.jit(_groups_serial, globals=names, **opts))
+             "_g_coefficients": _jit.jit(_g_coefficients, error_model=em)}
+    return (_jit.jit(_groups_parallel, parallel=True, globals=names, error_model=em),
+            _jit.jit(_groups_serial, globals=names, error_model=em))
 
 
 def numba_available():
