@@ -49,7 +49,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from .adt import _adt_q, adt_efficiencies
-from .mie import MieEfficiencies, _prepare_index, mie_efficiencies
+from .mie import MieEfficiencies, _mie_flat, _prepare_index, mie_efficiencies
 from ..errors import ArgumentError
 
 __all__ = ["efficiencies", "adt_error_bound", "DEFAULT_RTOL", "MAX_ERROR_RATIO"]
@@ -132,7 +132,10 @@ def efficiencies(m: ArrayLike | None, x: ArrayLike, method: str = "auto",
         out[3][use_adt] = np.nan
     exact = ~use_adt
     if np.any(exact):
-        r = mie_efficiencies(None, x[exact], m_minus_1=mm1[exact], backend=backend)
+        # checked inputs: exact Mie theory for m = 1 + (m - 1), as
+        # mie_efficiencies(None, x, m_minus_1=m - 1) computes it
+        mm1e = mm1[exact]
+        r = _mie_flat(1.0 + mm1e, mm1e, x[exact], backend)
         for o, v in zip(out, r):
             o[exact] = v
     if scalar:

@@ -609,6 +609,31 @@ def _numpy_batch(m, mm1, x, nstop, nstart, out, chunk_terms):
         i = j
 
 
+def _mie_flat(mf, mm1f, xf, backend="auto", chunk_terms=DEFAULT_CHUNK_TERMS):
+    """(4, n) array of (qext, qsca, qabs, g) for checked 1-d contiguous
+    arrays m (complex), m - 1 (complex) and x (float): the computation of
+    :func:`mie_efficiencies` after its input checks."""
+    if backend not in ("auto", "numba", "numpy"):
+        raise ArgumentError(f"backend must be 'auto', 'numba' or 'numpy', not {backend!r}")
+    nstop = n_terms(xf)
+    nstart = _n_start(nstop, np.abs(mf * xf))
+    out = np.empty((4, xf.size))
+    kernels = None if backend == "numpy" else _numba_kernels(required=backend == "numba")
+    if xf.size:
+        if kernels is not None:
+            order = np.argsort(nstart, kind="stable")
+            if nstop.sum() >= PARALLEL_MIN_TERMS:
+                # groups handed to the threads one at a time: they are sorted
+                # by size, so equal contiguous shares would be unequal work
+                with _jit.numba_module().parallel_chunksize(1):
+                    kernels[0](mf, mm1f, xf, nstop, nstart, order, out)
+            else:
+                kernels[1](mf, mm1f, xf, nstop, nstart, order, out)
+        else:
+            _numpy_batch(mf, mm1f, xf, nstop, nstart, out, int(chunk_terms))
+    return out
+
+
 def mie_efficiencies(m: ArrayLike | None, x: ArrayLike, *, backend: str = "auto",
                      m_minus_1: ArrayLike | None = None,
                      chunk_terms: int = DEFAULT_CHUNK_TERMS) -> MieEfficiencies:
@@ -656,27 +681,8 @@ def mie_efficiencies(m: ArrayLike | None, x: ArrayLike, *, backend: str = "auto"
     """
     m, mm1, x = _prepare_index(m, x, m_minus_1)
     shape = x.shape
-    mf = np.ascontiguousarray(m.ravel())
-    mm1f = np.ascontiguousarray(mm1.ravel())
-    xf = np.ascontiguousarray(x.ravel())
-    nstop = n_terms(xf)
-    nstart = _n_start(nstop, np.abs(mf * xf))
-    out = np.empty((4, xf.size))
-    if backend not in ("auto", "numba", "numpy"):
-        raise ArgumentError(f"backend must be 'auto', 'numba' or 'numpy', not {backend!r}")
-    kernels = None if backend == "numpy" else _numba_kernels(required=backend == "numba")
-    if xf.size:
-        if kernels is not None:
-            order = np.argsort(nstart, kind="stable")
-            if nstop.sum() >= PARALLEL_MIN_TERMS:
-                # groups handed to the threads one at a time: they are sorted
-                # by size, so equal contiguous shares would be unequal work
-                with _jit.numba_module().parallel_chunksize(1):
-                    kernels[0](mf, mm1f, xf, nstop, nstart, order, out)
-            else:
-                kernels[1](mf, mm1f, xf, nstop, nstart, order, out)
-        else:
-            _numpy_batch(mf, mm1f, xf, nstop, nstart, out, int(chunk_terms))
+    out = _mie_flat(np.ascontiguousarray(m.ravel()), np.ascontiguousarray(mm1.ravel()),
+                    np.ascontiguousarray(x.ravel()), backend, chunk_terms)
     res = [out[i].reshape(shape) for i in range(4)]
     if shape == ():
         res = [float(r) for r in res]
