@@ -67,7 +67,12 @@ def jit(func: Callable, *, parallel: bool = False, globals: dict | None = None,
     for a loop that is a plain ``range`` in Python, or the compiled version
     of a helper): ``func`` is rebuilt on a copy of its module's namespace,
     which is never modified.  Other ``options`` (e.g. ``nogil=True``) go to
-    ``numba.njit``."""
+    ``numba.njit``.
+
+    numba's on-disk cache tells the compiled versions of one Python function
+    apart by argument types and bytecode only -- not by ``parallel``,
+    ``globals`` or other options -- so compile each function one way only:
+    two builds of the same function load whichever was cached last."""
     nb = require(getattr(func, "__name__", "a compiled kernel"))
     if globals:
         func = types.FunctionType(func.__code__, {**func.__globals__, **globals},
