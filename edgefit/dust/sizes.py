@@ -97,6 +97,11 @@ class SizeDistribution:
     family: ClassVar[str] = ""
     PARAMS: ClassVar[tuple[Param, ...]] = ()
     register: ClassVar[bool] = True
+    #: (code, parameter names) of this class's shape in the compiled size
+    #: weights (:func:`_node_shape`), read from the class's own namespace
+    #: only: a subclass (which may change the shape) declares its own or
+    #: takes the general path.
+    _KERNEL_SHAPE: ClassVar[tuple[int, tuple[str, ...]] | None] = None
 
     def __init_subclass__(cls, **kw):
         super().__init_subclass__(**kw)
@@ -196,6 +201,7 @@ class PowerLaw(SizeDistribution):
     family = "power_law"
     PARAMS = (_AMIN, _AMAX,
               Param("index", 3.5, 1.0, 6.0, "", "power-law index q of n(a) ∝ a^-q", False))
+    _KERNEL_SHAPE = (0, ("index",))
 
     def __init__(self, index=3.5, amin=0.005, amax=0.25):
         super().__init__(index=index, amin=amin, amax=amax)
@@ -246,6 +252,7 @@ class LogNormal(SizeDistribution):
               Param("width", 0.4, 0.05, 2.0, "", "width w in ln a", False),
               Param("amin", 0.001, 0.001, 1.0, "um", "smallest grain radius", False),
               Param("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
+    _KERNEL_SHAPE = (1, ("center", "width"))
 
     def __init__(self, center=0.1, width=0.4, amin=0.001, amax=5.0):
         super().__init__(center=center, width=width, amin=amin, amax=amax)
@@ -266,6 +273,7 @@ class CutoffPowerLaw(SizeDistribution):
               Param("atrans", 0.2, 0.005, 3.0, "um", "transition radius a_t", False),
               Param("acut", 0.1, 0.005, 3.0, "um", "cut-off scale a_c", True),
               Param("amax", 5.0, 0.01, 5.0, "um", "largest grain radius", False))
+    _KERNEL_SHAPE = (2, ("index", "atrans", "acut"))
 
     def __init__(self, index=3.5, amin=0.005, atrans=0.2, acut=0.1, amax=5.0):
         super().__init__(index=index, amin=amin, atrans=atrans, acut=acut, amax=amax)
@@ -518,6 +526,39 @@ def _nodes_exp_loop(u, ulo, uhi, glx, uu, half, a_full, a):
     return k0, nk
 
 
+def _node_shape(code, a, ln_a, p0, p1, p2):
+    """n(a) at one node of radius ``a`` (logarithm ``ln_a``) for a built-in
+    family's ``_KERNEL_SHAPE`` code, with the arithmetic of its NumPy
+    shape: 0 power law (p0 = q), 1 lognormal (p0 = a0, p1 = w), 2 cut-off
+    power law (p0 = q, p1 = a_t, p2 = a_c)."""
+    if code == 0:
+        return math.exp(ln_a * (-p0))
+    if code == 1:
+        z = math.log(a / p0) / p1
+        return math.exp(-0.5 * z * z) / a
+    z = max(a - p1, 0.0) / p2
+    return a ** (-p0) * math.exp(-min(z ** 3, 700.0))
+
+
+def _family_weights_loop(code, p0, p1, p2, ulo, uhi, u, a_full, fac, inv_ap, power, w):
+    """:meth:`SizeGrid.weights` of a built-in family in one compiled call:
+    the support's nodes (:func:`_nodes_exp_loop`), the shape at the nodes
+    (:func:`_node_shape`) and the moments and weights
+    (:func:`_weights_loop`) into ``w``; work arrays are allocated here."""
+    m = u.size - 1
+    nq = _GL_X.size
+    uu = np.empty((m, nq))
+    half = np.empty(m)
+    a = np.empty((m, nq))
+    k0, nk = _nodes_exp_loop(u, ulo, uhi, _GL_X, uu, half, a_full, a)
+    f = np.empty((nk, nq))
+    for i in range(nk):
+        for q in range(nq):
+            f[i, q] = _node_shape(code, a[i, q], uu[i, q], p0, p1, p2)
+    _weights_loop(f, half[:nk], a[:nk], uu[:nk], k0, u, _GL_W, power, np.empty((nk, 4)),
+                  fac, inv_ap, w)
+
+
 @_jit.kernels
 def _numba_kernels():
     """The compiled :func:`_moments_loop` and :func:`_nodes_loop` (None when
@@ -525,9 +566,12 @@ def _numba_kernels():
     :meth:`SizeGrid.weights` run instead)."""
     moments = _jit.jit(_moments_loop)
     nodes = _jit.jit(_nodes_loop)
-    return {"moments": moments, "nodes": nodes,
-            "nodes_exp": _jit.jit(_nodes_exp_loop, globals={"_nodes_loop": nodes}),
-            "weights": _jit.jit(_weights_loop, globals={"_moments_loop": moments})}
+    nodes_exp = _jit.jit(_nodes_exp_loop, globals={"_nodes_loop": nodes})
+    weights = _jit.jit(_weights_loop, globals={"_moments_loop": moments})
+    return {"moments": moments, "nodes": nodes, "nodes_exp": nodes_exp, "weights": weights,
+            "family": _jit.jit(_family_weights_loop, globals={
+                "_nodes_exp_loop": nodes_exp, "_weights_loop": weights,
+                "_node_shape": _jit.jit(_node_shape)})}
 
 
 class SizeGrid:
@@ -590,17 +634,23 @@ class SizeGrid:
         self._check_range(lo, hi)
         ulo, uhi = math.log(lo), math.log(hi)
         kern = _numba_kernels()
+        spec = type(dist).__dict__.get("_KERNEL_SHAPE")
+        if kern is not None and spec is not None:
+            # a built-in family: nodes, shape, moments and weights in one call
+            code, names = spec
+            p = [dist.values[n] for n in names] + [0.0] * (3 - len(names))
+            w = np.empty(self.a.size)
+            kern["family"](code, p[0], p[1], p[2], ulo, uhi, self.u, self._nodes_full(kern),
+                           self._adjoint_factors(), self._inv_a_power(), self.power, w)
+            return w
         if kern is not None:
             # the support's grid intervals and their Gauss-Legendre nodes in
             # one compiled call (same arithmetic as the NumPy lines below)
             work = self.__dict__.get("_nodes_work")
             if work is None:
                 # work arrays, and the exp of every whole interval's nodes
-                full = np.empty((self.a.size - 1, _GL_X.size))
-                kern["nodes"](self.u, self.u[0], self.u[-1], _GL_X, full,
-                              np.empty(self.a.size - 1))
                 work = self._nodes_work = (np.empty((self.a.size - 1, _GL_X.size)),
-                                           np.empty(self.a.size - 1), np.exp(full))
+                                           np.empty(self.a.size - 1), self._nodes_full(kern))
             a = np.empty((self.a.size - 1, _GL_X.size))
             k0, nk = kern["nodes_exp"](self.u, ulo, uhi, _GL_X, work[0], work[1], work[2], a)
             k1 = k0 + nk - 1
@@ -642,6 +692,16 @@ class SizeGrid:
         half = 0.5 * (right - left)
         uu = (left + half)[:, None] + half[:, None] * _GL_X      # (nk, 6)
         return k0, k1, uu, half, np.exp(uu)
+
+    def _nodes_full(self, kern):
+        """exp of the Gauss-Legendre nodes of every whole grid interval
+        (computed once per grid by the compiled node loop)."""
+        full = self.__dict__.get("_a_full")
+        if full is None:
+            full = np.empty((self.a.size - 1, _GL_X.size))
+            kern["nodes"](self.u, self.u[0], self.u[-1], _GL_X, full, np.empty(self.a.size - 1))
+            full = self._a_full = np.exp(full)
+        return full
 
     def _a_power(self):
         cached = self.__dict__.get("_a_p")

@@ -66,6 +66,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from .. import _jit
 from .._units import as_kev
 from ..errors import ModelError, PhysicsDataError
 from ..physics import atomic
@@ -90,6 +91,32 @@ def _remember(cache, key, value, size):
     if len(cache) >= size:
         cache.pop(next(iter(cache)))
     cache[key] = value
+
+
+def _interp_scaled_loop(x, shift, xp, fp, scale, u, out):
+    """u = np.interp(x - shift, xp, fp) (end values outside ``xp``) and
+    out = u * scale in one pass over the increasing ``x`` (compiled by
+    numba; the interpolation formula of np.interp, equal to rounding)."""
+    last = xp.size - 1
+    j = 0
+    for i in range(x.size):
+        xi = x[i] - shift
+        if xi >= xp[last]:
+            v = fp[last]
+        elif xi <= xp[0]:
+            v = fp[0]
+        else:
+            while xp[j + 1] <= xi:
+                j += 1
+            v = (fp[j + 1] - fp[j]) / (xp[j + 1] - xp[j]) * (xi - xp[j]) + fp[j]
+        u[i] = v
+        out[i] = v * scale
+
+
+@_jit.kernels
+def _numba_kernels():
+    """The compiled interpolation of the dust edge (None without numba)."""
+    return {"interp": _jit.jit(_interp_scaled_loop, nogil=True)}
 
 
 
@@ -315,7 +342,9 @@ class DustEdge(Component):
         return {"energy": e, "abs": table.sigma_abs, "sca": table.sigma_sca,
                 "sca_out": s_sca_out, "other_atoms": other,
                 "other": other if self.count_once else np.zeros_like(e), "a3": table.sizes.a ** 3,
-                "atoms_per_um3": per_cm3 * 1e-12}
+                "atoms_per_um3": per_cm3 * 1e-12,
+                # fit-time caches (see _per_column)
+                "weights": {}, "per_column": {}, "combined": {}}
 
     # -- distribution ------------------------------------------------------
     def distribution(self, **values):
@@ -356,9 +385,11 @@ class DustEdge(Component):
     fast_cache_size = 16
 
     def _weights_cached(self, table, pre, values, key):
-        """(W, ⟨N_Z(a)⟩) of the size distribution, cached per distinct
+        """The size distribution's weights per edge atom, W / ⟨N_Z(a)⟩,
+        followed by a 1 (the weight of the other atoms' column of the
+        combined matrix, see :meth:`_per_column`), cached per distinct
         value ``key`` of its parameters."""
-        cache = pre.setdefault("weights", {})
+        cache = pre["weights"]
         hit = cache.get(key)
         if hit is None:
             from ..dust.sizes import make_distribution
@@ -373,31 +404,34 @@ class DustEdge(Component):
             except PhysicsDataError as exc:
                 raise ModelError(f"{self.name}: {exc}") from exc
             atoms = 4.0 * math.pi / 3.0 * float(pre["a3"] @ w) * pre["atoms_per_um3"]
-            hit = (w, atoms)
+            hit = np.empty(w.size + 1)
+            np.divide(w, atoms, out=hit[:-1])
+            hit[-1] = 1.0
             _remember(cache, key, hit, self.fast_cache_size)
         return hit
 
     def _per_column(self, table, pre, values, dkey, rows):
         """τ_dust / (N_Z,dust 1e16) on table rows ``rows``: the size average
-        (one matrix product of the combined per-size cross section
-        σ_abs + (1 − f_in) σ_sca, or σ_abs + σ_sca,lost with a halo, with the
-        weights) per edge atom, less the other atoms' term; cached per
-        (distribution, f_in)."""
+        per edge atom of the combined per-size cross section
+        σ_abs + (1 − f_in) σ_sca (or σ_abs + σ_sca,lost with a halo) less
+        the other atoms' term, as one matrix-vector product (the other
+        atoms' term is the combined matrix's last column, with weight 1);
+        cached per (distribution, f_in)."""
         fin = 0.0 if self.halo is not None else values["fin"]
-        cache = pre.setdefault("per_column", {})
+        cache = pre["per_column"]
         key = (dkey, fin, rows)
         hit = cache.get(key)
         if hit is None:
-            w, atoms = self._weights_cached(table, pre, values, dkey)
-            combined = pre.setdefault("combined", {})
+            w = self._weights_cached(table, pre, values, dkey)
+            combined = pre["combined"]
             mat = combined.get(fin)
             if mat is None:
                 lost = pre["sca_out"] if pre["sca_out"] is not None else (1.0 - fin) * pre["sca"]
-                mat = pre["abs"] + lost
+                mat = np.empty((lost.shape[0], lost.shape[1] + 1))
+                np.add(pre["abs"], lost, out=mat[:, :-1])
+                np.negative(pre["other"], out=mat[:, -1])
                 _remember(combined, fin, mat, 4)
-            r0, r1 = rows
-            hit = (mat[r0:r1] @ w) / atoms
-            hit -= pre["other"][r0:r1]
+            hit = mat[rows[0]:rows[1]] @ w
             _remember(cache, key, hit, self.fast_cache_size)
         return hit
 
@@ -427,14 +461,24 @@ class DustEdge(Component):
         key = (dkey, values["fin"], shift)
         shapes = pre["shapes"]
         u = shapes.get(key)
-        if u is None:
-            smin, smax = pre["shift_range"]
-            rows = pre["rows"] if smin <= shift <= smax else (0, pre["pre"]["energy"].size)
-            per_col = self._per_column(pre["table"], pre["pre"], values, dkey, rows)
-            u = np.interp(pre["x"] - shift * 1e-3, pre["pre"]["energy"][rows[0]:rows[1]],
-                          per_col)
-            _remember(shapes, key, u, self.fast_cache_size)
-        return u * (-(values["col"] * 1e16))
+        scale = -(values["col"] * 1e16)
+        if u is not None:
+            return u * scale
+        smin, smax = pre["shift_range"]
+        rows = pre["rows"] if smin <= shift <= smax else (0, pre["pre"]["energy"].size)
+        per_col = self._per_column(pre["table"], pre["pre"], values, dkey, rows)
+        energy = pre["pre"]["energy"][rows[0]:rows[1]]
+        kern = _numba_kernels()
+        if kern is not None:
+            x = pre["x"]
+            u = np.empty(x.size)
+            out = np.empty(x.size)
+            kern["interp"](x, shift * 1e-3, energy, per_col, scale, u, out)
+        else:
+            u = np.interp(pre["x"] - shift * 1e-3, energy, per_col)
+            out = u * scale
+        _remember(shapes, key, u, self.fast_cache_size)
+        return out
 
     def has_log_transmission(self) -> bool:
         return True
