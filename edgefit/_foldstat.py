@@ -161,6 +161,27 @@ def _residuals_py(mu, counts, bounds, out, starts):
     return musum - musum == 0.0
 
 
+def _group_deviance_py(indptr, cols, data, flux, bounds, xn, mu, counts, band):
+    """Fold the stacked rows into ``mu`` (:func:`_band_fold_py` when
+    ``band``, ``cols`` holding each row's first column, else
+    :func:`_group_fold_py`), then sum the deviance: one compiled call."""
+    if band:
+        _band_fold_py(indptr, cols, data, flux, bounds, xn, mu)
+    else:
+        _group_fold_py(indptr, cols, data, flux, bounds, xn, mu)
+    return _deviance_sum(mu, counts)
+
+
+def _group_residuals_py(indptr, cols, data, flux, bounds, xn, mu, counts, band, out, starts):
+    """:func:`_group_deviance_py`'s folding, then the signed residuals
+    (:func:`_residuals_py`)."""
+    if band:
+        _band_fold_py(indptr, cols, data, flux, bounds, xn, mu)
+    else:
+        _group_fold_py(indptr, cols, data, flux, bounds, xn, mu)
+    return _residuals_py(mu, counts, bounds, out, starts)
+
+
 @_jit.kernels
 def _numba_kernels():
     """The compiled kernels by name (built once per process)."""
@@ -168,17 +189,23 @@ def _numba_kernels():
     one = _jit.jit(_deviance_one, nogil=True, globals={"_xlogy": xlogy})
     dsum = _jit.jit(_deviance_sum, nogil=True, globals={"_deviance_one": one})
     fold = _jit.jit(_fold_py, nogil=True)
-    helpers = {"_deviance_one": one, "_deviance_sum": dsum, "_fold_py": fold}
+    gfold = _jit.jit(_group_fold_py, nogil=True)
+    # only the band products may be reassociated (no other fast-math
+    # flag: NaN and inf must keep their meaning for the model checks)
+    bfold = _jit.jit(_band_fold_py, nogil=True, fastmath={"reassoc"})
+    gres = _jit.jit(_residuals_py, nogil=True, globals={"_deviance_one": one})
+    helpers = {"_deviance_one": one, "_deviance_sum": dsum, "_fold_py": fold,
+               "_band_fold_py": bfold, "_group_fold_py": gfold, "_residuals_py": gres}
     return {
         "fold": fold,
         "dev": _jit.jit(_fold_deviance_py, nogil=True, globals=helpers),
         "res": _jit.jit(_fold_residuals_py, nogil=True, globals=helpers),
-        "gfold": _jit.jit(_group_fold_py, nogil=True),
-        # only the band products may be reassociated (no other fast-math
-        # flag: NaN and inf must keep their meaning for the model checks)
-        "bfold": _jit.jit(_band_fold_py, nogil=True, fastmath={"reassoc"}),
+        "gfold": gfold,
+        "bfold": bfold,
         "devsum": dsum,
-        "gres": _jit.jit(_residuals_py, nogil=True, globals=helpers),
+        "gres": gres,
+        "gdev": _jit.jit(_group_deviance_py, nogil=True, globals=helpers),
+        "gfres": _jit.jit(_group_residuals_py, nogil=True, globals=helpers),
     }
 
 
@@ -245,21 +272,14 @@ class FoldingGroup:
         step_ok[first[length > 0]] = True
         self.start = start.astype(np.int64) if step_ok.all() else None
 
-    def _fold(self, flux, xn, kern):
-        f = flux[:self.n_cols]
-        if self.start is not None:
-            kern["bfold"](self.indptr, self.start, self.data, f, self.bounds, xn,
-                            self.scratch)
-        else:
-            kern["gfold"](self.indptr, self.indices, self.data, f, self.bounds, xn,
-                            self.scratch)
-        return self.scratch
-
     def deviance(self, flux, xn):
         """(summed C deviance, ok) for expected counts xn[k] * M_k @ flux."""
         kern = _numba_kernels()
         if kern is not None:
-            return kern["devsum"](self._fold(flux, xn, kern), self.counts)
+            band = self.start is not None
+            return kern["gdev"](self.indptr, self.start if band else self.indices, self.data,
+                                flux[:self.n_cols], self.bounds, xn, self.scratch, self.counts,
+                                band)
         total = 0.0
         b = self.bounds
         for k, (fm, off) in enumerate(self.parts):
@@ -274,8 +294,10 @@ class FoldingGroup:
         an expected count is negative or not finite."""
         kern = _numba_kernels()
         if kern is not None:
-            return kern["gres"](self._fold(flux, xn, kern), self.counts, self.bounds, out,
-                                starts)
+            band = self.start is not None
+            return kern["gfres"](self.indptr, self.start if band else self.indices, self.data,
+                                 flux[:self.n_cols], self.bounds, xn, self.scratch, self.counts,
+                                 band, out, starts)
         b = self.bounds
         for k, (fm, off) in enumerate(self.parts):
             if not fold_residuals(fm, flux, off, xn[k], self.counts[b[k]:b[k + 1]], out,

@@ -28,9 +28,25 @@ __all__ = ["numba_module", "disabled", "jit", "kernels", "require"]
 T = TypeVar("T")
 
 
+_ENV_NAME = "EDGEFIT_NO_NUMBA"
+# os.environ.get of a missing name raises and catches a KeyError inside
+# (about 1 us, and the kernels are looked up several times per likelihood
+# evaluation); CPython's os.environ keeps its encoded entries in a plain
+# dict, updated by every assignment and deletion, which is read directly
+# while os.environ is the object seen at import
+_ENVIRON = os.environ
+_ENV_DATA = getattr(os.environ, "_data", None)
+try:
+    _ENV_KEY: Any = os.environ.encodekey(_ENV_NAME)  # type: ignore[attr-defined]
+except AttributeError:  # pragma: no cover - not CPython's os.environ
+    _ENV_DATA = None
+
+
 def disabled() -> bool:
     """True when ``EDGEFIT_NO_NUMBA`` is set to a non-empty value."""
-    return bool(os.environ.get("EDGEFIT_NO_NUMBA"))
+    if _ENV_DATA is not None and os.environ is _ENVIRON:
+        return bool(_ENV_DATA.get(_ENV_KEY))
+    return bool(os.environ.get(_ENV_NAME))
 
 
 @functools.lru_cache(maxsize=1)

@@ -200,7 +200,8 @@ def _gas_log_transmission_loop(x, log_x, s, log_e, log_f2, const, col, out):
 @_jit.kernels
 def _numba_kernels():
     """The compiled gas-edge kernel (None without numba)."""
-    return {"gas": _jit.jit(_gas_log_transmission_loop)}
+    # divisions by the (positive) energies need no zero check
+    return {"gas": _jit.jit(_gas_log_transmission_loop, error_model="numpy")}
 
 
 class GasEdge(Component):

@@ -26,7 +26,9 @@ Components and models are picklable (no closures, no open files).
 """
 from __future__ import annotations
 
+import inspect
 import keyword
+import operator
 from typing import Any, ClassVar, Mapping
 
 import numpy as np
@@ -364,12 +366,26 @@ class CompositeModel(ModelNode):
         return f"({self.left!r} {self.op} {self.right!r})"
 
 
+def _takes_positionally(func, names) -> bool:
+    """True when ``func(grid, pre, *values)`` binds ``values`` to the
+    parameters ``names`` in this order (a signature that names them, as
+    ``SmoothISM._log_transmission(self, grid, pre, nh, mol_frac)`` does),
+    so that a compiled leaf can skip building the keyword dict."""
+    try:
+        params = list(inspect.signature(func).parameters.values())
+    except (TypeError, ValueError):
+        return False
+    kinds = (inspect.Parameter.POSITIONAL_ONLY, inspect.Parameter.POSITIONAL_OR_KEYWORD)
+    return (len(params) == len(names) + 2 and all(p.kind in kinds for p in params)
+            and tuple(p.name for p in params[2:]) == tuple(names))
+
+
 class _Leaf:
     """One component of a :class:`CompiledModel`: its slots in the value
     list and the last output, reused while its own values do not change."""
 
-    __slots__ = ("comp", "grid", "pre", "shorts", "idx", "key", "out", "changed", "plain",
-                 "func")
+    __slots__ = ("comp", "grid", "pre", "shorts", "idx", "take", "key", "out", "changed",
+                 "plain", "func", "positional")
 
     def __init__(self, comp, grid, index, log=False):
         self.comp = comp
@@ -377,6 +393,8 @@ class _Leaf:
         self.pre = comp.prepared(grid)
         self.shorts = tuple(comp.values)
         self.idx = tuple(index[f"{comp.name}_{k}"] for k in self.shorts)
+        # the component's values as a tuple, in one C call
+        self.take = operator.itemgetter(*self.idx) if len(self.idx) > 1 else None
         self.key = None
         self.out = None
         self.changed = True
@@ -384,13 +402,17 @@ class _Leaf:
         self.plain = type(comp).evaluate is Component.evaluate
         # with ``log``, the leaf gives ln T (see Component.has_log_transmission)
         self.func = comp._log_transmission if log else comp._evaluate
+        self.positional = self.plain and _takes_positionally(self.func, self.shorts)
 
     def __call__(self, vals):
-        key = tuple([vals[i] for i in self.idx])
+        take = self.take
+        key = take(vals) if take is not None else tuple([vals[i] for i in self.idx])
         if key == self.key:
             self.changed = False
             return self.out
-        if self.plain:
+        if self.positional:
+            out = self.func(self.grid, self.pre, *key)
+        elif self.plain:
             out = self.func(self.grid, self.pre, **dict(zip(self.shorts, key)))
         else:
             prefix = self.comp.name + "_"
@@ -418,8 +440,9 @@ class _Node:
             self.changed = False
             return self.out
         out = self.out
-        if (out is None or np.shape(a) != out.shape or np.shape(b) != out.shape
-                or out is a or out is b):
+        # (scalars have no ``shape``: they take the allocating branch)
+        if (out is None or getattr(a, "shape", None) != out.shape
+                or getattr(b, "shape", None) != out.shape or out is a or out is b):
             out = a * b if self.mul else a + b
             if not isinstance(out, np.ndarray) or out is a or out is b:
                 self.out = None
@@ -455,7 +478,7 @@ class _Exp:
             self.changed = False
             return self.out
         out = self.out
-        if out is None or out.shape != np.shape(t) or out is t:
+        if out is None or out.shape != getattr(t, "shape", None) or out is t:
             out = np.empty(np.shape(t))
         np.exp(t, out=out)
         self.out, self.changed = out, True
