@@ -608,8 +608,11 @@ class SizeGrid:
         return self.a.size
 
     def _check_range(self, lo, hi):
-        tol = 1e-9
-        if lo < self.a[0] * (1 - tol) or hi > self.a[-1] * (1 + tol):
+        limits = self.__dict__.get("_limits")
+        if limits is None:
+            tol = 1e-9
+            limits = self._limits = (float(self.a[0] * (1 - tol)), float(self.a[-1] * (1 + tol)))
+        if lo < limits[0] or hi > limits[1]:
             raise PhysicsDataError(
                 f"size distribution spans {lo:.4g}-{hi:.4g} um but the cross-section "
                 f"table covers {self.a[0]:.4g}-{self.a[-1]:.4g} um; build a table with a "
@@ -639,9 +642,13 @@ class SizeGrid:
             # a built-in family: nodes, shape, moments and weights in one call
             code, names = spec
             p = [dist.values[n] for n in names] + [0.0] * (3 - len(names))
+            arrays = self.__dict__.get("_family_arrays")
+            if arrays is None:
+                arrays = self._family_arrays = (self._nodes_full(kern), self._adjoint_factors(),
+                                                self._inv_a_power())
             w = np.empty(self.a.size)
-            kern["family"](code, p[0], p[1], p[2], ulo, uhi, self.u, self._nodes_full(kern),
-                           self._adjoint_factors(), self._inv_a_power(), self.power, w)
+            kern["family"](code, p[0], p[1], p[2], ulo, uhi, self.u, arrays[0], arrays[1],
+                           arrays[2], self.power, w)
             return w
         if kern is not None:
             # the support's grid intervals and their Gauss-Legendre nodes in

@@ -308,10 +308,9 @@ class GasEdge(Component):
     def has_log_transmission(self) -> bool:
         return not self.n_lines       # the lines' transmission is bin-averaged
 
-    def _log_transmission(self, grid, pre, **v):
-        shift = v["shift"]
+    def _log_transmission(self, grid, pre, col, shift):
         if shift == 0.0:
-            return pre["sigma0"] * (-v["col"])
+            return pre["sigma0"] * (-col)
         kern = _numba_kernels()
         if kern is not None:
             x = pre["x"]
@@ -319,13 +318,13 @@ class GasEdge(Component):
             s = shift * 1e-3
             if x[0] - s >= emin and x[-1] - s <= emax:
                 out = np.empty(x.size)
-                kern["gas"](x, pre["log_x"], s, log_e, log_f2, _SIGMA_CONST, v["col"], out)
+                kern["gas"](x, pre["log_x"], s, log_e, log_f2, _SIGMA_CONST, col, out)
                 return out
-        return self._sigma_shifted(pre, shift) * (-v["col"])
+        return self._sigma_shifted(pre, shift) * (-col)
 
     def _evaluate(self, grid, pre, **v):
         col = v["col"]
-        trans = self._log_transmission(grid, pre, **v)
+        trans = self._log_transmission(grid, pre, col, v["shift"])
         np.exp(trans, out=trans)
         if self.n_lines and col > 0:
             c, area, s, g = self._line_arrays(v, col * _EDGE_COL_UNIT)

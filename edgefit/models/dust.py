@@ -339,12 +339,16 @@ class DustEdge(Component):
         for el, c in self.material.composition.items():
             if el != self.element:
                 other = other + (c / cz) * atomic.photoabsorption(el, e)
+        from ..dust.sizes import make_distribution
+
         per_cm3 = self.material.atoms_per_cm3(self.element)
         return {"energy": e, "abs": table.sigma_abs, "sca": table.sigma_sca,
                 "sca_out": s_sca_out, "other_atoms": other,
                 "other": other if self.count_once else np.zeros_like(e), "a3": table.sizes.a ** 3,
                 "atoms_per_um3": per_cm3 * 1e-12,
-                # fit-time caches (see _per_column)
+                # for the fit-time path (see _per_column): the distribution
+                # factory (imported here, not per evaluation) and the caches
+                "make_distribution": make_distribution,
                 "weights": {}, "per_column": {}, "combined": {}}
 
     # -- distribution ------------------------------------------------------
@@ -393,14 +397,12 @@ class DustEdge(Component):
         cache = pre["weights"]
         hit = cache.get(key)
         if hit is None:
-            from ..dust.sizes import make_distribution
-
             try:
                 if self.fixed_distribution is not None:
                     dist = self.fixed_distribution
                 else:       # ``values`` holds every parameter: no merging needed
-                    dist = make_distribution(self.family,
-                                             **{k: values[k] for k in self._dist_names})
+                    dist = pre["make_distribution"](
+                        self.family, **{k: values[k] for k in self._dist_names})
                 w = table.sizes.weights(dist)
             except PhysicsDataError as exc:
                 raise ModelError(f"{self.name}: {exc}") from exc
