@@ -628,11 +628,10 @@ class SizeGrid:
 
     def weights(self, dist: SizeDistribution) -> np.ndarray:
         """W (length M) with ⟨g⟩ = Σ W_i g_i over the normalised ``dist``."""
-        a_p = self._a_power()
         if isinstance(dist, SingleSize):
             s = dist.values["size"]
             self._check_range(s, s)
-            return self.basis(s)[0] * s ** self.power / a_p
+            return self.basis(s)[0] * s ** self.power / self._a_power()
         lo, hi = dist.support()
         self._check_range(lo, hi)
         ulo, uhi = math.log(lo), math.log(hi)
@@ -678,7 +677,7 @@ class SizeGrid:
             return w
         mom = _moments_numpy(f, half, a, uu, self.u[k0:k1 + 1], self.power)
         w = mom.ravel() @ self._coef_by_interval()[k0:k1 + 1].reshape(-1, self.a.size)
-        w /= a_p
+        w /= self._a_power()
         return w
 
     def _nodes_numpy(self, ulo, uhi):

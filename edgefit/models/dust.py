@@ -390,9 +390,7 @@ class DustEdge(Component):
     fast_cache_size = 16
 
     def _weights_cached(self, table, pre, values, key):
-        """The size distribution's weights per edge atom, W / ⟨N_Z(a)⟩,
-        followed by a 1 (the weight of the other atoms' column of the
-        combined matrix, see :meth:`_per_column`), cached per distinct
+        """(W, ⟨N_Z(a)⟩) of the size distribution, cached per distinct
         value ``key`` of its parameters."""
         cache = pre["weights"]
         hit = cache.get(key)
@@ -407,34 +405,32 @@ class DustEdge(Component):
             except PhysicsDataError as exc:
                 raise ModelError(f"{self.name}: {exc}") from exc
             atoms = 4.0 * math.pi / 3.0 * float(pre["a3"] @ w) * pre["atoms_per_um3"]
-            hit = np.empty(w.size + 1)
-            np.divide(w, atoms, out=hit[:-1])
-            hit[-1] = 1.0
+            hit = (w, atoms)
             _remember(cache, key, hit, self.fast_cache_size)
         return hit
 
     def _per_column(self, table, pre, values, dkey, rows):
         """τ_dust / (N_Z,dust 1e16) on table rows ``rows``: the size average
-        per edge atom of the combined per-size cross section
-        σ_abs + (1 − f_in) σ_sca (or σ_abs + σ_sca,lost with a halo) less
-        the other atoms' term, as one matrix-vector product (the other
-        atoms' term is the combined matrix's last column, with weight 1);
-        cached per (distribution, f_in)."""
+        (one matrix product of the combined per-size cross section
+        σ_abs + (1 − f_in) σ_sca, or σ_abs + σ_sca,lost with a halo, with the
+        weights) per edge atom, less the other atoms' term (divided and
+        subtracted in place); cached per (distribution, f_in)."""
         fin = 0.0 if self.halo is not None else values["fin"]
         cache = pre["per_column"]
         key = (dkey, fin, rows)
         hit = cache.get(key)
         if hit is None:
-            w = self._weights_cached(table, pre, values, dkey)
+            w, atoms = self._weights_cached(table, pre, values, dkey)
             combined = pre["combined"]
             mat = combined.get(fin)
             if mat is None:
                 lost = pre["sca_out"] if pre["sca_out"] is not None else (1.0 - fin) * pre["sca"]
-                mat = np.empty((lost.shape[0], lost.shape[1] + 1))
-                np.add(pre["abs"], lost, out=mat[:, :-1])
-                np.negative(pre["other"], out=mat[:, -1])
+                mat = pre["abs"] + lost
                 _remember(combined, fin, mat, 4)
-            hit = mat[rows[0]:rows[1]] @ w
+            r0, r1 = rows
+            hit = mat[r0:r1] @ w
+            hit /= atoms
+            hit -= pre["other"][r0:r1]
             _remember(cache, key, hit, self.fast_cache_size)
         return hit
 
@@ -452,7 +448,7 @@ class DustEdge(Component):
         r0 = max(int(np.searchsorted(e, lo, side="right")) - 1, 0)
         r1 = min(int(np.searchsorted(e, hi, side="left")) + 1, e.size)
         return {"table": table, "pre": pre, "x": grid.mid, "rows": (r0, r1),
-                "shift_range": (sp.min, sp.max), "shapes": {}}
+                "energy_rows": e[r0:r1], "shift_range": (sp.min, sp.max), "shapes": {}}
 
     def _log_transmission(self, grid, pre, **values):
         """−N_Z,dust u(E − shift) (the log of the transmission), with u the optical depth per unit
@@ -468,9 +464,12 @@ class DustEdge(Component):
         if u is not None:
             return u * scale
         smin, smax = pre["shift_range"]
-        rows = pre["rows"] if smin <= shift <= smax else (0, pre["pre"]["energy"].size)
+        if smin <= shift <= smax:
+            rows, energy = pre["rows"], pre["energy_rows"]
+        else:
+            energy = pre["pre"]["energy"]
+            rows = (0, energy.size)
         per_col = self._per_column(pre["table"], pre["pre"], values, dkey, rows)
-        energy = pre["pre"]["energy"][rows[0]:rows[1]]
         kern = _numba_kernels()
         if kern is not None:
             x = pre["x"]
