@@ -387,3 +387,97 @@ def test_compiled_product_of_absorbers_sums_log_transmissions(table):
     assert not isinstance(cm.root.left, _Exp)
     got = cm([vals[n] for n in names])
     np.testing.assert_allclose(got, odd.evaluate(grid, vals), rtol=1e-13, atol=0)
+
+
+def test_dust_compiled_interpolation_equals_numpy_interp(table, monkeypatch):
+    """The dust edge's compiled pass (interpolation onto the shifted bin
+    centres and the column scaling) against its NumPy lines, np.interp
+    (NumPy's linear interpolation, end values outside the table): 1e-14
+    relative, for shifts inside the declared range and beyond it (the
+    whole table; a 60 eV shift reaches past its low end)."""
+    from edgefit.models import dust as dust_module
+    from edgefit.models.base import EnergyGrid
+
+    if dust_module._numba_kernels() is None:
+        pytest.skip("numba not available")
+    grid = EnergyGrid.linear(1.67, 2.13, 640)     # inside the table's 1.66-2.14 keV
+    cases = [(0.3, 3.5, 0.0, 40.0), (0.8, 2.8, 15.0, 12.0), (0.5, 3.1, -19.5, 30.0),
+             (0.3, 3.5, 60.0, 25.0)]
+
+    def run():
+        dust = DustEdge(table=table)
+        return [dust.evaluate(grid, {"dust_amax": a, "dust_index": q, "dust_shift": s,
+                                     "dust_col": n}) for a, q, s, n in cases]
+
+    fast = run()
+    monkeypatch.setenv("EDGEFIT_NO_NUMBA", "1")
+    assert dust_module._numba_kernels() is None
+    slow = run()
+    for a, b in zip(fast, slow):
+        np.testing.assert_allclose(a, b, rtol=1e-14, atol=0)
+
+
+def test_size_weights_kernel_only_for_the_declaring_class(monkeypatch):
+    """A subclass of a built-in family that changes the shape at the nodes
+    takes the general path (its own _shape_nodes), not the family's
+    compiled shape: its weights equal its NumPy path (1e-13 of the largest
+    weight) and differ from the parent's; both integrate a^3 as the
+    distribution's own Gauss-Legendre moment does (1e-10)."""
+    from edgefit.dust import sizes
+
+    class Flatter(sizes.PowerLaw):
+        register = False
+
+        def shape(self, a_um):
+            return np.asarray(a_um, dtype=float) ** (1.0 - self.values["index"])
+
+        def _shape_nodes(self, a, ln_a):
+            return self.shape(a)
+
+    if sizes._numba_kernels() is None:
+        pytest.skip("numba not available")
+    grid = SizeGrid.log(0.001, 5.0, 160)
+    child, parent = Flatter(3.5, 0.005, 0.3), sizes.PowerLaw(3.5, 0.005, 0.3)
+    fast = grid.weights(child)
+    monkeypatch.setenv("EDGEFIT_NO_NUMBA", "1")
+    slow = grid.weights(child)
+    np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-13 * np.max(np.abs(slow)))
+    assert not np.allclose(fast, grid.weights(parent), rtol=1e-3)
+    assert fast @ grid.a ** 3 == pytest.approx(child.moment(3), rel=1e-10, abs=0)
+
+
+def test_numba_switch_follows_the_environment(monkeypatch):
+    """EDGEFIT_NO_NUMBA switches the kernels off when set to a non-empty
+    value and on again when empty or removed, at any time (os.environ as
+    the standard library defines it)."""
+    from edgefit import _jit
+
+    monkeypatch.delenv("EDGEFIT_NO_NUMBA", raising=False)
+    assert not _jit.disabled()
+    monkeypatch.setenv("EDGEFIT_NO_NUMBA", "1")
+    assert _jit.disabled() and _foldstat._numba_kernels() is None
+    monkeypatch.setenv("EDGEFIT_NO_NUMBA", "")
+    assert not _jit.disabled()
+    monkeypatch.setenv("EDGEFIT_NO_NUMBA", "yes")
+    monkeypatch.delenv("EDGEFIT_NO_NUMBA")
+    assert not _jit.disabled()
+
+
+def test_compiled_leaves_call_positionally_only_matching_signatures():
+    """A compiled leaf passes values positionally only to a function whose
+    parameters after (grid, pre) are the component's parameter names in
+    order (the smooth ISM's log transmission), and by keyword otherwise
+    (a **values signature; names in another order)."""
+    from edgefit.models.base import _takes_positionally
+
+    ism = SmoothISM("ism")
+    assert _takes_positionally(ism._log_transmission, tuple(ism.values))
+
+    def by_keyword(grid, pre, **values):
+        return values
+
+    def swapped(grid, pre, mol_frac, nh):
+        return nh
+
+    assert not _takes_positionally(by_keyword, ("nh", "mol_frac"))
+    assert not _takes_positionally(swapped, ("nh", "mol_frac"))
