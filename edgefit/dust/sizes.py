@@ -628,6 +628,24 @@ class SizeGrid:
 
     def weights(self, dist: SizeDistribution) -> np.ndarray:
         """W (length M) with ⟨g⟩ = Σ W_i g_i over the normalised ``dist``."""
+        spec = type(dist).__dict__.get("_KERNEL_SHAPE")
+        if spec is not None:
+            kern = _numba_kernels()
+            if kern is not None:
+                # a built-in family: nodes, shape, moments and weights in one call
+                lo, hi = dist.support()
+                self._check_range(lo, hi)
+                code, names = spec
+                v = dist.values
+                p = [v[n] for n in names] + [0.0] * (3 - len(names))
+                arrays = self.__dict__.get("_family_arrays")
+                if arrays is None:
+                    arrays = self._family_arrays = (self._nodes_full(kern),
+                                                    self._adjoint_factors(), self._inv_a_power())
+                w = np.empty(self.a.size)
+                kern["family"](code, p[0], p[1], p[2], math.log(lo), math.log(hi), self.u,
+                               arrays[0], arrays[1], arrays[2], self.power, w)
+                return w
         if isinstance(dist, SingleSize):
             s = dist.values["size"]
             self._check_range(s, s)
@@ -636,19 +654,6 @@ class SizeGrid:
         self._check_range(lo, hi)
         ulo, uhi = math.log(lo), math.log(hi)
         kern = _numba_kernels()
-        spec = type(dist).__dict__.get("_KERNEL_SHAPE")
-        if kern is not None and spec is not None:
-            # a built-in family: nodes, shape, moments and weights in one call
-            code, names = spec
-            p = [dist.values[n] for n in names] + [0.0] * (3 - len(names))
-            arrays = self.__dict__.get("_family_arrays")
-            if arrays is None:
-                arrays = self._family_arrays = (self._nodes_full(kern), self._adjoint_factors(),
-                                                self._inv_a_power())
-            w = np.empty(self.a.size)
-            kern["family"](code, p[0], p[1], p[2], ulo, uhi, self.u, arrays[0], arrays[1],
-                           arrays[2], self.power, w)
-            return w
         if kern is not None:
             # the support's grid intervals and their Gauss-Legendre nodes in
             # one compiled call (same arithmetic as the NumPy lines below)

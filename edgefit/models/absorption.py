@@ -165,24 +165,33 @@ def _line_params(n_lines):
     return tuple(out)
 
 
-def _gas_log_transmission_loop(x, log_x, s, log_e, log_f2, const, col, out):
+def _log_shifted(x, log_x, s):
+    """ln(x - s) as ln x + ln(1 - s/x): the second term by its series to
+    the 8th power where |s/x| < 0.01 (a shift of up to 20 eV above 2 keV;
+    remainder below r^9/9 < 2e-19), by log1p elsewhere."""
+    r = s / x
+    if abs(r) < 0.01:
+        return log_x - r * (1.0 + r * (0.5 + r * (1.0 / 3.0 + r * (0.25 + r * (
+            0.2 + r * (1.0 / 6.0 + r * (1.0 / 7.0 + r * 0.125)))))))
+    return log_x + math.log1p(-r)
+
+
+def _gas_log_transmission_loop(x, log_x, s, log_e, log_f2, slope, const, col, out):
     """−N σ(E − s) at the bin centres ``x`` (logarithms ``log_x``):
     :meth:`GasEdge._sigma_shifted` (f2 interpolated linearly in log-log
-    like ``np.interp``) and the product with the column, in one loop over
-    the increasing ``x`` (compiled by numba).  ln(x - s) = ln x +
-    ln(1 - s/x), the second term by its series to the 8th power where
-    |s/x| < 0.01 (a shift of up to 20 eV above 2 keV; remainder below
-    r^9/9 < 2e-19), by log1p elsewhere."""
-    j = 0
+    like ``np.interp``, with the table's interval slopes ``slope``
+    computed once) and the product with the column, in one loop over the
+    increasing ``x`` (compiled by numba); ln(x - s) by
+    :func:`_log_shifted`.  The walk along the table starts at the first
+    bin's interval, found by bisection."""
     last = log_e.size - 1
+    j = 0
+    if x.size:
+        j = min(max(np.searchsorted(log_e, _log_shifted(x[0], log_x[0], s), side="right") - 1,
+                    0), max(last - 1, 0))
     for i in range(x.size):
         e = x[i] - s
-        r = s / x[i]
-        if abs(r) < 0.01:
-            le = log_x[i] - r * (1.0 + r * (0.5 + r * (1.0 / 3.0 + r * (0.25 + r * (
-                0.2 + r * (1.0 / 6.0 + r * (1.0 / 7.0 + r * 0.125)))))))
-        else:
-            le = log_x[i] + math.log1p(-r)
+        le = _log_shifted(x[i], log_x[i], s)
         while j < last - 1 and log_e[j + 1] <= le:
             j += 1
         if le >= log_e[last]:
@@ -190,8 +199,7 @@ def _gas_log_transmission_loop(x, log_x, s, log_e, log_f2, const, col, out):
         elif le <= log_e[0]:
             f = log_f2[0]
         else:
-            slope = (log_f2[j + 1] - log_f2[j]) / (log_e[j + 1] - log_e[j])
-            f = slope * (le - log_e[j]) + log_f2[j]
+            f = slope[j] * (le - log_e[j]) + log_f2[j]
         sig = const / e
         sig *= math.exp(f)
         out[i] = sig * (-col)
@@ -201,7 +209,9 @@ def _gas_log_transmission_loop(x, log_x, s, log_e, log_f2, const, col, out):
 def _numba_kernels():
     """The compiled gas-edge kernel (None without numba)."""
     # divisions by the (positive) energies need no zero check
-    return {"gas": _jit.jit(_gas_log_transmission_loop, error_model="numpy")}
+    return {"gas": _jit.jit(_gas_log_transmission_loop, error_model="numpy",
+                            globals={"_log_shifted": _jit.jit(_log_shifted,
+                                                              error_model="numpy")})}
 
 
 class GasEdge(Component):
@@ -280,7 +290,9 @@ class GasEdge(Component):
         t = atomic._load(self.element)
         return {"sigma0": self.sigma(grid.mid) * _EDGE_COL_UNIT, "x": grid.mid,
                 "log_x": np.log(grid.mid),
-                "table": (t.energy[0], t.energy[-1], t.log_energy, t.log_f2)}
+                "table": (t.energy[0], t.energy[-1], t.log_energy, t.log_f2),
+                # slopes of log f2 in log E per table interval (np.interp's)
+                "slope": np.diff(t.log_f2) / np.diff(t.log_energy)}
 
     def _sigma_shifted(self, pre, shift):
         """sigma_Z(E - shift) * 1e16 at the bin centres: the formula of
@@ -318,7 +330,8 @@ class GasEdge(Component):
             s = shift * 1e-3
             if x[0] - s >= emin and x[-1] - s <= emax:
                 out = np.empty(x.size)
-                kern["gas"](x, pre["log_x"], s, log_e, log_f2, _SIGMA_CONST, col, out)
+                kern["gas"](x, pre["log_x"], s, log_e, log_f2, pre["slope"], _SIGMA_CONST, col,
+                            out)
                 return out
         return self._sigma_shifted(pre, shift) * (-col)
 

@@ -399,8 +399,8 @@ class DustEdge(Component):
                 if self.fixed_distribution is not None:
                     dist = self.fixed_distribution
                 else:       # ``values`` holds every parameter: no merging needed
-                    dist = pre["make_distribution"](
-                        self.family, **{k: values[k] for k in self._dist_names})
+                    dist = pre["make_distribution"](self.family,
+                                                    **dict(zip(self._dist_names, key)))
                 w = table.sizes.weights(dist)
             except PhysicsDataError as exc:
                 raise ModelError(f"{self.name}: {exc}") from exc
@@ -456,7 +456,7 @@ class DustEdge(Component):
         and shift, so a change of the column alone costs one multiply and
         one exp over the grid)."""
         shift = values["shift"]
-        dkey = tuple([values[k] for k in self._dist_names])
+        dkey = tuple(map(values.__getitem__, self._dist_names))
         key = (dkey, values["fin"], shift)
         shapes = pre["shapes"]
         u = shapes.get(key)
