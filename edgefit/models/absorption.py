@@ -289,7 +289,7 @@ class GasEdge(Component):
     def precompute(self, grid: EnergyGrid):
         t = atomic._load(self.element)
         return {"sigma0": self.sigma(grid.mid) * _EDGE_COL_UNIT, "x": grid.mid,
-                "log_x": np.log(grid.mid),
+                "log_x": np.log(grid.mid), "ends": (float(grid.mid[0]), float(grid.mid[-1])),
                 "table": (t.energy[0], t.energy[-1], t.log_energy, t.log_f2),
                 # slopes of log f2 in log E per table interval (np.interp's)
                 "slope": np.diff(t.log_f2) / np.diff(t.log_energy)}
@@ -328,7 +328,8 @@ class GasEdge(Component):
             x = pre["x"]
             emin, emax, log_e, log_f2 = pre["table"]
             s = shift * 1e-3
-            if x[0] - s >= emin and x[-1] - s <= emax:
+            x0, x1 = pre["ends"]
+            if x0 - s >= emin and x1 - s <= emax:
                 out = np.empty(x.size)
                 kern["gas"](x, pre["log_x"], s, log_e, log_f2, pre["slope"], _SIGMA_CONST, col,
                             out)
