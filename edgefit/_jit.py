@@ -37,7 +37,7 @@ _ENV_NAME = "EDGEFIT_NO_NUMBA"
 _ENVIRON = os.environ
 _ENV_DATA = getattr(os.environ, "_data", None)
 try:
-    _ENV_KEY: Any = os.environ.encodekey(_ENV_NAME)  # type: ignore[attr-defined]
+    _ENV_KEY: Any = os.environ.encodekey(_ENV_NAME)
 except AttributeError:  # pragma: no cover - not CPython's os.environ
     _ENV_DATA = None
 
