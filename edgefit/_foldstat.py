@@ -245,7 +245,7 @@ class FoldingGroup:
     rounding), which beats a general CSR product."""
 
     __slots__ = ("parts", "indptr", "indices", "start", "data", "bounds", "counts",
-                 "scratch", "n_cols")
+                 "scratch", "n_cols", "band", "cols")
 
     def __init__(self, matrices, offsets, counts):
         self.parts = [(Folding(m), int(off)) for m, off in zip(matrices, offsets)]
@@ -271,15 +271,17 @@ class FoldingGroup:
         step_ok[1:] = np.diff(cols) == 1
         step_ok[first[length > 0]] = True
         self.start = start.astype(np.int64) if step_ok.all() else None
+        # what the compiled group calls take: band rows' first columns, or
+        # the CSR column indices
+        self.band = self.start is not None
+        self.cols = self.start if self.band else self.indices
 
     def deviance(self, flux, xn):
         """(summed C deviance, ok) for expected counts xn[k] * M_k @ flux."""
         kern = _numba_kernels()
         if kern is not None:
-            band = self.start is not None
-            return kern["gdev"](self.indptr, self.start if band else self.indices, self.data,
-                                flux[:self.n_cols], self.bounds, xn, self.scratch, self.counts,
-                                band)
+            return kern["gdev"](self.indptr, self.cols, self.data, flux[:self.n_cols],
+                                self.bounds, xn, self.scratch, self.counts, self.band)
         total = 0.0
         b = self.bounds
         for k, (fm, off) in enumerate(self.parts):
@@ -294,10 +296,9 @@ class FoldingGroup:
         an expected count is negative or not finite."""
         kern = _numba_kernels()
         if kern is not None:
-            band = self.start is not None
-            return kern["gfres"](self.indptr, self.start if band else self.indices, self.data,
-                                 flux[:self.n_cols], self.bounds, xn, self.scratch, self.counts,
-                                 band, out, starts)
+            return kern["gfres"](self.indptr, self.cols, self.data, flux[:self.n_cols],
+                                 self.bounds, xn, self.scratch, self.counts, self.band, out,
+                                 starts)
         b = self.bounds
         for k, (fm, off) in enumerate(self.parts):
             if not fold_residuals(fm, flux, off, xn[k], self.counts[b[k]:b[k + 1]], out,

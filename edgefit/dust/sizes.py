@@ -636,8 +636,7 @@ class SizeGrid:
                 lo, hi = dist.support()
                 self._check_range(lo, hi)
                 code, names = spec
-                v = dist.values
-                p = [v[n] for n in names] + [0.0] * (3 - len(names))
+                p = list(map(dist.values.__getitem__, names)) + [0.0, 0.0]
                 arrays = self.__dict__.get("_family_arrays")
                 if arrays is None:
                     arrays = self._family_arrays = (self._nodes_full(kern),
