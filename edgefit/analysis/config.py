@@ -496,6 +496,12 @@ class ErrorSettings(_Section):
     }
 
 
+def _proposal_name(v):
+    from ..inference.mcmc import PROPOSALS
+
+    return isinstance(v, str) and v in PROPOSALS
+
+
 @dataclass
 class McmcSettings(_Section):
     """``[mcmc]``: emcee sampling after the best fit (off by default)."""
@@ -508,6 +514,7 @@ class McmcSettings(_Section):
     seed: int = 1
     processes: int | None = None
     progress: bool = False
+    proposal: str = "stretch"
     priors: dict = field(default_factory=dict)
 
     KEY = "mcmc"
@@ -520,6 +527,8 @@ class McmcSettings(_Section):
         "seed": (lambda v: _integer(v, 0), "an integer >= 0"),
         "processes": (lambda v: _integer(v, 1), "a positive integer"),
         "progress": (lambda v: isinstance(v, bool), "true or false"),
+        "proposal": (_proposal_name, "use \"stretch\" (emcee's stretch move) or "
+                                     "\"differential\" (differential-evolution moves)"),
         "priors": (lambda v: isinstance(v, dict), "a table of priors"),
     }
 

@@ -194,7 +194,7 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
         stage("mcmc", lambda: run_mcmc(result, nwalkers=mc.walkers, nsteps=n_steps,
                                        burn=mc.burn, thin=mc.thin, seed=mc.seed,
                                        priors=priors, progress=mc.progress and not quiet,
-                                       processes=mc.processes))
+                                       processes=mc.processes, proposal=mc.proposal))
 
     if total_profiles and prof and result.mcmc is None:
         from .sample_table import TOTAL_PROFILES_KEY, total_column_profiles

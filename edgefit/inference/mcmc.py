@@ -20,6 +20,18 @@ treating each walker as a chain; R-hat > :data:`RHAT_MAX` or a bulk ESS
 below :data:`ESS_MIN` triggers a :class:`~edgefit.errors.ModeMixingWarning`
 (a ShortChainWarning).
 
+Proposals
+---------
+``proposal="stretch"`` (the default) is emcee's affine-invariant stretch
+move (Goodman & Weare 2010).  ``proposal="differential"`` mixes emcee's
+differential-evolution move (ter Braak 2006; Nelson et al. 2013, ApJS 210,
+11) with probability 0.8 and its snooker variant (ter Braak & Vrugt 2008,
+Statistics and Computing 18, 435) with probability 0.2, the mixture
+emcee's documentation shows for it.  Both are exact Markov chain moves
+(the snooker move carries its Hastings factor); on the demo's
+six-parameter edge fits the mixture's autocorrelation times are shorter
+(``benchmarks/bench_mcmc_moves.py``).
+
 Across the grain-size valley
 ----------------------------
 Sampler coordinates (``coordinates="auto"``, the default): the logarithm
@@ -58,7 +70,8 @@ if TYPE_CHECKING:
     from .result import FitResult
 
 __all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc",
-           "SamplerCoordinates", "SampledPosterior", "chain_diagnostics", "RHAT_MAX", "ESS_MIN"]
+           "SamplerCoordinates", "SampledPosterior", "chain_diagnostics", "RHAT_MAX", "ESS_MIN",
+           "PROPOSALS", "proposal_moves"]
 
 #: Chains shorter than this many autocorrelation times trigger a warning.
 MIN_TAU_MULTIPLE = 50
@@ -70,6 +83,25 @@ RHAT_MAX = 1.05
 #: Smallest acceptable bulk effective sample size (Vehtari et al. 2021
 #: recommend > 400, i.e. 100 per chain for four chains).
 ESS_MIN = 400
+#: Walker proposals :func:`run_mcmc` accepts (module docstring).
+PROPOSALS = ("stretch", "differential")
+#: Weights of the differential-evolution move and its snooker variant in
+#: the ``"differential"`` proposal.
+DIFFERENTIAL_WEIGHTS = (0.8, 0.2)
+
+
+def proposal_moves(proposal):
+    """emcee's ``moves`` argument for a proposal name of :data:`PROPOSALS`
+    (a list of (move, weight) pairs)."""
+    import emcee
+
+    if proposal == "stretch":
+        return [(emcee.moves.StretchMove(), 1.0)]
+    if proposal == "differential":
+        w_de, w_snooker = DIFFERENTIAL_WEIGHTS
+        return [(emcee.moves.DEMove(), w_de), (emcee.moves.DESnookerMove(), w_snooker)]
+    raise ArgumentError(f"proposal must be one of {', '.join(map(repr, PROPOSALS))}, "
+                        f"got {proposal!r}")
 
 
 class GaussianPrior:
@@ -136,6 +168,7 @@ class McmcResult:
         self.coordinates = []       # sampler coordinates, e.g. "ln(dust_amax)"
         self.initial = None         # walkers' starting points (nwalkers, ndim)
         self.prior = "parameters"
+        self.proposal = "stretch"   # walker proposal (PROPOSALS)
         self.chain = chain          # (nsteps, nwalkers, ndim)
         self.log_prob = log_prob    # (nsteps, nwalkers)
         self.names = list(names)
@@ -187,7 +220,8 @@ class McmcResult:
         return float(q[0]), float(q[1]), float(q[2])
 
     def summary(self):
-        lines = [f"MCMC: {self.nwalkers} walkers x {self.nsteps} steps, burn-in {self.burn}, "
+        lines = [f"MCMC ({self.proposal} proposal): {self.nwalkers} walkers x {self.nsteps} "
+                 f"steps, burn-in {self.burn}, "
                  f"thin {self.thin}, acceptance {np.mean(self.acceptance):.2f}, "
                  f"max tau {np.nanmax(self.tau):.1f} steps"
                  + ("  [SHORT CHAIN: < 50 tau]" if self.short_chain else "")]
@@ -217,7 +251,7 @@ class McmcResult:
                 "ess_bulk": None if self.ess is None else np.asarray(self.ess).tolist(),
                 "mode_visits": None if self.mode_visits is None else list(self.mode_visits),
                 "mode_crossings": self.mode_crossings, "coordinates": self.coordinates,
-                "prior": self.prior,
+                "prior": self.prior, "proposal": self.proposal,
                 "posterior": {n: dict(zip(("median", "lo68", "hi68"), self.quantiles(n)))
                               for n in self.names}}
 
@@ -437,7 +471,7 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
              priors: dict[str, Any] | None = None, progress: bool = False,
              processes: int | None = None, init_scale: float = 1.0, store: bool = True,
              coordinates: str = "auto", prior: str = "sampled",
-             init: str = "minima") -> McmcResult:
+             init: str = "minima", proposal: str = "stretch") -> McmcResult:
     """Sample the posterior around a best fit with emcee.
 
     Parameters
@@ -469,6 +503,9 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     init : {"minima", "ball"}
         Walkers shared among the known minima (default) or one ball around
         the best fit.
+    proposal : {"stretch", "differential"}
+        Walker proposal (module docstring): emcee's stretch move (default)
+        or the mixture of differential-evolution moves.
 
     Returns
     -------
@@ -477,6 +514,7 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     """
     import emcee
 
+    moves = proposal_moves(proposal)
     logp = LogPosterior(result.likelihood, result.params, priors)
     pv = logp.pv
     ndim = len(pv)
@@ -499,7 +537,7 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
         pool = multiprocessing.Pool(processes, initializer=_init_worker, initargs=(target,))
         fn = _WorkerLogPosterior()
     try:
-        sampler = emcee.EnsembleSampler(nwalkers, ndim, fn, pool=pool)
+        sampler = emcee.EnsembleSampler(nwalkers, ndim, fn, pool=pool, moves=moves)
         sampler.random_state = np.random.RandomState(
             int(rng.integers(2 ** 31 - 1))).get_state()
         sampler.run_mcmc(start, nsteps, progress=bool(progress and _tqdm_available()))
@@ -519,6 +557,7 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     res.initial = coords.to_theta(start)
     res.coordinates = coords.labels()
     res.prior = prior if res.coordinates else "parameters"
+    res.proposal = proposal
     post = chain_y[burn::thin]
     res.rhat, res.ess = chain_diagnostics(post)
     if len(centres) > 1 and coords.log_idx.size:
