@@ -183,7 +183,7 @@ def _config(tmp_path, mcmc="false", plots="false", priors=""):
 
 def test_fit_command_end_to_end(tmp_path, capsys):
     _write_sim(tmp_path)
-    cfg = _config(tmp_path, mcmc="true", plots="true")
+    cfg = _config(tmp_path, mcmc="true", plots="true", priors='proposal = "differential"\n')
     assert main(["fit", str(cfg), "-q"]) == 0
     out = tmp_path / "out"
     for name in ("fit.ecsv", "fit.fits", "fit.json", "fit_summary.txt",
@@ -200,6 +200,7 @@ def test_fit_command_end_to_end(tmp_path, capsys):
     half = (best - iv["lower"]) if best > 1.7 else (iv["upper"] - best)
     assert abs(best - 1.7) < 4 * half and half < 0.05, (best, iv)
     assert d["mcmc"]["nsteps"] == 300 and "profile" in d["parameters"][0]
+    assert d["mcmc"]["proposal"] == "differential"   # [mcmc] proposal reached run_mcmc
     # the unit-carrying sigma was converted from eV to keV
     assert d["parameters"][3]["name"] == "ln_sigma"
     assert d["parameters"][3]["value"] == pytest.approx(0.003)
@@ -228,6 +229,16 @@ def test_bad_prior_rejected_before_any_fit(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "mcmc.priors.pl_index" in err and str(cfg) in err and len(err.splitlines()) == 1
     assert not (tmp_path / "out").exists()  # checked with the file, nothing fitted
+
+
+def test_bad_proposal_rejected_before_any_fit(tmp_path, capsys):
+    _write_sim(tmp_path)
+    cfg = _config(tmp_path, mcmc="true", priors='proposal = "leapfrog"\n')
+    assert main(["fit", str(cfg), "-q"]) == 2
+    err = capsys.readouterr().err
+    assert "mcmc.proposal" in err and "differential" in err and "'leapfrog'" in err
+    assert str(cfg) in err and len(err.splitlines()) == 1
+    assert not (tmp_path / "out").exists()
 
 
 def test_best_fit_written_before_a_failing_stage(tmp_path, capsys):
