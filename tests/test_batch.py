@@ -508,6 +508,11 @@ def _wait_for_finished(proc, out, n, what):
         time.sleep(0.02)
 
 
+
+def _sigint_default():
+    """In a child before it runs: SIGINT back to the system default."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
 @pytest.mark.long
 def test_sigint_then_resume_equals_uninterrupted_run(tmp_path):
     m = write_sample(tmp_path, n=8, **FAST)
@@ -515,7 +520,10 @@ def test_sigint_then_resume_equals_uninterrupted_run(tmp_path):
     cmd = [sys.executable, "-c", "import sys; from edgefit.cli import main; "
            "sys.exit(main(sys.argv[1:]))", "batch", str(m), "-o", str(out), "--workers", "2",
            "--no-plots", "-q"]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    # the child starts as from a terminal, with SIGINT at the system default
+    # (a test run started as a background job would pass on SIGINT ignored)
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=_sigint_default)
     _wait_for_finished(proc, out, 2, "interrupted")
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=1800)
