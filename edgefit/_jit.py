@@ -23,7 +23,7 @@ from typing import Any, Callable, TypeVar
 
 from .errors import MissingDependencyError
 
-__all__ = ["numba_module", "disabled", "jit", "kernels", "require"]
+__all__ = ["numba_module", "disabled", "jit", "kernels", "require", "fma"]
 
 T = TypeVar("T")
 
@@ -118,3 +118,34 @@ def kernels(builder: Callable[[], T]) -> Callable[..., T | None]:
 
     get.cache_clear = cached.cache_clear  # type: ignore[attr-defined]
     return get
+
+
+@functools.lru_cache(maxsize=1)
+def _build_fma():
+    nb = require("the fused multiply-add")
+    from llvmlite import ir  # type: ignore[import-untyped]
+    from numba.core import types as nbtypes
+    from numba.extending import intrinsic
+
+    @intrinsic
+    def fma(typingctx, a, b, c):
+        sig = nbtypes.float64(nbtypes.float64, nbtypes.float64, nbtypes.float64)
+
+        def codegen(context, builder, signature, args):
+            f64 = ir.DoubleType()
+            fn = builder.module.declare_intrinsic(
+                "llvm.fma", [f64], ir.FunctionType(f64, [f64, f64, f64]))
+            return builder.call(fn, args)
+        return sig, codegen
+
+    del nb
+    return fma
+
+
+def fma() -> Any:
+    """A numba intrinsic ``fma(a, b, c)`` = :math:`ab + c` with one rounding
+    (LLVM's ``llvm.fma.f64``), for compiled kernels that must repeat, to
+    the last bit, an array operation NumPy performs with fused
+    multiply-adds (its complex products on x86-64 with FMA3).  Only
+    usable inside compiled code; pass it to :func:`jit` in ``globals``."""
+    return _build_fma()

@@ -48,7 +48,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .adt import _adt_q, adt_efficiencies
+from .adt import _adt_kernels, _adt_q, adt_efficiencies
 from .mie import MieEfficiencies, _mie_flat, _prepare_index, mie_efficiencies
 from ..errors import ArgumentError
 
@@ -62,6 +62,9 @@ DEFAULT_RTOL = 1e-3
 MAX_ERROR_RATIO = 0.82
 
 
+# The compiled path (edgefit.dust.adt._auto_loop) evaluates this bound per
+# point with the same operations (edgefit.dust.adt._bound_point); change both
+# together.
 def adt_error_bound(m, x, *, m_minus_1=None):
     r"""Bound on the relative error of ADT in Q_ext and Q_abs.
 
@@ -123,6 +126,19 @@ def efficiencies(m: ArrayLike | None, x: ArrayLike, method: str = "auto",
                          "approximation beyond 10 %")
     m, mm1, x = _prepare_index(m, x, m_minus_1)
     scalar = x.ndim == 0
+    kern = None if backend == "numpy" else _adt_kernels()
+    if kern is not None:
+        out = _auto_compiled(kern[1], mm1, x, rtol, backend)
+    else:
+        out = _auto_numpy(mm1, x, rtol, backend)
+    if scalar:
+        return MieEfficiencies(*(float(o) for o in out))
+    return MieEfficiencies(*out)
+
+
+def _auto_numpy(mm1, x, rtol, backend):
+    """The automatic choice with array operations: [qext, qsca, qabs, g]
+    for checked, broadcast m - 1 and x."""
     use_adt = adt_error_bound(None, x, m_minus_1=mm1) <= rtol
     out = [np.empty(x.shape) for _ in range(4)]
     if np.any(use_adt):
@@ -138,6 +154,27 @@ def efficiencies(m: ArrayLike | None, x: ArrayLike, method: str = "auto",
         r = _mie_flat(1.0 + mm1e, mm1e, x[exact], backend)
         for o, v in zip(out, r):
             o[exact] = v
-    if scalar:
-        return MieEfficiencies(*(float(o) for o in out))
-    return MieEfficiencies(*out)
+    return out
+
+
+def _auto_compiled(kern, mm1, x, rtol, backend):
+    """The automatic choice with the compiled loop: the same bound, the
+    same comparison and the same ADT and exact-Mie numbers as
+    :func:`_auto_numpy` (ADT to a few units in the last place)."""
+    mm1f = np.ascontiguousarray(mm1.ravel())
+    xf = np.ascontiguousarray(x.ravel())
+    n = xf.shape[0]
+    out = [np.empty(x.shape) for _ in range(4)]
+    flat = [o.reshape(-1) for o in out]
+    idx = np.empty(n, dtype=np.intp)
+    n_exact = kern(mm1f, xf, float(rtol), flat[0], flat[1], flat[2], flat[3], idx)
+    if n_exact:
+        # checked inputs: exact Mie theory for m = 1 + (m - 1), as
+        # mie_efficiencies(None, x, m_minus_1=m - 1) computes it
+        idx = idx[:n_exact]
+        mm1e = mm1f[idx]
+        r = _mie_flat(1.0 + mm1e, mm1e, xf[idx], backend)
+        for o, v in zip(flat, r):
+            o[idx] = v
+    return out
+
