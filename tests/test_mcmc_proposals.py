@@ -9,7 +9,7 @@ within 4 Monte Carlo standard errors, using the run's own bulk effective
 sample size n_eff (arviz) per parameter: the standard error of a mean is
 sigma / sqrt(n_eff), of a variance sigma^2 sqrt(2 / n_eff), of a
 correlation (1 - rho^2) / sqrt(n_eff) (normal-theory large-sample
-formulas).  These bounds do catch a wrong move: emcee's snooker move used
+formulas; common practice, standard results of sampling theory).  These bounds do catch a wrong move: emcee's snooker move used
 alone with its Hastings factor dropped gave variances 8 to 13 standard
 errors too small (tried while writing this test).
 """

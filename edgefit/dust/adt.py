@@ -201,6 +201,18 @@ def _fma(a, b, c):
     return float(Fraction(a) * Fraction(b) + Fraction(c))
 
 
+def _re_quotient(ar, ai, br, bi):
+    """Re[(ar + i ai) / (br + i bi)], scaled by the larger component of the
+    divisor as NumPy's complex division is."""
+    if abs(br) >= abs(bi):
+        rat = bi / br
+        scl = 1.0 / (br + bi * rat)
+        return (ar + ai * rat) * scl
+    rat = br / bi
+    scl = 1.0 / (bi + br * rat)
+    return (ar * rat + ai) * scl
+
+
 def _k_closed(wr, wi):
     """Re K(w) from the closed form, w = wr + i wi, |w| >= 1."""
     ur = -wr
@@ -213,24 +225,10 @@ def _k_closed(wr, wi):
     h = math.sin(ui / 2)
     m_r = math.expm1(ur) * cu - 2 * h * h    # expm1(-w)
     m_i = eu * su
-    if abs(wr) >= abs(wi):        # Re[exp(-w) / w]
-        rat = wi / wr
-        scl = 1.0 / (wr + wi * rat)
-        t1 = (e_r + e_i * rat) * scl
-    else:
-        rat = wr / wi
-        scl = 1.0 / (wi + wr * rat)
-        t1 = (e_r * rat + e_i) * scl
+    t1 = _re_quotient(e_r, e_i, wr, wi)        # Re[exp(-w) / w]
     qr = _fma(wr, wr, -(wi * wi))  # w^2
     qi = _fma(wr, wi, wi * wr)
-    if abs(qr) >= abs(qi):        # Re[expm1(-w) / w^2]
-        rat = qi / qr
-        scl = 1.0 / (qr + qi * rat)
-        t2 = (m_r + m_i * rat) * scl
-    else:
-        rat = qr / qi
-        scl = 1.0 / (qi + qr * rat)
-        t2 = (m_r * rat + m_i) * scl
+    t2 = _re_quotient(m_r, m_i, qr, qi)        # Re[expm1(-w) / w^2]
     return (0.5 + t1) + t2
 
 
@@ -348,7 +346,8 @@ def _adt_kernels():
     """(compiled _adt_loop, compiled _auto_loop)."""
     em = "numpy"
     fma = {"_fma": _jit.fma()}
-    names = {**fma, "_k_closed": _jit.jit(_k_closed, globals=fma, error_model=em)}
+    helpers = {**fma, "_re_quotient": _jit.jit(_re_quotient, error_model=em)}
+    names = {**fma, "_k_closed": _jit.jit(_k_closed, globals=helpers, error_model=em)}
     names["_adt_points"] = _jit.jit(_adt_points, globals=names, error_model=em)
     names["_bound_point"] = _jit.jit(_bound_point, error_model=em)
     return (_jit.jit(_adt_loop, globals=names, error_model=em),

@@ -148,12 +148,7 @@ def _auto_numpy(mm1, x, rtol, backend):
         out[3][use_adt] = np.nan
     exact = ~use_adt
     if np.any(exact):
-        # checked inputs: exact Mie theory for m = 1 + (m - 1), as
-        # mie_efficiencies(None, x, m_minus_1=m - 1) computes it
-        mm1e = mm1[exact]
-        r = _mie_flat(1.0 + mm1e, mm1e, x[exact], backend)
-        for o, v in zip(out, r):
-            o[exact] = v
+        _exact_at(out, exact, mm1, x, backend)
     return out
 
 
@@ -169,12 +164,16 @@ def _auto_compiled(kern, mm1, x, rtol, backend):
     idx = np.empty(n, dtype=np.intp)
     n_exact = kern(mm1f, xf, float(rtol), flat[0], flat[1], flat[2], flat[3], idx)
     if n_exact:
-        # checked inputs: exact Mie theory for m = 1 + (m - 1), as
-        # mie_efficiencies(None, x, m_minus_1=m - 1) computes it
-        idx = idx[:n_exact]
-        mm1e = mm1f[idx]
-        r = _mie_flat(1.0 + mm1e, mm1e, xf[idx], backend)
-        for o, v in zip(flat, r):
-            o[idx] = v
+        _exact_at(flat, idx[:n_exact], mm1f, xf, backend)
     return out
+
+
+def _exact_at(out, where, mm1, x, backend):
+    """Exact Mie efficiencies into ``out`` (qext, qsca, qabs, g) at the
+    points ``where`` (a mask or indices) of checked m - 1 and x arrays: the
+    numbers of mie_efficiencies(None, x, m_minus_1=m - 1), without its
+    second check of the inputs."""
+    mm1e = mm1[where]
+    for o, v in zip(out, _mie_flat(1.0 + mm1e, mm1e, x[where], backend)):
+        o[where] = v
 
