@@ -436,6 +436,36 @@ def test_table_rewrites_are_throttled_but_never_lost(tmp_path, monkeypatch):
     _assert_same_table(read_sample_table(tmp_path / "out"), every)
 
 
+def test_a_slow_table_write_widens_the_gap_to_the_next(tmp_path, monkeypatch):
+    """With a positive interval the next rewrite waits for
+    TABLE_WRITE_GAP_FACTOR times the last one's duration: a table write
+    made to take 0.2 s with a factor of 1e4 leaves the first write (after
+    the first sightline, the 1e-6 s interval having passed) and the final
+    one; factor 0 falls back to the interval (after every sightline)."""
+    import time
+
+    from edgefit.analysis import batch
+
+    m = write_sample(tmp_path, n=3, **FAST)
+    writes = []
+    real_write = batch.write_sample_table
+
+    def slow_write(table, folder):
+        writes.append(len(table))
+        time.sleep(0.2)
+        return real_write(table, folder)
+
+    monkeypatch.setattr(batch, "write_sample_table", slow_write)
+    monkeypatch.setattr(batch, "TABLE_WRITE_GAP_FACTOR", 1e4)
+    slow = run_batch(m, tmp_path / "slow", workers=0, progress=False, table_interval=1e-6)
+    assert writes == [1, 3]
+    writes.clear()
+    monkeypatch.setattr(batch, "TABLE_WRITE_GAP_FACTOR", 0.0)
+    every = run_batch(m, tmp_path / "every", workers=0, progress=False, table_interval=1e-6)
+    assert writes == [1, 2, 3]
+    _assert_same_table(slow, every)
+
+
 def test_signals_deferred_until_the_commit_ends():
     """A SIGINT inside the deferred block (a commit) is acted on when it
     ends, not in the middle -- also when a helper thread, not the main

@@ -21,8 +21,10 @@ How it stays safe:
   into ``DIR/sightlines/`` -- a sightline's folder appears whole or not at
   all.  The sample table is rewritten (temporary file, rename) after a
   finished sightline at most once every ``table_interval`` seconds (5 by
-  default; rebuilding it costs the main process ~0.1 s, time the workers'
-  results wait), and always at the end, on Ctrl-C/SIGTERM and when the run
+  default) or every 50 times the last rewrite's duration if that is longer
+  (:data:`TABLE_WRITE_GAP_FACTOR`; rebuilding and writing both files costs
+  the main process a few tenths of a second for tens of rows, CPU the
+  workers share), and always at the end, on Ctrl-C/SIGTERM and when the run
   stops on an error.  Resuming never reads the table: it rests on the
   folders' ``row.json``, so a table a few seconds behind (a main process
   killed outright) loses nothing.
@@ -67,7 +69,7 @@ if TYPE_CHECKING:
     from astropy.table import Table
 
 __all__ = ["run_batch", "BatchInterrupted", "default_output", "fit_task", "ROW_FILE",
-           "SIGHTLINES_DIR", "TABLE_INTERVAL"]
+           "SIGHTLINES_DIR", "TABLE_INTERVAL", "TABLE_WRITE_GAP_FACTOR"]
 
 #: The record of a finished sightline, inside its folder.
 ROW_FILE = "row.json"
@@ -76,6 +78,12 @@ SIGHTLINES_DIR = "sightlines"
 _WORK_DIR = ".work"
 #: Default least time (s) between two rewrites of the sample table during a run.
 TABLE_INTERVAL = 5.0
+#: With a positive ``table_interval``, the least time between two rewrites
+#: is also this many times the last rewrite's duration: rewriting a table of
+#: many rows and columns (a few tenths of a second for tens of rows) then
+#: takes at most ~2 % of the main process, CPU the workers would otherwise
+#: share on a machine with as many workers as cores.
+TABLE_WRITE_GAP_FACTOR = 50.0
 #: ``row.json`` key of the CPU seconds the sightline's fit took (not a table
 #: column): a later run that refits it starts the costliest sightlines first.
 _COST_KEY = "fit_cpu_s"
@@ -444,7 +452,9 @@ def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike 
         reported) -- for benchmarks.
     table_interval : float
         Least time (seconds) between two rewrites of the sample table while
-        sightlines finish (0: after every one).  The table is always
+        sightlines finish (0: after every one); when positive, the gap is
+        also at least :data:`TABLE_WRITE_GAP_FACTOR` times the last
+        rewrite's duration.  The table is always
         written at the end, on an interruption and when the run stops on
         an error; each sightline's folder is written the moment it
         finishes regardless.
@@ -510,15 +520,20 @@ def run_batch(manifest: str | os.PathLike | Manifest, output: str | os.PathLike 
     bar = tqdm(total=len(tasks), desc="sightlines", unit="sightline", file=sys.stderr,
                disable=not progress, dynamic_ncols=True)
     counts = {"done": 0, "failed": 0}
-    written = {"at": time.monotonic(), "stale": table is None}
+    written = {"at": time.monotonic(), "stale": table is None, "gap": table_interval}
 
     def refresh_table(force):
         """Rewrite the table if it lags behind the records and ``force``
-        or ``table_interval`` seconds passed since the last write."""
+        or the gap (``table_interval``, or more after a slow write) passed
+        since the last write."""
         nonlocal table
-        if written["stale"] and (force or time.monotonic() - written["at"] >= table_interval):
+        if written["stale"] and (force or time.monotonic() - written["at"] >= written["gap"]):
+            t0 = time.monotonic()
             table = write_table()
-            written.update(at=time.monotonic(), stale=False)
+            now = time.monotonic()
+            gap = (max(table_interval, TABLE_WRITE_GAP_FACTOR * (now - t0))
+                   if table_interval > 0 else 0.0)
+            written.update(at=now, stale=False, gap=gap)
 
     def on_result(res):
         with _signals_deferred():   # a folder and the table are written whole
