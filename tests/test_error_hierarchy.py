@@ -7,6 +7,9 @@ test: bad input and bad arguments raise an ``EdgefitError`` subclass
 (``ArgumentError``, ``InputFileError`` ... which subclass ``ValueError``
 where that reads naturally), and a missing optional package raises
 ``MissingDependencyError`` (an ``ImportError``) everywhere.
+
+The rule is the project's own convention (DEVELOPERS.md); no physics or
+statistics value is checked here.
 """
 from __future__ import annotations
 

@@ -1,6 +1,7 @@
 """Dependencies run one way: each module imports only its own layer and
 the layers below (DEVELOPERS.md, "Architecture").  The package is parsed
-with Python's ``ast``; imports inside functions count too."""
+with Python's ``ast``; imports inside functions count too.  No physics
+or statistics value is checked here."""
 from __future__ import annotations
 
 import ast

@@ -1,6 +1,10 @@
 """The HTML report builder: escaping, missing figures refused, tables
 checked, the page parses (Python's html.parser) and links only to files
-that exist."""
+that exist.
+
+No physics or statistics value is checked here.  The expected number
+strings follow Python's own ``g`` presentation type (Python documentation,
+"Format Specification Mini-Language"), which ``format_value`` uses."""
 from html.parser import HTMLParser
 
 import numpy as np
