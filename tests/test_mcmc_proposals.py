@@ -1,5 +1,5 @@
-"""Walker proposals of ``run_mcmc`` (``proposal="stretch"`` and
-``"differential"``).
+"""Walker proposals of ``run_mcmc`` (``proposal="stretch"``, ``"differential"``
+and ``"valley"``; the valley proposal has more checks in test_valley_proposal.py).
 
 Reference: an analytic Gaussian.  The log-likelihood is a correlated
 three-dimensional normal density with known mean and covariance, far
@@ -48,6 +48,13 @@ class _GaussianLikelihood:
         d = np.asarray(theta) - MEAN
         return -0.5 * float(d @ self.precision @ d)
 
+    def residuals(self, theta):
+        # whitened offsets: their sum of squares is the statistic
+        return np.linalg.solve(np.linalg.cholesky(COV), np.asarray(theta) - MEAN)
+
+    def statistic(self, theta):
+        return -2.0 * self.log_likelihood(theta)
+
 
 class _GaussianFit:
     """The parts of a FitResult that ``run_mcmc`` reads, for the analytic
@@ -68,8 +75,9 @@ class _GaussianFit:
 
 
 #: chain lengths: > 50 autocorrelation times (about 36 steps for the
-#: stretch move, 12 for the differential mixture on this density)
-STEPS = {"stretch": 2500, "differential": 1500}
+#: stretch move, 12 for the differential mixture on this density; the
+#: valley proposal's mixture is here one Student-t at the exact Gaussian)
+STEPS = {"stretch": 2500, "differential": 1500, "valley": 1500}
 
 
 @pytest.mark.parametrize("proposal", PROPOSALS)

@@ -527,8 +527,9 @@ class McmcSettings(_Section):
         "seed": (lambda v: _integer(v, 0), "an integer >= 0"),
         "processes": (lambda v: _integer(v, 1), "a positive integer"),
         "progress": (lambda v: isinstance(v, bool), "true or false"),
-        "proposal": (_proposal_name, "use \"stretch\" (emcee's stretch move) or "
-                                     "\"differential\" (differential-evolution moves)"),
+        "proposal": (_proposal_name, "use \"stretch\" (emcee's stretch move), "
+                                     "\"differential\" (differential-evolution moves) or "
+                                     "\"valley\" (jumps along the grain-size valley)"),
         "priors": (lambda v: isinstance(v, dict), "a table of priors"),
     }
 

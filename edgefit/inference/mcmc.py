@@ -32,6 +32,17 @@ emcee's documentation shows for it.  Both are exact Markov chain moves
 six-parameter edge fits the mixture's autocorrelation times are shorter
 (``benchmarks/bench_mcmc_moves.py``).
 
+``proposal="valley"`` is for fits with the grain size free: with
+probability 0.5 each walker makes an independence Metropolis-Hastings
+jump drawn from a mixture density laid along the gas/dust/size valley
+(:mod:`edgefit.inference.valley`: fits on a grid of fixed sizes and, in
+the total/fraction form, fixed dust fractions), otherwise the
+differential moves above (0.4 and 0.1).  Its walkers start as draws from
+that mixture, and the continuum normalisations are sampled in their
+logarithm with their prior kept flat in the normalisation itself (the
+Jacobian is added).  Building the mixture costs a few tens of
+fixed-parameter fits.
+
 Across the grain-size valley
 ----------------------------
 Sampler coordinates (``coordinates="auto"``, the default): the logarithm
@@ -84,15 +95,20 @@ RHAT_MAX = 1.05
 #: recommend > 400, i.e. 100 per chain for four chains).
 ESS_MIN = 400
 #: Walker proposals :func:`run_mcmc` accepts (module docstring).
-PROPOSALS = ("stretch", "differential")
+PROPOSALS = ("stretch", "differential", "valley")
 #: Weights of the differential-evolution move and its snooker variant in
 #: the ``"differential"`` proposal.
 DIFFERENTIAL_WEIGHTS = (0.8, 0.2)
+#: Weights of the independence move drawing from the valley mixture, the
+#: differential-evolution move and its snooker variant in the ``"valley"``
+#: proposal.
+VALLEY_WEIGHTS = (0.5, 0.4, 0.1)
 
 
-def proposal_moves(proposal):
+def proposal_moves(proposal, mixture=None):
     """emcee's ``moves`` argument for a proposal name of :data:`PROPOSALS`
-    (a list of (move, weight) pairs)."""
+    (a list of (move, weight) pairs); ``"valley"`` needs the
+    :class:`~edgefit.inference.valley.ValleyMixture` to draw from."""
     import emcee
 
     if proposal == "stretch":
@@ -100,6 +116,12 @@ def proposal_moves(proposal):
     if proposal == "differential":
         w_de, w_snooker = DIFFERENTIAL_WEIGHTS
         return [(emcee.moves.DEMove(), w_de), (emcee.moves.DESnookerMove(), w_snooker)]
+    if proposal == "valley":
+        if mixture is None:
+            raise ArgumentError("the valley proposal needs its mixture density")
+        w_jump, w_de, w_snooker = VALLEY_WEIGHTS
+        return [(emcee.moves.MHMove(mixture), w_jump), (emcee.moves.DEMove(), w_de),
+                (emcee.moves.DESnookerMove(), w_snooker)]
     raise ArgumentError(f"proposal must be one of {', '.join(map(repr, PROPOSALS))}, "
                         f"got {proposal!r}")
 
@@ -283,16 +305,26 @@ def _tqdm_available():
 
 class SamplerCoordinates:
     """Map between the fit's free-parameter vector theta and the sampler's
-    vector y: y = ln(theta) for the indices ``log_idx``; for a column pair
-    (i_gas, i_dust), y[i_gas] = total and y[i_dust] = dust fraction."""
+    vector y: y = ln(theta) for the indices ``log_idx`` (grain sizes) and
+    ``scale_idx`` (positive scales: their prior stays flat in theta, see
+    :class:`SampledPosterior`); for a column pair (i_gas, i_dust),
+    y[i_gas] = total and y[i_dust] = dust fraction."""
 
-    def __init__(self, free, log_idx=(), pair=None):
+    def __init__(self, free, log_idx=(), pair=None, scale_idx=()):
         self.free = list(free)
         self.log_idx = np.asarray(list(log_idx), dtype=int)
+        self.scale_idx = np.asarray(list(scale_idx), dtype=int)
+        self._ln_idx = np.concatenate([self.log_idx, self.scale_idx]).astype(int)
         self.pair = pair
 
     @classmethod
-    def for_result(cls, result, pv, coordinates="auto"):
+    def for_result(cls, result, pv, coordinates="auto", scales=False):
+        """Coordinates of a fit (module docstring).  With ``scales``, every
+        free normalisation (a component parameter named ``norm``, bounded
+        below by >= 0, positive at the best fit) is sampled in its
+        logarithm too: the log of the flux is linear in ln(norm), the
+        photon index and N_H, so the narrow band's N_H-index-normalisation
+        ridge becomes straight."""
         if coordinates == "natural":
             return cls(pv.free)
         if coordinates != "auto":
@@ -307,10 +339,17 @@ class SamplerCoordinates:
                  if len(g) == 1 and len(d) == 1]
         if len(pairs) == 1 and pairs[0][0][0] in pv.free and pairs[0][1][0] in pv.free:
             pair = (pv.free.index(pairs[0][0][0]), pv.free.index(pairs[0][1][0]))
-        return cls(pv.free, log_idx, pair)
+        scale_idx = []
+        if scales:
+            x0 = pv.vector(result.params)
+            norms = {full for full, (_, p) in result.model.parameters().items()
+                     if p.name == "norm"}
+            scale_idx = [i for i, n in enumerate(pv.free)
+                         if n in norms and pv.lower[i] >= 0 and x0[i] > 0]
+        return cls(pv.free, log_idx, pair, scale_idx)
 
     def labels(self):
-        out = [f"ln({self.free[i]})" for i in self.log_idx]
+        out = [f"ln({self.free[i]})" for i in self._ln_idx]
         if self.pair is not None:
             g, d = (self.free[i] for i in self.pair)
             out.append(f"total = {g} + {d}")
@@ -319,9 +358,9 @@ class SamplerCoordinates:
 
     def to_y(self, theta):
         y = np.array(theta, dtype=float, copy=True)
-        if self.log_idx.size:
+        if self._ln_idx.size:
             with np.errstate(divide="ignore", invalid="ignore"):
-                y[..., self.log_idx] = np.log(y[..., self.log_idx])
+                y[..., self._ln_idx] = np.log(y[..., self._ln_idx])
         if self.pair is not None:
             ig, idd = self.pair
             g, d = y[..., ig].copy(), y[..., idd].copy()
@@ -333,8 +372,9 @@ class SamplerCoordinates:
 
     def to_theta(self, y):
         th = np.array(y, dtype=float, copy=True)
-        if self.log_idx.size:
-            th[..., self.log_idx] = np.exp(th[..., self.log_idx])
+        if self._ln_idx.size:
+            with np.errstate(over="ignore"):
+                th[..., self._ln_idx] = np.exp(th[..., self._ln_idx])
         if self.pair is not None:
             ig, idd = self.pair
             tot, f = th[..., ig].copy(), th[..., idd].copy()
@@ -342,10 +382,15 @@ class SamplerCoordinates:
             th[..., idd] = tot * f
         return th
 
+    def scale_log_jacobian(self, y):
+        """ln |d theta / d y| of the scale coordinates alone (added to every
+        posterior so that their prior stays flat in the parameters)."""
+        return float(np.sum(y[self.scale_idx])) if self.scale_idx.size else 0.0
+
     def log_jacobian(self, y):
         """ln |d theta / d y| (densities flat in theta times this are the
         densities in y)."""
-        lj = float(np.sum(y[self.log_idx])) if self.log_idx.size else 0.0
+        lj = float(np.sum(y[self._ln_idx])) if self._ln_idx.size else 0.0
         if self.pair is not None:
             tot = y[self.pair[0]]
             lj += math.log(tot) if tot > 0 else -math.inf
@@ -355,7 +400,7 @@ class SamplerCoordinates:
         """d y / d theta at ``theta`` (matrix)."""
         n = len(theta)
         jac = np.eye(n)
-        for i in self.log_idx:
+        for i in self._ln_idx:
             jac[i, i] = 1.0 / theta[i] if theta[i] > 0 else 0.0
         if self.pair is not None:
             ig, idd = self.pair
@@ -392,8 +437,9 @@ class SampledPosterior:
         if not np.all(np.isfinite(y)) or not self.coords.in_bounds(y):
             return -math.inf
         lp = self.logp(self.coords.to_theta(y))
-        if self.prior == "parameters" and math.isfinite(lp):
-            lp += self.coords.log_jacobian(y)
+        if math.isfinite(lp):
+            lp += (self.coords.log_jacobian(y) if self.prior == "parameters"
+                   else self.coords.scale_log_jacobian(y))
         return lp
 
 
@@ -466,6 +512,21 @@ def _initial_walkers(result, pv, coords, logp_y, nwalkers, rng, init, init_scale
     return start, [coords.to_y(c) for c in centres]
 
 
+def _walkers_from(mixture, logp_y, fallback, rng, tries=20):
+    """Walkers drawn from ``mixture`` where the posterior is finite (the
+    rows of ``fallback`` for any still missing after ``tries`` rounds)."""
+    n = len(fallback)
+    out = []
+    for _ in range(tries):
+        for y in mixture.draw(rng, 4 * n):
+            if math.isfinite(logp_y(y)):
+                out.append(y)
+                if len(out) == n:
+                    return np.array(out)
+    out += list(fallback[len(out):])
+    return np.array(out)
+
+
 def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
              burn: int | None = None, thin: int = 1, seed: int | None = None,
              priors: dict[str, Any] | None = None, progress: bool = False,
@@ -503,9 +564,12 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     init : {"minima", "ball"}
         Walkers shared among the known minima (default) or one ball around
         the best fit.
-    proposal : {"stretch", "differential"}
-        Walker proposal (module docstring): emcee's stretch move (default)
-        or the mixture of differential-evolution moves.
+    proposal : {"stretch", "differential", "valley"}
+        Walker proposal (module docstring): emcee's stretch move (default),
+        the mixture of differential-evolution moves, or independence jumps
+        along the grain-size valley mixed with them (for a free grain
+        size; the walkers then start as draws from the valley mixture and
+        ``init``/``init_scale`` are not used).
 
     Returns
     -------
@@ -514,7 +578,8 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     """
     import emcee
 
-    moves = proposal_moves(proposal)
+    if proposal not in PROPOSALS:
+        proposal_moves(proposal)  # raises the one-line error
     logp = LogPosterior(result.likelihood, result.params, priors)
     pv = logp.pv
     ndim = len(pv)
@@ -523,10 +588,18 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     nwalkers = int(nwalkers or max(32, 4 * ndim))
     nwalkers += nwalkers % 2
     rng = np.random.default_rng(seed)
-    coords = SamplerCoordinates.for_result(result, pv, coordinates)
+    coords = SamplerCoordinates.for_result(result, pv, coordinates,
+                                           scales=proposal == "valley")
     target = SampledPosterior(logp, coords, prior)
     start, centres = _initial_walkers(result, pv, coords, target, nwalkers, rng, init,
                                       init_scale)
+    mixture = None
+    if proposal == "valley":
+        from .valley import valley_mixture
+
+        mixture = valley_mixture(result, pv, coords, logp.evaluator, target)
+        start = _walkers_from(mixture, target, start, rng)
+    moves = proposal_moves(proposal, mixture)
     pool = None
     fn: Callable[[np.ndarray], float] = target
     if processes and processes > 1:
@@ -569,9 +642,11 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
                       f"autocorrelation times (max tau = {tmax:.1f} steps); posterior "
                       "summaries may be unreliable", ShortChainWarning, stacklevel=2)
     elif not res.diagnostics_ok:
+        hint = (" -- with a free grain size, try proposal='valley'"
+                if coords.log_idx.size and proposal != "valley" else "")
         warnings.warn(f"MCMC chain not converged: split-R-hat max {np.nanmax(res.rhat):.3f} "
                       f"(want <= {RHAT_MAX}), bulk ESS min {np.nanmin(res.ess):.0f} "
-                      f"(want >= {ESS_MIN})", ModeMixingWarning, stacklevel=2)
+                      f"(want >= {ESS_MIN}){hint}", ModeMixingWarning, stacklevel=2)
     if res.unmixed_modes:
         warnings.warn(f"MCMC walkers never moved between the {len(centres)} minima the fit "
                       "found (samples per minimum: "
