@@ -2,7 +2,8 @@
 
 References:
 
-- The mixture density against SciPy's ``scipy.stats.multivariate_t`` (a
+- The mixture density, alone and blended with Student-t kernels on
+  sample points, against SciPy's ``scipy.stats.multivariate_t`` (a
   general-purpose reference library), to 1e-10 relative.
 - Its draws against the covariance of a multivariate Student-t,
   Sigma nu / (nu - 2) (a standard result, e.g. Kotz & Nadarajah 2004,
@@ -49,6 +50,23 @@ def test_mixture_density_matches_scipy_multivariate_t():
     one = ValleyMixture(MEANS[:1], COVS[:1], [1.0], dof=5.0)
     assert one.logpdf(y[0]) == pytest.approx(
         stats.multivariate_t(loc=MEANS[0], shape=COVS[0], df=5.0).logpdf(y[0]), rel=1e-10)
+
+
+def test_blending_in_sample_kernels_matches_scipy():
+    # Scott's factor n^(-1/(d+4)) on the sample covariance (Scott 1992,
+    # Multivariate Density Estimation, eq. 6.42; from memory)
+    grid = ValleyMixture(MEANS, COVS, [0.4, 0.6], dof=5.0)
+    x = np.random.default_rng(4).normal(size=(40, 3)) + [1.0, 0.0, -1.0]
+    mix = grid.with_samples(x, share=0.5)
+    kernel = np.cov(x, rowvar=False) * 40 ** (-2.0 / 7.0)
+    y = np.random.default_rng(5).normal(size=(20, 3))
+    pdf = sum(0.5 * w * stats.multivariate_t(loc=m, shape=c, df=5.0).pdf(y)
+              for w, m, c in zip([0.4, 0.6], MEANS, COVS))
+    pdf = pdf + sum(0.5 / 40 * stats.multivariate_t(loc=p, shape=kernel, df=5.0).pdf(y)
+                    for p in x)
+    np.testing.assert_allclose(mix.logpdf(y), np.log(pdf), rtol=1e-10)
+    # too few points for a covariance: the mixture is returned unchanged
+    assert grid.with_samples(x[:3]) is grid
 
 
 def test_draws_have_the_student_t_covariance_and_stay_in_the_box():

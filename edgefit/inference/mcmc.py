@@ -41,7 +41,11 @@ differential moves above (0.4 and 0.1).  Its walkers start as draws from
 that mixture, and the continuum normalisations are sampled in their
 logarithm with their prior kept flat in the normalisation itself (the
 Jacobian is added).  Building the mixture costs a few tens of
-fixed-parameter fits.
+fixed-parameter fits.  The run adapts once: after the first quarter of
+the steps (:data:`VALLEY_STAGE_FRACTION`) the mixture gains Student-t
+kernels on the later half of that stage's samples (half the weight) and
+stays fixed from then on, so the second stage is an ordinary Markov
+chain with the same target; the default burn-in covers the first stage.
 
 Across the grain-size valley
 ----------------------------
@@ -512,6 +516,16 @@ def _initial_walkers(result, pv, coords, logp_y, nwalkers, rng, init, init_scale
     return start, [coords.to_y(c) for c in centres]
 
 
+#: Share of a valley-proposal run spent before its one adaptation.
+VALLEY_STAGE_FRACTION = 0.25
+
+
+def _valley_stages(nsteps):
+    """Steps before and after the valley proposal's adaptation."""
+    first = int(nsteps * VALLEY_STAGE_FRACTION)
+    return [first, nsteps - first] if first >= 20 and nsteps - first > 0 else [nsteps]
+
+
 def _walkers_from(mixture, logp_y, fallback, rng, tries=20):
     """Walkers drawn from ``mixture`` where the posterior is finite (the
     rows of ``fallback`` for any still missing after ``tries`` rounds)."""
@@ -609,24 +623,39 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
         # ships only the small _WorkerLogPosterior proxy with each batch
         pool = multiprocessing.Pool(processes, initializer=_init_worker, initargs=(target,))
         fn = _WorkerLogPosterior()
+    show = bool(progress and _tqdm_available())
+    # the valley proposal adapts once: after its first stage the mixture
+    # gains a kernel density of that stage's later half, then stays fixed
+    stages = [nsteps] if mixture is None else _valley_stages(nsteps)
+    chains, lps, accepted = [], [], np.zeros(nwalkers)
     try:
-        sampler = emcee.EnsembleSampler(nwalkers, ndim, fn, pool=pool, moves=moves)
-        sampler.random_state = np.random.RandomState(
-            int(rng.integers(2 ** 31 - 1))).get_state()
-        sampler.run_mcmc(start, nsteps, progress=bool(progress and _tqdm_available()))
+        state = start
+        random_state = np.random.RandomState(int(rng.integers(2 ** 31 - 1))).get_state()
+        for k, n in enumerate(stages):
+            if k > 0 and mixture is not None:
+                first = chains[0]
+                mixture = mixture.with_samples(first[len(first) // 2:].reshape(-1, ndim))
+                moves = proposal_moves(proposal, mixture)
+            sampler = emcee.EnsembleSampler(nwalkers, ndim, fn, pool=pool, moves=moves)
+            sampler.random_state = random_state
+            state = sampler.run_mcmc(state, n, progress=show)
+            random_state = sampler.random_state
+            chains.append(sampler.get_chain())
+            lps.append(sampler.get_log_prob())
+            accepted += sampler.acceptance_fraction * n
     finally:
         if pool is not None:
             pool.close()
             pool.join()
-    chain_y = sampler.get_chain()
+    chain_y = np.concatenate(chains)
     chain = coords.to_theta(chain_y)
-    lp = sampler.get_log_prob()
+    lp = np.concatenate(lps)
     with np.errstate(invalid="ignore", divide="ignore"):  # constant chains give NaN tau
-        tau = sampler.get_autocorr_time(tol=0)
+        tau = emcee.autocorr.integrated_time(chain_y, tol=0)
     tmax = float(np.nanmax(tau))
     if burn is None:
         burn = int(min(max(2 * tmax, nsteps / 4), nsteps - 1))
-    res = McmcResult(chain, lp, pv.free, burn, thin, tau, sampler.acceptance_fraction, seed)
+    res = McmcResult(chain, lp, pv.free, burn, thin, tau, accepted / nsteps, seed)
     res.initial = coords.to_theta(start)
     res.coordinates = coords.labels()
     res.prior = prior if res.coordinates else "parameters"

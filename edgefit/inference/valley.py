@@ -58,7 +58,8 @@ from scipy.special import gammaln
 from ..errors import ArgumentError, FitError
 
 __all__ = ["ValleyMixture", "valley_points", "valley_mixture", "VALLEY_SLICES", "VALLEY_FRACTIONS", "VALLEY_DOF",
-           "VALLEY_DEFENSIVE", "VALLEY_SCALE"]
+           "VALLEY_DEFENSIVE", "VALLEY_SCALE", "VALLEY_SAMPLE_SHARE",
+           "VALLEY_SAMPLE_POINTS"]
 
 #: Number of grain-size cells laid across the size parameter's bounds.
 VALLEY_SLICES = 8
@@ -71,6 +72,10 @@ VALLEY_DOF = 5.0
 VALLEY_DEFENSIVE = 0.3
 #: Each component's covariance is the Gauss-Newton one times this squared.
 VALLEY_SCALE = 1.25
+#: Share of the adapted mixture's weight on the kernel density of the
+#: first stage's samples, and the most sample points it keeps.
+VALLEY_SAMPLE_SHARE = 0.5
+VALLEY_SAMPLE_POINTS = 300
 
 
 class ValleyMixture:
@@ -109,12 +114,24 @@ class ValleyMixture:
         nu = self.dof
         self.lower = np.full(d, -np.inf) if lower is None else np.asarray(lower, dtype=float)
         self.upper = np.full(d, np.inf) if upper is None else np.asarray(upper, dtype=float)
+        self._shape_groups = None
         self._const = (np.log(self.weights) + gammaln(0.5 * (nu + d)) - gammaln(0.5 * nu)
                        - 0.5 * d * math.log(nu * math.pi) - 0.5 * logdet)
 
     @property
     def ndim(self):
         return self.means.shape[1]
+
+    def _groups(self):
+        """Components sharing one shape (a kernel density's points) are
+        whitened together: list of (Cholesky factor, component indices)."""
+        if self._shape_groups is None:
+            groups: dict[bytes, list[int]] = {}
+            for k, L in enumerate(self.chol):
+                groups.setdefault(L.tobytes(), []).append(k)
+            self._shape_groups = [(self.chol[idx[0]], np.asarray(idx))
+                                  for idx in groups.values()]
+        return self._shape_groups
 
     def logpdf(self, y):
         """ln q(y) for points ``y`` of shape (n, d) (or (d,))."""
@@ -123,10 +140,14 @@ class ValleyMixture:
         y = np.atleast_2d(y)
         d, nu = self.ndim, self.dof
         terms = np.empty((len(y), len(self.means)))
-        for k, (m, L) in enumerate(zip(self.means, self.chol)):
-            z = np.linalg.solve(L, (y - m).T)            # (d, n)
-            maha = np.sum(z * z, axis=0)
-            terms[:, k] = self._const[k] - 0.5 * (nu + d) * np.log1p(maha / nu)
+        for L, idx in self._groups():
+            c = self.means[idx].mean(axis=0)      # centred: no cancellation
+            zy = np.linalg.solve(L, (y - c).T).T                  # (n, d)
+            zm = np.linalg.solve(L, (self.means[idx] - c).T).T    # (k, d)
+            maha = ((zy * zy).sum(axis=1)[:, None] - 2.0 * zy @ zm.T
+                    + (zm * zm).sum(axis=1)[None, :])
+            maha = np.maximum(maha, 0.0)
+            terms[:, idx] = self._const[idx] - 0.5 * (nu + d) * np.log1p(maha / nu)
         top = np.max(terms, axis=1)
         with np.errstate(invalid="ignore"):
             out = top + np.log(np.sum(np.exp(terms - top[:, None]), axis=1))
@@ -138,6 +159,32 @@ class ValleyMixture:
         z = random.standard_normal((n, self.ndim))
         s = np.sqrt(random.chisquare(self.dof, size=n) / self.dof)
         return self.means[k] + np.einsum("nij,nj->ni", self.chol[k], z) / s[:, None]
+
+    def with_samples(self, samples, share=VALLEY_SAMPLE_SHARE, max_points=VALLEY_SAMPLE_POINTS,
+                     random=None):
+        """This mixture blended with a kernel density of ``samples`` (rows
+        in the same coordinates): one Student-t kernel per sample point
+        (at most ``max_points``, evenly thinned), all with the samples'
+        covariance times Scott's factor squared, n^(-2/(d+4)) (Scott 1992,
+        Multivariate Density Estimation, eq. 6.42), carrying ``share`` of
+        the weight."""
+        x = np.asarray(samples, dtype=float)
+        x = x[np.all(np.isfinite(x), axis=1)]
+        if len(x) > max_points:
+            x = x[np.linspace(0, len(x) - 1, max_points).astype(int)]
+        d = self.ndim
+        if len(x) < d + 2:
+            return self
+        cov = np.cov(x, rowvar=False) * len(x) ** (-2.0 / (d + 4))
+        cov = 0.5 * (cov + cov.T)
+        vals, vecs = np.linalg.eigh(cov)
+        if not np.all(np.isfinite(vals)) or vals.max() <= 0:
+            return self
+        cov = (vecs * np.maximum(vals, 1e-12 * vals.max())) @ vecs.T
+        means = np.vstack([self.means, x])
+        covs = np.concatenate([self.covs, np.broadcast_to(cov, (len(x), d, d))])
+        weights = np.r_[(1.0 - share) * self.weights, np.full(len(x), share / len(x))]
+        return ValleyMixture(means, covs, weights, self.dof, self.lower, self.upper)
 
     def inside(self, y):
         """Which rows of ``y`` lie in the box."""
