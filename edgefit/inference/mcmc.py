@@ -627,7 +627,9 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     # the valley proposal adapts once: after its first stage the mixture
     # gains a kernel density of that stage's later half, then stays fixed
     stages = [nsteps] if mixture is None else _valley_stages(nsteps)
-    chains, lps, accepted = [], [], np.zeros(nwalkers)
+    chains: list[np.ndarray] = []
+    lps: list[np.ndarray] = []
+    accepted = np.zeros(nwalkers)
     try:
         state = start
         random_state = np.random.RandomState(int(rng.integers(2 ** 31 - 1))).get_state()
