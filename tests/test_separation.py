@@ -250,7 +250,8 @@ def test_mcmc_starts_in_every_minimum_and_warns_when_modes_not_crossed(global_fi
     assert len([m for m in res.minima if m.delta <= res.multimodal_delta]) >= 2
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        mc = run_mcmc(res, nwalkers=24, nsteps=30, seed=2, store=False, init_scale=1e-3)
+        mc = run_mcmc(res, nwalkers=24, nsteps=30, seed=2, store=False, init_scale=1e-3,
+                      proposal="stretch")
     # the walkers start near each known minimum
     amax0 = mc.initial[:, mc.names.index("dust_amax")]
     for m in res.minima:

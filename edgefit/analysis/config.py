@@ -514,7 +514,7 @@ class McmcSettings(_Section):
     seed: int = 1
     processes: int | None = None
     progress: bool = False
-    proposal: str = "stretch"
+    proposal: str = "auto"
     priors: dict = field(default_factory=dict)
 
     KEY = "mcmc"
@@ -527,7 +527,8 @@ class McmcSettings(_Section):
         "seed": (lambda v: _integer(v, 0), "an integer >= 0"),
         "processes": (lambda v: _integer(v, 1), "a positive integer"),
         "progress": (lambda v: isinstance(v, bool), "true or false"),
-        "proposal": (_proposal_name, "use \"stretch\" (emcee's stretch move), "
+        "proposal": (_proposal_name, "use \"auto\" (the default: \"valley\" with a free "
+                                     "grain size, else \"stretch\"), \"stretch\" (emcee's stretch move), "
                                      "\"differential\" (differential-evolution moves) or "
                                      "\"valley\" (jumps along the grain-size valley)"),
         "priors": (lambda v: isinstance(v, dict), "a table of priors"),

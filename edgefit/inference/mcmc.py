@@ -22,7 +22,9 @@ below :data:`ESS_MIN` triggers a :class:`~edgefit.errors.ModeMixingWarning`
 
 Proposals
 ---------
-``proposal="stretch"`` (the default) is emcee's affine-invariant stretch
+``proposal="auto"`` (the default) is ``"valley"`` (below) when one grain-size
+parameter is free and ``"stretch"`` otherwise; the result records which.
+``proposal="stretch"`` is emcee's affine-invariant stretch
 move (Goodman & Weare 2010).  ``proposal="differential"`` mixes emcee's
 differential-evolution move (ter Braak 2006; Nelson et al. 2013, ApJS 210,
 11) with probability 0.8 and its snooker variant (ter Braak & Vrugt 2008,
@@ -99,7 +101,7 @@ RHAT_MAX = 1.05
 #: recommend > 400, i.e. 100 per chain for four chains).
 ESS_MIN = 400
 #: Walker proposals :func:`run_mcmc` accepts (module docstring).
-PROPOSALS = ("stretch", "differential", "valley")
+PROPOSALS = ("auto", "stretch", "differential", "valley")
 #: Weights of the differential-evolution move and its snooker variant in
 #: the ``"differential"`` proposal.
 DIFFERENTIAL_WEIGHTS = (0.8, 0.2)
@@ -546,7 +548,7 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
              priors: dict[str, Any] | None = None, progress: bool = False,
              processes: int | None = None, init_scale: float = 1.0, store: bool = True,
              coordinates: str = "auto", prior: str = "sampled",
-             init: str = "minima", proposal: str = "stretch") -> McmcResult:
+             init: str = "minima", proposal: str = "auto") -> McmcResult:
     """Sample the posterior around a best fit with emcee.
 
     Parameters
@@ -578,12 +580,14 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
     init : {"minima", "ball"}
         Walkers shared among the known minima (default) or one ball around
         the best fit.
-    proposal : {"stretch", "differential", "valley"}
-        Walker proposal (module docstring): emcee's stretch move (default),
-        the mixture of differential-evolution moves, or independence jumps
+    proposal : {"auto", "stretch", "differential", "valley"}
+        Walker proposal (module docstring): emcee's stretch move, the
+        mixture of differential-evolution moves, or independence jumps
         along the grain-size valley mixed with them (for a free grain
         size; the walkers then start as draws from the valley mixture and
-        ``init``/``init_scale`` are not used).
+        ``init``/``init_scale`` are not used).  ``"auto"`` (default) is
+        ``"valley"`` when one grain-size parameter is free, else
+        ``"stretch"``; the result records the one used.
 
     Returns
     -------
@@ -596,6 +600,10 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
         proposal_moves(proposal)  # raises the one-line error
     logp = LogPosterior(result.likelihood, result.params, priors)
     pv = logp.pv
+    if proposal == "auto":
+        from .valley import has_size_grid
+
+        proposal = "valley" if has_size_grid(result, pv) else "stretch"
     ndim = len(pv)
     if ndim == 0:
         raise FitError("no free parameters to sample")

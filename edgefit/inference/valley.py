@@ -57,7 +57,7 @@ from scipy.special import gammaln
 
 from ..errors import ArgumentError, FitError
 
-__all__ = ["ValleyMixture", "valley_points", "valley_mixture", "VALLEY_SLICES", "VALLEY_FRACTIONS", "VALLEY_DOF",
+__all__ = ["ValleyMixture", "has_size_grid", "valley_points", "valley_mixture", "VALLEY_SLICES", "VALLEY_FRACTIONS", "VALLEY_DOF",
            "VALLEY_DEFENSIVE", "VALLEY_SCALE", "VALLEY_SAMPLE_SHARE",
            "VALLEY_SAMPLE_POINTS"]
 
@@ -236,6 +236,12 @@ def _grid_axes(result, pv, n_slices, n_fractions):
         axes.append((frac, pv.free.index(frac), 0.5 * (edges[1:] + edges[:-1]),
                      float(edges[1] - edges[0]), False))
     return axes
+
+
+def has_size_grid(result, pv):
+    """Whether the fit has the one free grain-size parameter (with
+    positive bounds) that the valley grid is laid along."""
+    return bool(_grid_axes(result, pv, VALLEY_SLICES, 0))
 
 
 def valley_points(result, pv, evaluator, n_slices=VALLEY_SLICES,
