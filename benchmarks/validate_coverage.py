@@ -29,7 +29,8 @@ fraction 0.6-0.95, upper grain size 0.1/0.25/0.5/1 um, 150-600 counts per
 (multi-start) fit; the gas and dust columns are profiled in the gas/dust
 parametrisation, the total column and the dust fraction (depletion) in
 the total/fraction one; with --mcmc, posterior intervals of the four come
-from an MCMC run too.  Coverage at 68.27 % and 95 % is printed per upper
+from an MCMC run too (valley proposal, 32 walkers x 2000 steps; the table
+adds a row for the chains that passed the R-hat and ESS checks).  Coverage at 68.27 % and 95 % is printed per upper
 size and overall with the 99 % binomial band.  The run uses a process
 pool (--workers, default 2), is seeded (--seed) and resumable: each
 finished sightline is one line of --out (JSON lines); a rerun skips the

@@ -27,6 +27,7 @@ import numpy as np
 from scipy import stats as sps
 
 from ..stats import ONE_SIGMA
+from .mcmc import ESS_MIN, RHAT_MAX
 
 __all__ = ["draw_tasks", "run_one", "coverage_table", "QUANTITIES", "LEVELS",
            "AMAX_VALUES"]
@@ -180,12 +181,15 @@ def coverage_table(records, methods=("profile", "mcmc")):
             key = "hits" if method == "profile" else "mcmc_hits"
             if not any(key in r for r in recs):
                 continue
+            rows = groups
+            if method == "mcmc":
+                rows = groups + [("converged", [r for r in recs if _converged(r)])]
             lines.append(f"{el} {EDGE_SHELL.get(el, '')} edge, {method} intervals "
                          f"({len(recs)} sightlines)")
             hdr = f"  {'group':<12}{'n':>5}" + "".join(
                 f"{q[:5] + ' ' + str(round(100 * lev)):>11}" for q in QUANTITIES for lev in LEVELS)
             lines.append(hdr)
-            for label, grp in groups:
+            for label, grp in rows:
                 grp = [r for r in grp if key in r]
                 if not grp:
                     continue
@@ -204,8 +208,18 @@ def coverage_table(records, methods=("profile", "mcmc")):
                 verdicts.append(f"{q[1]}: {'ok' if ok else 'FAIL'}")
             lines.append(f"  99 % binomial band for 68.27 % with n={n}: "
                          f"[{100 * lo68:.1f}, {100 * hi68:.1f}] %; " + ", ".join(verdicts))
+            if method == "mcmc":
+                n_ok = len([r for r in recs if key in r and _converged(r)])
+                lines.append(f"  chains with split-R-hat <= {RHAT_MAX} and bulk ESS >= "
+                             f"{ESS_MIN} ('converged' row): {n_ok} of {n}")
             lines.append("")
     return "\n".join(lines)
+
+
+def _converged(record):
+    """Whether a record's chain passed the R-hat and ESS checks."""
+    rhat, ess = record.get("mcmc_rhat_max"), record.get("mcmc_ess_min")
+    return rhat is not None and ess is not None and rhat <= RHAT_MAX and ess >= ESS_MIN
 
 
 def check_targets(records, method="profile"):
