@@ -313,14 +313,14 @@ class SamplerCoordinates:
     """Map between the fit's free-parameter vector theta and the sampler's
     vector y: y = ln(theta) for the indices ``log_idx`` (grain sizes) and
     ``scale_idx`` (positive scales: their prior stays flat in theta, see
-    :class:`SampledPosterior`); for a column pair (i_gas, i_dust),
+    :class:`SampledPosterior`), together ``ln_idx``; for a column pair (i_gas, i_dust),
     y[i_gas] = total and y[i_dust] = dust fraction."""
 
     def __init__(self, free, log_idx=(), pair=None, scale_idx=()):
         self.free = list(free)
         self.log_idx = np.asarray(list(log_idx), dtype=int)
         self.scale_idx = np.asarray(list(scale_idx), dtype=int)
-        self._ln_idx = np.concatenate([self.log_idx, self.scale_idx]).astype(int)
+        self.ln_idx = np.concatenate([self.log_idx, self.scale_idx]).astype(int)
         self.pair = pair
 
     @classmethod
@@ -355,7 +355,7 @@ class SamplerCoordinates:
         return cls(pv.free, log_idx, pair, scale_idx)
 
     def labels(self):
-        out = [f"ln({self.free[i]})" for i in self._ln_idx]
+        out = [f"ln({self.free[i]})" for i in self.ln_idx]
         if self.pair is not None:
             g, d = (self.free[i] for i in self.pair)
             out.append(f"total = {g} + {d}")
@@ -364,9 +364,9 @@ class SamplerCoordinates:
 
     def to_y(self, theta):
         y = np.array(theta, dtype=float, copy=True)
-        if self._ln_idx.size:
+        if self.ln_idx.size:
             with np.errstate(divide="ignore", invalid="ignore"):
-                y[..., self._ln_idx] = np.log(y[..., self._ln_idx])
+                y[..., self.ln_idx] = np.log(y[..., self.ln_idx])
         if self.pair is not None:
             ig, idd = self.pair
             g, d = y[..., ig].copy(), y[..., idd].copy()
@@ -378,9 +378,9 @@ class SamplerCoordinates:
 
     def to_theta(self, y):
         th = np.array(y, dtype=float, copy=True)
-        if self._ln_idx.size:
+        if self.ln_idx.size:
             with np.errstate(over="ignore"):
-                th[..., self._ln_idx] = np.exp(th[..., self._ln_idx])
+                th[..., self.ln_idx] = np.exp(th[..., self.ln_idx])
         if self.pair is not None:
             ig, idd = self.pair
             tot, f = th[..., ig].copy(), th[..., idd].copy()
@@ -396,7 +396,7 @@ class SamplerCoordinates:
     def log_jacobian(self, y):
         """ln |d theta / d y| (densities flat in theta times this are the
         densities in y)."""
-        lj = float(np.sum(y[self._ln_idx])) if self._ln_idx.size else 0.0
+        lj = float(np.sum(y[self.ln_idx])) if self.ln_idx.size else 0.0
         if self.pair is not None:
             tot = y[self.pair[0]]
             lj += math.log(tot) if tot > 0 else -math.inf
@@ -406,7 +406,7 @@ class SamplerCoordinates:
         """d y / d theta at ``theta`` (matrix)."""
         n = len(theta)
         jac = np.eye(n)
-        for i in self._ln_idx:
+        for i in self.ln_idx:
             jac[i, i] = 1.0 / theta[i] if theta[i] > 0 else 0.0
         if self.pair is not None:
             ig, idd = self.pair

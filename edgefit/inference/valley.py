@@ -57,9 +57,9 @@ from scipy.special import gammaln
 
 from ..errors import ArgumentError, FitError
 
-__all__ = ["ValleyMixture", "has_size_grid", "valley_points", "valley_mixture", "VALLEY_SLICES", "VALLEY_FRACTIONS", "VALLEY_DOF",
-           "VALLEY_DEFENSIVE", "VALLEY_SCALE", "VALLEY_SAMPLE_SHARE",
-           "VALLEY_SAMPLE_POINTS"]
+__all__ = ["ValleyMixture", "has_size_grid", "valley_points", "valley_mixture",
+           "VALLEY_SLICES", "VALLEY_FRACTIONS", "VALLEY_DOF", "VALLEY_DEFENSIVE",
+           "VALLEY_SCALE", "VALLEY_SAMPLE_SHARE", "VALLEY_SAMPLE_POINTS"]
 
 #: Number of grain-size cells laid across the size parameter's bounds.
 VALLEY_SLICES = 8
@@ -160,8 +160,7 @@ class ValleyMixture:
         s = np.sqrt(random.chisquare(self.dof, size=n) / self.dof)
         return self.means[k] + np.einsum("nij,nj->ni", self.chol[k], z) / s[:, None]
 
-    def with_samples(self, samples, share=VALLEY_SAMPLE_SHARE, max_points=VALLEY_SAMPLE_POINTS,
-                     random=None):
+    def with_samples(self, samples, share=VALLEY_SAMPLE_SHARE, max_points=VALLEY_SAMPLE_POINTS):
         """This mixture blended with a kernel density of ``samples`` (rows
         in the same coordinates): one Student-t kernel per sample point
         (at most ``max_points``, evenly thinned), all with the samples'
@@ -212,8 +211,8 @@ class ValleyMixture:
 
 def _grid_axes(result, pv, n_slices, n_fractions):
     """The fixed axes of the valley grid: a list of (name, index in the
-    free vector, cell centres, cell width in the sampler coordinate,
-    logarithmic?) for the one free grain-size parameter (log-spaced
+    free vector, cell centres, cell width in the sampler coordinate) for
+    the one free grain-size parameter (log-spaced
     across its bounds) and, in the total/fraction form, the dust fraction
     (evenly across [0, 1])."""
     from .fit import size_parameter_names
@@ -229,12 +228,12 @@ def _grid_axes(result, pv, n_slices, n_fractions):
         if lo > 0 and np.isfinite(hi) and hi > lo:
             edges = np.linspace(math.log(lo), math.log(hi), n_slices + 1)
             axes.append((sizes[0], i, np.exp(0.5 * (edges[1:] + edges[:-1])),
-                         float(edges[1] - edges[0]), True))
+                         float(edges[1] - edges[0])))
     frac = getattr(model, "fraction_param", None)
     if axes and frac and frac in pv.free and n_fractions > 0:
         edges = np.linspace(0.0, 1.0, n_fractions + 1)
         axes.append((frac, pv.free.index(frac), 0.5 * (edges[1:] + edges[:-1]),
-                     float(edges[1] - edges[0]), False))
+                     float(edges[1] - edges[0])))
     return axes
 
 
@@ -303,7 +302,7 @@ def _y_widths(pv, coords, y):
     1 for the dust fraction, hi - lo for a bounded linear coordinate, and
     100 times the value's size where a bound is infinite."""
     w = np.empty(len(y))
-    logs = set(coords.log_idx.tolist()) | set(coords.scale_idx.tolist())
+    logs = set(coords.ln_idx.tolist())
     pair = coords.pair or ()
     for j in range(len(y)):
         lo, hi = float(pv.lower[j]), float(pv.upper[j])
@@ -442,7 +441,7 @@ def _y_box(pv, coords):
     column pair: total >= 0 and fraction in [0, 1])."""
     lower = np.array(pv.lower, dtype=float)
     upper = np.array(pv.upper, dtype=float)
-    for j in list(coords.log_idx) + list(coords.scale_idx):
+    for j in coords.ln_idx:
         lower[j] = math.log(lower[j]) if lower[j] > 0 else -np.inf
         upper[j] = math.log(upper[j]) if upper[j] > 0 else -np.inf
     if coords.pair is not None:
