@@ -3,7 +3,9 @@ the file, and ``edgefit inspect`` turns it into one stderr line and a
 non-zero exit status (never a traceback).
 
 The broken files are made here with plain astropy.io.fits (or by cutting
-bytes), following the OGIP/92-007 and CAL/GEN/92-002 layouts.
+bytes), following the OGIP/92-007 and CAL/GEN/92-002 layouts (the OGIP
+memos of Arnaud, George & Tennant 1992 and George et al. 1992, from
+memory).  No physics or statistics value is checked here.
 """
 from __future__ import annotations
 

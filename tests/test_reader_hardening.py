@@ -4,10 +4,12 @@ rows, BACKSCAL/AREASCAL <= 0, a spectrum found only by HDUCLAS1, and
 energy columns in an unknown unit.
 
 Every file here is written with plain astropy.io.fits following the
-layouts of OGIP/92-007 (spectra) and CAL/GEN/92-002 (responses), not with
-edgefit's writers, so the readers are checked against the standard's
+layouts of OGIP/92-007 (spectra; Arnaud, George & Tennant 1992, from
+memory) and CAL/GEN/92-002 (responses; George et al. 1992, from memory),
+not with edgefit's writers, so the readers are checked against the standard's
 layout rather than against themselves.  Each warning and error must name
-the file and the keyword at fault.
+the file and the keyword at fault.  No physics or statistics value is
+checked here.
 """
 from __future__ import annotations
 
