@@ -9,14 +9,8 @@ import os
 import time
 from pathlib import Path
 
-from edgefit.inference._edge_coverage import coverage_table, draw_tasks, run_one
-
-
-#: N_H ranges (1e22 cm^-2) of the other edges: below 1.3 keV the smooth
-#: absorption of 5e22 cm^-2 leaves no counts (transmission < 1e-3 at Fe L
-#: for N_H = 3e22), so Fe L and O K are drawn at 0.3-1 x 10^22 (the
-#: N_H = 10^22 scenario of these edges) and Mg K at 0.5-3 x 10^22.
-OTHER_NH = {"Mg": (0.5, 3.0), "Fe": (0.3, 1.0), "O": (0.3, 1.0)}
+from edgefit.inference._edge_coverage import (EDGE_NH_RANGES, coverage_table, draw_tasks,
+                                              run_one)
 
 
 def _load(path):
@@ -35,15 +29,14 @@ def run_edges(args):
     done = _load(path)
     if not args.report:
         wanted = {e.strip() for e in args.elements.split(",") if e.strip()}
-        unknown = wanted - {"Si", *OTHER_NH}
+        unknown = wanted - set(EDGE_NH_RANGES)
         if unknown:
             raise SystemExit(f"--elements: unknown edge(s) {sorted(unknown)}; "
                              "choose from Si, Mg, Fe, O")
         tasks = draw_tasks(args.n_si, "Si", args.seed, mcmc=args.mcmc) if "Si" in wanted else []
         for el in ("Mg", "Fe", "O"):
             if el in wanted:
-                tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc,
-                                    nh=OTHER_NH[el])
+                tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc)
         seen = {(r["task"]["element"], r["task"]["index"]) for r in done}
         todo = [t for t in tasks if (t["element"], t["index"]) not in seen]
         # interleave the edges so that a partial run covers all of them

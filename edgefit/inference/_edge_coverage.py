@@ -40,10 +40,24 @@ LEVELS = (ONE_SIGMA, 0.95)
 AMAX_VALUES = (0.1, 0.25, 0.5, 1.0)
 
 
-def draw_tasks(n, element, seed, *, nh=(0.5, 5.0), depletion=(0.6, 0.95),
+#: Hydrogen columns (1e22 cm^-2) drawn at each edge.  Si K: the range of
+#: the issue that asked for this harness.  Below 1.3 keV the smooth
+#: absorption of 5e22 cm^-2 leaves no counts (transmission < 1e-3 at Fe L
+#: for N_H = 3e22; the continuum normalisation needed to give the asked
+#: counts then runs to 1e11-1e19, beyond the fit's bound of 1e10, and the
+#: truth would lie outside the parameter space), so Fe L and O K are drawn
+#: at 0.3-1 x 10^22 (the N_H = 10^22 scenario these edges were first tried
+#: at) and Mg K at 0.5-3 x 10^22.
+EDGE_NH_RANGES = {"Si": (0.5, 5.0), "Mg": (0.5, 3.0), "Fe": (0.3, 1.0), "O": (0.3, 1.0)}
+
+
+def draw_tasks(n, element, seed, *, nh=None, depletion=(0.6, 0.95),
                amax=AMAX_VALUES, counts=(150.0, 600.0), arms=(1, 2), mcmc=False,
                start=0, channel_angstrom=0.0025, total_fraction=True):
-    """``n`` seeded task dicts for :func:`run_one` (index ``start`` ...)."""
+    """``n`` seeded task dicts for :func:`run_one` (index ``start`` ...);
+    ``nh`` defaults to the element's :data:`EDGE_NH_RANGES`."""
+    if nh is None:
+        nh = EDGE_NH_RANGES[element]
     ss = np.random.SeedSequence([int(seed), sum(map(ord, element))])
     rng = np.random.default_rng(ss)
     tasks = []

@@ -190,11 +190,27 @@ def simulate_edge_sightline(model, element, values, rng, *, counts_per_channel=3
             mu = resp.fold(flux)
             scale = counts_per_channel / float(np.median(mu))
             values["pl_norm"] = values.get("pl_norm", 1.0) * scale
+            _check_inside_bounds(model, values, element)
         flux = model.evaluate(resp.grid, values)
         spec = simulate_spectrum(flux, resp, 1.0, rng,
                                  meta={"object": f"SIM-{element}-EDGE (simulated)"})
         out.append(Dataset(spec, ranges=(lo, hi), label=f"arm {k + 1}"))
     return out, values
+
+
+def _check_inside_bounds(model, values, element):
+    """A simulated truth outside the fit's bounds cannot be covered by any
+    interval: refuse it (it once passed unnoticed, with the continuum
+    normalisation of heavily absorbed O K sightlines at 1e19)."""
+    from ..errors import ArgumentError
+
+    params = model.make_params()
+    for name, v in values.items():
+        if name in params and not (params[name].min <= v <= params[name].max):
+            raise ArgumentError(
+                f"simulated {element} sightline: the true {name} = {v:.4g} lies outside the "
+                f"fit's bounds [{params[name].min:.4g}, {params[name].max:.4g}]; draw a "
+                "smaller hydrogen column or fewer counts")
 
 
 # ---------------------------------------------------------------------------

@@ -135,6 +135,9 @@ class FitResult:
         self.minima: list = []
         self.multimodal_delta: float | None = None
         self.n_starts = 1
+        #: the global fit's coarse profile over the grain sizes: one dict
+        #: per point (sizes, ``statistic``, ``label``)
+        self.size_scan: list = []
         #: profile curves by parameter name (:class:`~.intervals.ProfileCurve`)
         self.profiles: dict = {}
 
