@@ -12,8 +12,16 @@ steadier than the wall clock on a shared machine; --wall for the wall
 clock) and their ratios to the single-start fit (target: each <= 10x).
 No assertions.
 
+With --draws N it also compares, on the first N seeded sightlines of
+each edge of the coverage harness (``validate_coverage.py --edges``), the
+global fit (a held-size scan, then free-size fits from the scan's local
+minima) with free-size fits started from every point of the same grid
+(``starts=`` the grid, this module's method before the scan): the
+difference of their best statistics (the scan must not miss a lower
+minimum) and the wall time of each, on --workers processes.
+
 Data: invented, SIMULATED values (no real source).  Run:
-    python benchmarks/bench_global_fit.py [--repeat 1]
+    python benchmarks/bench_global_fit.py [--repeat 1] [--draws 15 --workers 2]
 """
 from __future__ import annotations
 
@@ -39,10 +47,72 @@ def _params(model, datasets):
     return params
 
 
+def _compare_one(task):
+    """Best statistic and wall time of the scan and of the grid of free
+    starts on one coverage sightline."""
+    import numpy as np
+
+    from edgefit.inference._edge_coverage import _model
+    from edgefit.inference._testing import edge_sightline_truth, simulate_edge_sightline
+    from edgefit.inference.fit import size_parameter_names, size_start_values
+
+    el = task["element"]
+    model = _model(el)
+    truth, total = edge_sightline_truth(model, el, task["nh"], task["depletion"], task["amax"])
+    datasets, truth = simulate_edge_sightline(
+        model, el, truth, np.random.default_rng(task["seed"]),
+        counts_per_channel=task["counts"], arms=task["arms"])
+    dust_col = [n for n in truth if n.startswith("dust_") and n != "dust_amax"][0]
+    params = model.make_params()
+    srng = np.random.default_rng(task["seed"] + 1)  # the harness's start
+    start = {"ism_nh": task["nh"] * float(srng.uniform(0.7, 1.4)), "gas_col": 0.3 * total,
+             dust_col: 0.5 * total, "dust_amax": 0.3, "pl_index": 2.0,
+             "pl_norm": float(srng.uniform(0.7, 1.4)) * truth["pl_norm"]}
+    for n, v in start.items():
+        params[n].set(value=v)
+    grid = size_start_values(params, size_parameter_names(model, params))
+    out = {"element": el}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for label, starts in (("scan", "auto"), ("grid", grid), ("single", "single")):
+            t0 = time.perf_counter()
+            r = fit_sightline(model, datasets, params=params, goodness=False, warn=False,
+                              starts=starts)
+            out[label] = (r.statistic, time.perf_counter() - t0, len(r.minima))
+    return out
+
+
+def compare_on_draws(n, workers, seed=2026):
+    import multiprocessing
+    import statistics
+
+    from edgefit.inference._edge_coverage import EDGE_NH_RANGES, draw_tasks
+
+    tasks = [t for el in EDGE_NH_RANGES for t in draw_tasks(n, el, seed)]
+    with multiprocessing.get_context("fork").Pool(workers) as pool:
+        recs = pool.map(_compare_one, tasks)
+    print(f"\nscan against free starts at every grid point, first {n} coverage draws "
+          f"(seed {seed}) per edge, {workers} workers:")
+    print("edge  n   max dC(scan-grid)  min dC   median wall s: scan / grid / single   "
+          "median scan/grid   mean minima scan / grid")
+    for el in EDGE_NH_RANGES:
+        r = [x for x in recs if x["element"] == el]
+        d = [x["scan"][0] - x["grid"][0] for x in r]
+        med = [statistics.median(x[k][1] for x in r) for k in ("scan", "grid", "single")]
+        ratio = statistics.median(x["scan"][1] / x["grid"][1] for x in r)
+        mins = [statistics.mean(x[k][2] for x in r) for k in ("scan", "grid")]
+        print(f"{el:<4} {len(r):>3}   {max(d):>+12.4f}   {min(d):>+9.4f}   "
+              f"{med[0]:.2f} / {med[1]:.2f} / {med[2]:.2f}{'':>20}{ratio:.2f}{'':>12}"
+              f"{mins[0]:.2f} / {mins[1]:.2f}")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--repeat", type=int, default=1)
     ap.add_argument("--wall", action="store_true", help="wall clock instead of CPU time")
+    ap.add_argument("--draws", type=int, default=0,
+                    help="also compare scan and grid starts on this many coverage draws per edge")
+    ap.add_argument("--workers", type=int, default=2)
     args = ap.parse_args(argv)
     clock = time.perf_counter if args.wall else time.thread_time
     model = build_model()
@@ -81,6 +151,8 @@ def main(argv=None):
     for n in ("gas_si_col", "dust_col"):
         iv = best.intervals[n][0.6827]
         print(f"   {n:<11} 68 % [{iv.lower}, {iv.upper}]  (simulated truth {TRUTH[n]})")
+    if args.draws:
+        compare_on_draws(args.draws, args.workers)
 
 
 if __name__ == "__main__":

@@ -20,7 +20,8 @@ from scipy import stats as sps
 
 from edgefit.errors import EdgefitWarning, ModeMixingWarning
 from edgefit.inference import fit_sightline, profile_intervals
-from edgefit.inference.fit import minimise, reparametrise
+from edgefit.inference.fit import (N_SIZE_STARTS, ScanPoint, minimise, reparametrise,
+                                  scan_minima)
 from edgefit.inference.mcmc import chain_diagnostics
 from edgefit.inference._testing import (edge_sightline_model, edge_sightline_truth,
                                         simulate_edge_sightline)
@@ -74,13 +75,42 @@ def test_global_fit_finds_small_grain_minimum_or_reports_both(small_grains, glob
     both = g.multimodal and any(m.params["dust_amax"].value > 1.0 and m.delta <= 6.63
                                 for m in g.minima)
     assert better or both
-    assert g.n_starts == 6
+    assert g.n_starts == 1 + N_SIZE_STARTS  # the user's start and the size grid
+    assert len(g.size_scan) >= 2 and all("statistic" in q for q in g.size_scan)
     # the minima are reported: statistic, Delta C from the best, sizes
     assert g.minima[0].delta == 0.0 and g.minima[0].statistic == pytest.approx(g.statistic,
                                                                                abs=1e-9)
     d = g.to_dict()
     assert len(d["minima"]) == len(g.minima) and "dust_amax" in d["minima"][0]["values"]
     assert "distinct minima" in g.summary()
+
+
+def test_scan_minima_are_the_local_minima_of_the_coarse_profile():
+    """Only points no higher than their two nearest neighbours (in
+    ln size) start a free-size fit: a pure check of the selection rule on
+    a made-up coarse profile with two dips, one at the end of the range."""
+    sizes = [0.01, 0.03, 0.1, 0.3, 1.0, 3.0]
+    stats = [9.0, 4.0, 6.0, 7.0, 5.0, 2.0]
+    pts = [ScanPoint({"a": a}, s_, params=object()) for a, s_ in zip(sizes, stats)]
+    lows = scan_minima(pts, ["a"])
+    assert [q.sizes["a"] for q in lows] == [0.03, 3.0]
+    # a point whose fit failed (no parameters) is never a start, and its
+    # neighbours are compared with each other instead
+    pts[1].params = None
+    assert [q.sizes["a"] for q in scan_minima(pts, ["a"])] == [0.1, 3.0]
+
+
+def test_simulated_truth_outside_the_fit_bounds_is_refused():
+    """A truth the fit cannot reach (here the continuum normalisation
+    beyond its upper bound) cannot be covered by any interval: the
+    simulator refuses it with a message naming the parameter."""
+    from edgefit.errors import ArgumentError
+
+    model = edge_sightline_model("O")
+    truth, _ = edge_sightline_truth(model, "O", 5.0, 0.8, 0.1)  # e^-30 at O K
+    with pytest.raises(ArgumentError, match="pl_norm"):
+        simulate_edge_sightline(model, "O", truth, np.random.default_rng(0),
+                                counts_per_channel=300, arms=1)
 
 
 def test_best_fit_does_not_depend_on_the_start(small_grains, global_fit):
