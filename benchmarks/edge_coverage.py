@@ -33,10 +33,12 @@ def run_edges(args):
         if unknown:
             raise SystemExit(f"--elements: unknown edge(s) {sorted(unknown)}; "
                              "choose from Si, Mg, Fe, O")
-        tasks = draw_tasks(args.n_si, "Si", args.seed, mcmc=args.mcmc) if "Si" in wanted else []
+        tasks = draw_tasks(args.n_si, "Si", args.seed, mcmc=args.mcmc,
+                           mcmc_steps=args.mcmc_steps) if "Si" in wanted else []
         for el in ("Mg", "Fe", "O"):
             if el in wanted:
-                tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc)
+                tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc,
+                                    mcmc_steps=args.mcmc_steps)
         seen = {(r["task"]["element"], r["task"]["index"]) for r in done}
         todo = [t for t in tasks if (t["element"], t["index"]) not in seen]
         # interleave the edges so that a partial run covers all of them

@@ -41,7 +41,7 @@ the first 50 of 100 are the 50 already run).
 
 Run:  python benchmarks/validate_coverage.py [--n 300] [--profile] [--sightline]
       python benchmarks/validate_coverage.py --edges [--n-si 200] [--n-other 50]
-             [--elements Si,Mg,Fe,O] [--mcmc] [--workers 2] [--out coverage_edges.jsonl]
+             [--elements Si,Mg,Fe,O] [--mcmc] [--mcmc-steps 2000] [--workers 2] [--out coverage_edges.jsonl]
 """
 from __future__ import annotations
 
@@ -74,6 +74,8 @@ def main(argv=None):
     ap.add_argument("--elements", default="Si,Mg,Fe,O",
                     help="edges that get new sightlines (comma-separated)")
     ap.add_argument("--mcmc", action="store_true", help="also MCMC intervals (slow)")
+    ap.add_argument("--mcmc-steps", type=int, default=2000,
+                    help="steps per walker of each chain (32 walkers; default 2000)")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--out", default="coverage_edges.jsonl")
     ap.add_argument("--report", action="store_true", help="only print the table of --out")

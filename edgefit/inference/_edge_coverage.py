@@ -36,6 +36,8 @@ __all__ = ["draw_tasks", "run_one", "coverage_table", "QUANTITIES", "LEVELS",
 QUANTITIES = ("gas", "dust", "total", "depletion")
 #: Confidence levels (the 1-sigma and the 95 % two-sided levels).
 LEVELS = (ONE_SIGMA, 0.95)
+#: Steps per walker of the coverage chains (32 walkers, valley proposal).
+MCMC_STEPS = 2000
 #: Upper grain sizes (µm) of the simulations.
 AMAX_VALUES = (0.1, 0.25, 0.5, 1.0)
 
@@ -53,6 +55,7 @@ EDGE_NH_RANGES = {"Si": (0.5, 5.0), "Mg": (0.5, 3.0), "Fe": (0.3, 1.0), "O": (0.
 
 def draw_tasks(n, element, seed, *, nh=None, depletion=(0.6, 0.95),
                amax=AMAX_VALUES, counts=(150.0, 600.0), arms=(1, 2), mcmc=False,
+               mcmc_steps=MCMC_STEPS,
                start=0, channel_angstrom=0.0025, total_fraction=True):
     """``n`` seeded task dicts for :func:`run_one` (index ``start`` ...);
     ``nh`` defaults to the element's :data:`EDGE_NH_RANGES`."""
@@ -69,6 +72,7 @@ def draw_tasks(n, element, seed, *, nh=None, depletion=(0.6, 0.95),
                       "amax": float(rng.choice(amax)),
                       "counts": float(rng.uniform(*counts)),
                       "arms": int(rng.choice(arms)), "mcmc": bool(mcmc),
+                      "mcmc_steps": int(mcmc_steps),
                       "channel_angstrom": float(channel_angstrom),
                       "total_fraction": bool(total_fraction)})
     return tasks
@@ -139,12 +143,13 @@ def run_one(task):
     out["flags"] = list(res.flags)
     out["n_minima"] = len(res.minima)
     if task.get("mcmc"):
-        out.update(_mcmc_hits(tf, true_q, tname, fname))
+        out.update(_mcmc_hits(tf, true_q, tname, fname,
+                              nsteps=int(task.get("mcmc_steps", MCMC_STEPS))))
     out["seconds"] = time.perf_counter() - t0
     return out
 
 
-def _mcmc_hits(tf, true_q, tname, fname, nsteps=2000, nwalkers=32):
+def _mcmc_hits(tf, true_q, tname, fname, nsteps=MCMC_STEPS, nwalkers=32):
     from ..errors import EdgefitWarning
     from .mcmc import run_mcmc
 
