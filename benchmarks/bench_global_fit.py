@@ -50,26 +50,11 @@ def _params(model, datasets):
 def _compare_one(task):
     """Best statistic and wall time of the scan and of the grid of free
     starts on one coverage sightline."""
-    import numpy as np
-
-    from edgefit.inference._edge_coverage import _model
-    from edgefit.inference._testing import edge_sightline_truth, simulate_edge_sightline
+    from edgefit.inference._edge_coverage import prepare_sightline
     from edgefit.inference.fit import size_parameter_names, size_start_values
 
     el = task["element"]
-    model = _model(el)
-    truth, total = edge_sightline_truth(model, el, task["nh"], task["depletion"], task["amax"])
-    datasets, truth = simulate_edge_sightline(
-        model, el, truth, np.random.default_rng(task["seed"]),
-        counts_per_channel=task["counts"], arms=task["arms"])
-    dust_col = [n for n in truth if n.startswith("dust_") and n != "dust_amax"][0]
-    params = model.make_params()
-    srng = np.random.default_rng(task["seed"] + 1)  # the harness's start
-    start = {"ism_nh": task["nh"] * float(srng.uniform(0.7, 1.4)), "gas_col": 0.3 * total,
-             dust_col: 0.5 * total, "dust_amax": 0.3, "pl_index": 2.0,
-             "pl_norm": float(srng.uniform(0.7, 1.4)) * truth["pl_norm"]}
-    for n, v in start.items():
-        params[n].set(value=v)
+    model, datasets, _, params, _ = prepare_sightline(task)
     grid = size_start_values(params, size_parameter_names(model, params))
     out = {"element": el}
     with warnings.catch_warnings():

@@ -89,15 +89,12 @@ def _model(element):
     return _MODELS[element]
 
 
-def run_one(task):
-    """Simulate, fit and bound one sightline; returns a JSON-ready dict
-    with the truth, the intervals and the hits."""
-    from ..errors import EdgefitWarning
+def prepare_sightline(task):
+    """The simulated data and the user's start of one task: returns
+    (model, datasets, true quantities {gas, dust, total, depletion},
+    starting Parameters, name of the dust column)."""
     from ._testing import edge_sightline_truth, simulate_edge_sightline
-    from .fit import fit_sightline, reparametrise
-    from .intervals import profile_intervals
 
-    t0 = time.perf_counter()
     el = task["element"]
     model = _model(el)
     truth, total = edge_sightline_truth(model, el, task["nh"], task["depletion"], task["amax"])
@@ -118,6 +115,18 @@ def run_one(task):
              "pl_norm": float(srng.uniform(0.7, 1.4)) * truth["pl_norm"]}
     for n, v in start.items():
         params[n].set(value=v)
+    return model, datasets, true_q, params, dust_col
+
+
+def run_one(task):
+    """Simulate, fit and bound one sightline; returns a JSON-ready dict
+    with the truth, the intervals and the hits."""
+    from ..errors import EdgefitWarning
+    from .fit import fit_sightline, reparametrise
+    from .intervals import profile_intervals
+
+    t0 = time.perf_counter()
+    model, datasets, true_q, params, dust_col = prepare_sightline(task)
     out = {"task": task, "truth": true_q, "intervals": {}, "hits": {}}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", EdgefitWarning)

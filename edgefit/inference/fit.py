@@ -636,7 +636,7 @@ def fit_sightline(model: ModelNode, datasets: Sequence[Dataset], *, statistic: s
     if isinstance(starts, str):
         if starts not in ("auto", "single"):
             raise ModelError(f"starts must be 'auto', 'single' or a list of dicts, got {starts!r}")
-        extra = []
+        extra: list[dict] = []
         grid = (size_start_values(params, size_names, n_size_starts)
                 if starts == "auto" else [])
     else:
