@@ -32,11 +32,11 @@ def run_edges(args):
         unknown = wanted - set(EDGE_NH_RANGES)
         if unknown:
             raise SystemExit(f"--elements: unknown edge(s) {sorted(unknown)}; "
-                             "choose from Si, Mg, Fe, O")
+                             f"choose from {', '.join(EDGE_NH_RANGES)}")
         tasks = draw_tasks(args.n_si, "Si", args.seed, mcmc=args.mcmc,
                            mcmc_steps=args.mcmc_steps) if "Si" in wanted else []
-        for el in ("Mg", "Fe", "O"):
-            if el in wanted:
+        for el in EDGE_NH_RANGES:
+            if el != "Si" and el in wanted:
                 tasks += draw_tasks(args.n_other, el, args.seed, mcmc=args.mcmc,
                                     mcmc_steps=args.mcmc_steps)
         seen = {(r["task"]["element"], r["task"]["index"]) for r in done}

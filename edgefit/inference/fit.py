@@ -260,15 +260,24 @@ class ScanPoint:
         return np.log([max(float(self.sizes[n]), 1e-300) for n in names])
 
 
+def _moved(params, values):
+    """A copy of ``params`` with ``values`` (name -> value) set, each
+    clipped to its parameter's bounds."""
+    q = params.copy()
+    for n, v in values.items():
+        q[n].set(value=min(max(float(v), q[n].min), q[n].max))
+    return q
+
+
 def _held_size_fit(likelihood, start, sizes):
     """Minimise with the size parameters held at ``sizes`` (a dict), from
     ``start``; returns (Parameters with the sizes free again, statistic).
     The statistic is ``inf`` where the model is not finite."""
     from scipy.optimize import least_squares
 
-    p = start.copy()
-    for n, v in sizes.items():
-        p[n].set(value=min(max(float(v), p[n].min), p[n].max), vary=False)
+    p = _moved(start, sizes)
+    for n in sizes:
+        p[n].set(vary=False)
     ev = likelihood.compile(p)
     if ev.free:
         theta = np.clip(ev.vector(p), ev.lower, ev.upper)
@@ -308,12 +317,6 @@ def size_scan(likelihood, start, size_names, grid, start_statistic=None, raw=Non
     def dist(a, b):
         return float(np.abs(a.log_sizes(size_names) - b.log_sizes(size_names)).sum())
 
-    def moved(p, sizes):
-        q = p.copy()
-        for n, v in sizes.items():
-            q[n].set(value=min(max(float(v), q[n].min), q[n].max))
-        return q
-
     points = []
     if start_statistic is not None and math.isfinite(start_statistic):
         points.append(ScanPoint(sizes_of(start), float(start_statistic), start, "user"))
@@ -328,9 +331,9 @@ def size_scan(likelihood, start, size_names, grid, start_statistic=None, raw=Non
     for _, pt in sorted(todo, key=lambda t: t[0]):
         done = [q for q in points if q.params is not None] or [origin]
         near = min(done, key=lambda q: dist(q, pt))
-        seeds = [moved(near.params, pt.sizes)]
+        seeds = [_moved(near.params, pt.sizes)]
         if raw is not None:
-            seeds.append(moved(raw, pt.sizes))
+            seeds.append(_moved(raw, pt.sizes))
         first = min(seeds, key=lambda q: _seed_statistic(likelihood, q))
         try:
             pt.params, pt.statistic = _held_size_fit(likelihood, first, pt.sizes)
@@ -687,13 +690,11 @@ def fit_sightline(model: ModelNode, datasets: Sequence[Dataset], *, statistic: s
             label = ", ".join(f"{n}={v:.4g}" for n, v in q.sizes.items())
             ends.append((s_, end, label))
     for k, values in enumerate(extra):
-        p = params.copy()
-        for n, v in values.items():
-            if n not in p:
-                raise ModelError(f"start {k + 1} names an unknown parameter {n!r}")
-            p[n].set(value=min(max(float(v), p[n].min), p[n].max))
+        unknown = [n for n in values if n not in params]
+        if unknown:
+            raise ModelError(f"start {k + 1} names an unknown parameter {unknown[0]!r}")
         try:
-            end, s_ = free_size_fit(p)
+            end, s_ = free_size_fit(_moved(params, values))
         except FitError:
             continue
         label = ", ".join(f"{n}={v:.4g}" for n, v in values.items())
