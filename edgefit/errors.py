@@ -184,6 +184,12 @@ class ModeMixingWarning(ShortChainWarning):
     so the relative weight of the modes is not sampled."""
 
 
+class PriorDominatedWarning(EdgefitWarning):
+    """An MCMC posterior is close to its prior in a coordinate the data
+    were meant to measure (the dust fraction, say): its credible interval
+    describes the prior more than the data."""
+
+
 class PhysicsWarning(EdgefitWarning):
     """A physically suspect input (e.g. a grain size outside the tables)."""
 

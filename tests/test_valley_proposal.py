@@ -18,6 +18,11 @@ References:
   errors (binomial, with the run's own effective sample size); the same
   move with its Hastings factor dropped misses by far more (checked in
   the test, so the check can fail).
+- Posterior contraction 1 - var_post / var_prior (Schad, Betancourt &
+  Vasishth 2021, Psychological Methods 26, 103): uniform samples over the
+  prior's interval give 0, a normal of width sigma gives 1 - 12 sigma^2 /
+  width^2 (variance of a uniform, (b - a)^2 / 12), within 4 standard
+  errors of a sample variance.
 - A simulated Si K sightline with the upper grain size free: the chain
   converges by arviz's split-R-hat and bulk ESS (Vehtari et al. 2021)
   and crosses between the fit's minima, and the simulation's true total
@@ -32,7 +37,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from edgefit.errors import EdgefitWarning
+from edgefit.errors import EdgefitWarning, PriorDominatedWarning
+from edgefit.inference.mcmc import posterior_contraction
 from edgefit.inference.valley import ValleyMixture
 
 MEANS = np.array([[0.0, 1.0, -2.0], [3.0, -1.0, 0.5]])
@@ -150,12 +156,35 @@ def test_valley_chain_mixes_on_a_size_free_sightline():
         res = fit_sightline(model, ds, params=params, goodness=False, warn=False)
         tf = reparametrise(res, "total_fraction", gas="gas", dust="dust")
         # the default proposal ("auto") picks the valley proposal here
-        mc = run_mcmc(tf, nwalkers=32, nsteps=1500, seed=1, store=False)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", PriorDominatedWarning)
+            mc = run_mcmc(tf, nwalkers=32, nsteps=1500, seed=1, store=False)
     assert mc.proposal == "valley" and "ln(pl_norm)" in mc.coordinates
     assert np.nanmax(mc.rhat) <= RHAT_MAX and np.nanmin(mc.ess) >= ESS_MIN, \
         (mc.rhat, mc.ess)
     if mc.mode_visits is not None and len(mc.mode_visits) > 1:
         assert mc.mode_crossings > 0
+    # the dust fraction's contraction: its flat prior on [0, 1] has variance 1/12
+    frac = tf.model.fraction_param
+    f = mc.flat_samples([frac])[:, 0]
+    assert mc.contraction[frac] == pytest.approx(1 - 12 * np.var(f), abs=1e-12)
+    warned = any(issubclass(w.category, PriorDominatedWarning) for w in caught)
+    assert warned == (mc.contraction[frac] < 0.5) == (frac in mc.prior_dominated)
     x = mc.flat_samples([tf.model.total_param])[:, 0]
     lo, hi = np.quantile(x, [0.025, 0.975])
     assert lo <= total <= hi, (lo, total, hi)
+
+
+def test_posterior_contraction_of_uniform_and_normal_samples():
+    rng = np.random.default_rng(7)
+    n = 200_000
+    lower, upper = np.array([0.0, -2.0, 0.0]), np.array([1.0, 3.0, np.inf])
+    flat = rng.uniform(lower[:2], upper[:2], size=(n, 2))
+    narrow = rng.normal(0.5, 0.1, size=(n, 1))
+    c = posterior_contraction(np.hstack([flat, narrow]), lower, upper)
+    # var(sample) has relative standard error sqrt((2 + excess kurtosis) / n);
+    # a uniform's excess kurtosis is -6/5
+    assert np.all(np.abs(c[:2]) < 4 * np.sqrt(0.8 / n)), c
+    assert np.isnan(c[2])
+    c2 = posterior_contraction(narrow, [0.0], [1.0])
+    assert c2[0] == pytest.approx(1 - 12 * 0.01, abs=4 * 12 * 0.01 * np.sqrt(2 / n))

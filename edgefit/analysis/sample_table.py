@@ -11,7 +11,10 @@ the README (section "The sample table") and summarised here:
 * ``statistic`` (C or chi-square at the best fit), ``dof``, ``n_bins``,
   ``gof_p`` (goodness-of-fit p-value of the statistic), ``ppc_p``
   (posterior predictive p-value; NaN when not run), ``converged`` and
-  ``flags`` (comma-separated convergence flags);
+  ``flags`` (comma-separated convergence flags), ``prior_dominated``
+  (comma-separated MCMC sampler coordinates whose posterior kept more than
+  half its flat prior's variance, e.g. ``dust fraction``: the data did not
+  constrain them; empty without MCMC);
 * the hydrogen columns of the manifest (``nh_hi``, ``nh_hi_err``,
   ``nh_hi_upper``, the same for ``n_h2`` and ``nh_total``, in cm^-2) and
   ``nh_hi_2h2`` = N(HI) + 2 N(H2) with ``nh_hi_2h2_err`` (the two tracer
@@ -213,7 +216,10 @@ def sightline_row(result, name, warnings_seen=()):
             "reason": "; ".join(reasons), "statistic": _f(result.statistic),
             "dof": int(result.dof), "n_bins": int(result.n_bins), "gof_p": _f(gof_p),
             "ppc_p": _f((result.ppc or {}).get("p_value")), "converged": bool(result.converged),
-            "flags": ",".join(result.flags), "quantities": quantities}
+            "flags": ",".join(result.flags),
+            "prior_dominated": (",".join(result.mcmc.prior_dominated)
+                                if result.mcmc is not None else ""),
+            "quantities": quantities}
 
 
 def failed_row(name, reason):
@@ -221,7 +227,7 @@ def failed_row(name, reason):
     reason = (str(reason).strip().splitlines() or ["unknown error"])[0]
     return {"name": name, "status": "failed", "reason": reason, "statistic": None,
             "dof": None, "n_bins": None, "gof_p": None, "ppc_p": None, "converged": False,
-            "flags": "", "quantities": []}
+            "flags": "", "prior_dominated": "", "quantities": []}
 
 
 def _nan(x):
@@ -278,6 +284,7 @@ def sample_table(records: Sequence[dict], hydrogen: dict | None = None,
     t["ppc_p"] = [_nan(r["ppc_p"]) for r in records]
     t["converged"] = np.array([bool(r["converged"]) for r in records], dtype=bool)
     t["flags"] = Column([r["flags"] for r in records], dtype=str)
+    t["prior_dominated"] = Column([r.get("prior_dominated", "") for r in records], dtype=str)
     hcols = [_hydrogen_columns(hydrogen.get(r["name"], {})) for r in records]
     for k in (hcols[0] if hcols else _hydrogen_columns({})):
         vals = [h[k] for h in hcols]

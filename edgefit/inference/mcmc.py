@@ -70,6 +70,18 @@ Every post-burn-in sample is assigned to the nearest known minimum in the
 log sizes; when no walker ever moves from one minimum's region to
 another's, a :class:`~edgefit.errors.ModeMixingWarning` says the chain
 has not crossed between the known modes (``McmcResult.unmixed_modes``).
+
+Prior or data?
+--------------
+For every sampler coordinate whose prior is flat in that coordinate and
+bounded, the posterior contraction 1 - var(posterior) / var(prior), with
+the flat prior's variance (upper - lower)^2 / 12, is kept in
+``McmcResult.contraction`` (:func:`posterior_contraction`; Schad,
+Betancourt & Vasishth 2021, Psychological Methods 26, 103).  Those below
+:data:`PRIOR_CONTRACTION_MIN` are ``McmcResult.prior_dominated``; when
+the dust fraction is one of them a
+:class:`~edgefit.errors.PriorDominatedWarning` says that the data do not
+separate gas from dust and the credible intervals restate the prior.
 """
 from __future__ import annotations
 
@@ -79,7 +91,8 @@ from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
-from ..errors import ArgumentError, FitError, ModeMixingWarning, ShortChainWarning
+from ..errors import (ArgumentError, FitError, ModeMixingWarning, PriorDominatedWarning,
+                      ShortChainWarning)
 from ..stats import ONE_SIGMA
 from .likelihood import ParameterVector
 
@@ -88,7 +101,7 @@ if TYPE_CHECKING:
 
 __all__ = ["LogPosterior", "GaussianPrior", "LogUniformPrior", "McmcResult", "run_mcmc",
            "SamplerCoordinates", "SampledPosterior", "chain_diagnostics", "RHAT_MAX", "ESS_MIN",
-           "PROPOSALS", "proposal_moves"]
+           "PROPOSALS", "proposal_moves", "posterior_contraction", "PRIOR_CONTRACTION_MIN"]
 
 #: Chains shorter than this many autocorrelation times trigger a warning.
 MIN_TAU_MULTIPLE = 50
@@ -100,6 +113,12 @@ RHAT_MAX = 1.05
 #: Smallest acceptable bulk effective sample size (Vehtari et al. 2021
 #: recommend > 400, i.e. 100 per chain for four chains).
 ESS_MIN = 400
+#: A sampled coordinate whose posterior keeps more than this share of its
+#: flat prior's variance (posterior contraction below 0.5) is reported as
+#: prior-dominated: the data have not even halved the prior's variance.
+#: (Our convention; the contraction itself is Schad, Betancourt & Vasishth
+#: 2021, Psychological Methods 26, 103.)
+PRIOR_CONTRACTION_MIN = 0.5
 #: Walker proposals :func:`run_mcmc` accepts (module docstring).
 PROPOSALS = ("auto", "stretch", "differential", "valley")
 #: Weights of the differential-evolution move and its snooker variant in
@@ -193,6 +212,8 @@ class McmcResult:
         self.ess = None             # bulk effective sample size per parameter (arviz)
         self.mode_visits = None     # samples per known minimum (post burn-in)
         self.mode_crossings = None  # walker moves between known minima's regions
+        # {coordinate: posterior contraction} (flat priors)
+        self.contraction: dict[str, float] | None = None
         self.coordinates = []       # sampler coordinates, e.g. "ln(dust_amax)"
         self.initial = None         # walkers' starting points (nwalkers, ndim)
         self.prior = "parameters"
@@ -220,6 +241,12 @@ class McmcResult:
         between their regions."""
         return (self.mode_visits is not None and len(self.mode_visits) > 1
                 and not self.mode_crossings)
+
+    @property
+    def prior_dominated(self):
+        """Sampler coordinates whose posterior contraction is below
+        :data:`PRIOR_CONTRACTION_MIN` (see :func:`posterior_contraction`)."""
+        return [k for k, c in (self.contraction or {}).items() if c < PRIOR_CONTRACTION_MIN]
 
     @property
     def diagnostics_ok(self):
@@ -265,6 +292,11 @@ class McmcResult:
             lines.append(f"  samples per known minimum {list(self.mode_visits)}, "
                          f"{self.mode_crossings} walker moves between them"
                          + ("  [MODES NOT CROSSED]" if self.unmixed_modes else ""))
+        if self.prior_dominated:
+            con = self.contraction or {}
+            lines.append("  prior-dominated (posterior contraction < "
+                         f"{PRIOR_CONTRACTION_MIN}): "
+                         + ", ".join(f"{k} {con[k]:.2f}" for k in self.prior_dominated))
         for n in self.names:
             med, lo, hi = self.quantiles(n)
             lines.append(f"  {n:<26} median {med:.5g}  68% [{lo:.5g}, {hi:.5g}]")
@@ -280,6 +312,7 @@ class McmcResult:
                 "mode_visits": None if self.mode_visits is None else list(self.mode_visits),
                 "mode_crossings": self.mode_crossings, "coordinates": self.coordinates,
                 "prior": self.prior, "proposal": self.proposal,
+                "contraction": self.contraction, "prior_dominated": self.prior_dominated,
                 "posterior": {n: dict(zip(("median", "lo68", "hi68"), self.quantiles(n)))
                               for n in self.names}}
 
@@ -418,6 +451,31 @@ class SamplerCoordinates:
                 jac[idd, idd] = g / tot ** 2
         return jac
 
+    def box(self, pv):
+        """The parameter bounds of ``pv`` as a box (lower, upper) in the
+        sampler coordinates (for a column pair: total >= 0 and fraction in
+        [0, 1])."""
+        lower = np.array(pv.lower, dtype=float)
+        upper = np.array(pv.upper, dtype=float)
+        for j in self.ln_idx:
+            lower[j] = math.log(lower[j]) if lower[j] > 0 else -np.inf
+            upper[j] = math.log(upper[j]) if upper[j] > 0 else -np.inf
+        if self.pair is not None:
+            ig, idd = self.pair
+            lower[ig], upper[ig] = 0.0, np.inf
+            lower[idd], upper[idd] = 0.0, 1.0
+        return lower, upper
+
+    def label(self, j):
+        """Name of sampler coordinate ``j``."""
+        if j in self.ln_idx:
+            return f"ln({self.free[j]})"
+        if self.pair is not None and j == self.pair[0]:
+            return "total"
+        if self.pair is not None and j == self.pair[1]:
+            return "dust fraction"
+        return self.free[j]
+
     def in_bounds(self, y):
         if self.pair is not None:
             tot, f = y[self.pair[0]], y[self.pair[1]]
@@ -466,6 +524,35 @@ def chain_diagnostics(chain):
             rhat[k] = float(az.rhat(arr))
             ess[k] = float(az.ess(arr, method="bulk"))
     return rhat, ess
+
+
+def posterior_contraction(samples, lower, upper):
+    """1 - var(posterior) / var(prior) for each column of ``samples`` (n, d)
+    whose prior is flat on [lower, upper] (variance (upper - lower)^2 / 12);
+    NaN where the interval is not finite.  Near 1 the data pin the
+    coordinate down, near 0 its posterior is its prior (the "posterior
+    contraction" of Schad, Betancourt & Vasishth 2021, Psychological
+    Methods 26, 103)."""
+    x = np.asarray(samples, dtype=float)
+    width = np.asarray(upper, dtype=float) - np.asarray(lower, dtype=float)
+    out = np.full(x.shape[1], np.nan)
+    ok = np.isfinite(width) & (width > 0)
+    out[ok] = 1.0 - np.var(x[:, ok], axis=0) / (width[ok] ** 2 / 12.0)
+    return out
+
+
+def _flat_prior_coordinates(coords, prior, skip):
+    """Indices of the sampler coordinates whose prior is flat in the
+    coordinate itself: with ``prior="sampled"`` all but the scales (flat in
+    the parameter), with ``"parameters"`` those sampled untransformed;
+    never the parameters named in ``skip`` (a prior of the user's)."""
+    transformed = set(coords.scale_idx.tolist())
+    if prior != "sampled":
+        transformed |= set(coords.ln_idx.tolist())
+        if coords.pair is not None:
+            transformed |= set(coords.pair)
+    return [j for j in range(len(coords.free))
+            if j not in transformed and coords.free[j] not in skip]
 
 
 def _mode_assignment(chain_y, centres, idx):
@@ -676,6 +763,20 @@ def run_mcmc(result: FitResult, nwalkers: int | None = None, nsteps: int = 2000,
         modes = _mode_assignment(post, centres, coords.log_idx)
         res.mode_visits = [int(np.sum(modes == m)) for m in range(len(centres))]
         res.mode_crossings = int(np.sum(modes[1:] != modes[:-1]))
+    flat = _flat_prior_coordinates(coords, res.prior, set(priors or ()))
+    lower, upper = coords.box(pv)
+    contraction = posterior_contraction(post.reshape(-1, ndim)[:, flat], lower[flat],
+                                        upper[flat])
+    res.contraction = {coords.label(j): float(c) for j, c in zip(flat, contraction)
+                       if np.isfinite(c)}
+    fraction = [k for k in res.prior_dominated
+                if k == "dust fraction" or k == getattr(result.model, "fraction_param", None)]
+    if fraction:
+        warnings.warn(f"the data do not separate gas from dust: the posterior of the dust "
+                      f"fraction ({fraction[0]}) keeps {1 - res.contraction[fraction[0]]:.0%} "
+                      "of its flat prior's variance, so its credible interval (and the gas "
+                      "and dust columns') mostly restates the prior; profile intervals say "
+                      "what the data alone allow", PriorDominatedWarning, stacklevel=2)
     if res.short_chain:
         warnings.warn(f"MCMC chain of {nsteps} steps is shorter than {MIN_TAU_MULTIPLE} "
                       f"autocorrelation times (max tau = {tmax:.1f} steps); posterior "

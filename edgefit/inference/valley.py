@@ -432,20 +432,5 @@ def valley_mixture(result, pv, coords, evaluator, logp=None, n_slices=VALLEY_SLI
     laplace = np.exp(lw - np.max(lw))
     laplace /= laplace.sum()
     weights = (1.0 - defensive) * laplace + defensive / len(laplace)
-    lower, upper = _y_box(pv, coords)
+    lower, upper = coords.box(pv)
     return ValleyMixture(np.array(means), np.array(covs), weights, dof, lower, upper)
-
-
-def _y_box(pv, coords):
-    """The parameter bounds as a box in the sampler coordinates (for a
-    column pair: total >= 0 and fraction in [0, 1])."""
-    lower = np.array(pv.lower, dtype=float)
-    upper = np.array(pv.upper, dtype=float)
-    for j in coords.ln_idx:
-        lower[j] = math.log(lower[j]) if lower[j] > 0 else -np.inf
-        upper[j] = math.log(upper[j]) if upper[j] > 0 else -np.inf
-    if coords.pair is not None:
-        ig, idd = coords.pair
-        lower[ig], upper[ig] = 0.0, np.inf
-        lower[idd], upper[idd] = 0.0, 1.0
-    return lower, upper
