@@ -27,7 +27,7 @@ import numpy as np
 from scipy import stats as sps
 
 from ..stats import ONE_SIGMA
-from .mcmc import ESS_MIN, RHAT_MAX
+from .mcmc import ESS_MIN, PRIOR_CONTRACTION_MIN, RHAT_MAX
 
 __all__ = ["draw_tasks", "run_one", "coverage_table", "QUANTITIES", "LEVELS",
            "AMAX_VALUES"]
@@ -180,7 +180,8 @@ def _mcmc_hits(tf, true_q, tname, fname, nsteps=MCMC_STEPS, nwalkers=32):
             if rhat is not None else None,
             "mcmc_ess_min": float(np.nanmin(ess)) if ess is not None else None,
             "mcmc_tau_max": float(np.nanmax(mc.tau)),
-            "mcmc_mixing_warning": bool(getattr(mc, "unmixed_modes", False))}
+            "mcmc_mixing_warning": bool(getattr(mc, "unmixed_modes", False)),
+            "mcmc_fraction_contraction": (mc.contraction or {}).get(fname)}
 
 
 #: The edge each element's coverage sightlines are fitted at.
@@ -211,7 +212,8 @@ def coverage_table(records, methods=("profile", "mcmc")):
                 continue
             rows = groups
             if method == "mcmc":
-                rows = groups + [("converged", [r for r in recs if _converged(r)])]
+                rows = groups + [("converged", [r for r in recs if _converged(r)]),
+                                 ("data-led", [r for r in recs if _data_led(r)])]
             lines.append(f"{el} {EDGE_SHELL.get(el, '')} edge, {method} intervals "
                          f"({len(recs)} sightlines)")
             hdr = f"  {'group':<12}{'n':>5}" + "".join(
@@ -240,6 +242,13 @@ def coverage_table(records, methods=("profile", "mcmc")):
                 n_ok = len([r for r in recs if key in r and _converged(r)])
                 lines.append(f"  chains with split-R-hat <= {RHAT_MAX} and bulk ESS >= "
                              f"{ESS_MIN} ('converged' row): {n_ok} of {n}")
+                have = [r for r in recs if r.get("mcmc_fraction_contraction") is not None]
+                if have:
+                    n_led = len([r for r in have if _data_led(r)])
+                    lines.append(f"  dust fraction's posterior contraction >= "
+                                 f"{PRIOR_CONTRACTION_MIN} ('data-led' row): {n_led} of "
+                                 f"{len(have)}; the others' credible intervals mostly "
+                                 "restate the flat prior")
             lines.append("")
     return "\n".join(lines)
 
@@ -248,6 +257,13 @@ def _converged(record):
     """Whether a record's chain passed the R-hat and ESS checks."""
     rhat, ess = record.get("mcmc_rhat_max"), record.get("mcmc_ess_min")
     return rhat is not None and ess is not None and rhat <= RHAT_MAX and ess >= ESS_MIN
+
+
+def _data_led(record):
+    """Whether a record's dust-fraction posterior contracted from its prior
+    by at least :data:`~edgefit.inference.mcmc.PRIOR_CONTRACTION_MIN`."""
+    c = record.get("mcmc_fraction_contraction")
+    return c is not None and c >= PRIOR_CONTRACTION_MIN
 
 
 def check_targets(records, method="profile"):
