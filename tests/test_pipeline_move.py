@@ -62,3 +62,32 @@ def test_fit_numbers_unchanged_by_the_move(tmp_path):
         q = _lookup(der, name)
         for k in ("median", "lo90", "hi90"):
             assert q[k] == pytest.approx(ref[k], rel=1e-3, abs=0), (name, k)
+
+
+def test_prior_dominated_posterior_is_a_note_not_a_doubt(tmp_path, monkeypatch, capsys):
+    # a posterior that restates its prior is a property of the data: the
+    # pipeline says so on stdout and does not pass it to the warning
+    # channel that marks a batch row doubtful (the MCMC itself is stubbed)
+    import warnings
+
+    import edgefit.inference
+    from edgefit.analysis.config import load_config
+    from edgefit.analysis.pipeline import run_sightline
+    from edgefit.errors import PriorDominatedWarning
+
+    src = ROOT / "examples" / "amber_loom"
+    work = tmp_path / "sim"
+    shutil.copytree(src, work)
+    toml = work / "amber_loom.toml"
+    text = toml.read_text().replace('profile = ["gas_si_col", "dust_col"]', "profile = []")
+    toml.write_text(text)
+
+    def fake_mcmc(result, **kwargs):
+        warnings.warn("the data do not separate gas from dust (stub)", PriorDominatedWarning)
+
+    monkeypatch.setattr(edgefit.inference, "run_mcmc", fake_mcmc)
+    seen = []
+    run_sightline(load_config(toml), tmp_path / "out", mcmc=True, plots=False,
+                  warn=seen.append)
+    assert not any("separate gas from dust" in m for m in seen), seen
+    assert "note: the data do not separate gas from dust (stub)" in capsys.readouterr().out

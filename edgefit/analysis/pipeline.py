@@ -116,7 +116,8 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
     * With ``statistic = "chi2"`` the scaled background is subtracted from
       the counts and its variance added.
     """
-    from ..errors import ConvergenceWarning, EdgefitError, ShortChainWarning
+    from ..errors import (ConvergenceWarning, EdgefitError, PriorDominatedWarning,
+                          ShortChainWarning)
     from ..inference import (derived_quantities, fit_sightline, posterior_predictive,
                              profile_intervals, run_mcmc)
 
@@ -161,10 +162,15 @@ def run_sightline(cfg: SightlineConfig, output: str | os.PathLike | None = None,
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", ShortChainWarning)
                 warnings.simplefilter("always", ConvergenceWarning)
+                warnings.simplefilter("always", PriorDominatedWarning)
                 func()
             for w in caught:
                 if issubclass(w.category, (ShortChainWarning, ConvergenceWarning)):
                     report(w)
+                elif issubclass(w.category, PriorDominatedWarning):
+                    # a property of the data, not a doubt about the fit: said,
+                    # and kept in the sample table's prior_dominated column
+                    say(f"note: {w.message}")
         except (EdgefitError, ValueError, ArithmeticError) as exc:
             result.meta[f"failed_{label}"] = str(exc)
             write()
