@@ -9,7 +9,10 @@ minimiser's own tolerance, common practice: a changed setting or default
 moves them by far more); derived medians and 90 % bounds to rel 1e-3
 (2000 Gaussian draws of the same seed).  The derived 68 % bounds are not
 compared: their level moved from 0.683 to the one 1-sigma level 0.6827
-(edgefit.stats.ONE_SIGMA)."""
+(edgefit.stats.ONE_SIGMA).
+
+Also here, because it needs the whole pipeline: a prior-dominated MCMC
+posterior is printed as a note, not passed to the warning channel."""
 import json
 import shutil
 from pathlib import Path
