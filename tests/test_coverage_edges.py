@@ -32,7 +32,7 @@ References and rules:
   flag check alone; ``benchmarks/validate_coverage.py --edges --mcmc``
   has the larger samples.)
 
-Marker ``long`` (about 25 CPU-minutes; CI runs it in its second step).
+Marker ``long`` (about 15 CPU-minutes; CI runs it in its second step).
 """
 from __future__ import annotations
 
