@@ -69,8 +69,7 @@ def coverage_failures(records):
     clear = [r for r in records if _data_led(r) and _converged(r)]
     for q in ("gas", "depletion"):
         key = f"mcmc_{q}_{ONE_SIGMA}"
-        unexplained = [r["task"]["index"] for r in records
-                       if not r["mcmc_hits"][key] and r in clear]
+        unexplained = [r["task"]["index"] for r in clear if not r["mcmc_hits"][key]]
         hits = sum(r["mcmc_hits"][key] for r in clear)
         if hits < _floor(len(clear), ONE_SIGMA):
             bad.append(f"mcmc {q} at 68 % on {len(clear)} unflagged sightlines: {hits} hits "

@@ -301,7 +301,6 @@ def test_mcmc_starts_in_every_minimum_and_warns_when_modes_not_crossed(global_fi
     assert warned == (mc.mode_crossings == 0)
 
 
-
 @pytest.mark.slow
 @pytest.mark.parametrize("element", ["Mg", "Fe", "O"])
 def test_mg_fe_o_intervals_hold_the_truth_or_name_the_degeneracy(element):
